@@ -1,0 +1,151 @@
+"""Results file: layout of ARCHITECTURE section 6, round trip, atomic write, bad files."""
+
+from __future__ import annotations
+
+import h5py
+import numpy as np
+import pytest
+
+from vfactor import h5io
+from vfactor.constants import STEFAN_BOLTZMANN
+from vfactor.errors import ResultsFileError
+
+from results_sample import sample_results
+
+CONTRACT = {  # ARCHITECTURE section 6: dataset -> units
+    "nodes/name": "", "nodes/area": "m2", "nodes/solar_absorptivity": "1",
+    "nodes/ir_emissivity": "1", "facets/vertices": "m", "facets/triangles": "1",
+    "facets/front_node": "1", "facets/back_node": "1", "view_factors/matrix": "1",
+    "view_factors/space": "1", "view_factors/inert": "1", "view_factors/stderr": "1",
+    "exchange/gebhart": "1", "exchange/gebhart_space": "1", "exchange/area": "m2",
+    "exchange/area_space": "m2", "orbit/time": "s", "orbit/position": "km",
+    "orbit/sun_fraction": "1", "orbit/sun_body": "1", "orbit/nadir_body": "1",
+    "orbit/beta": "deg", "heating/solar": "W", "heating/albedo": "W", "heating/planet_ir": "W",
+    "heating/facet/solar": "W m-2", "heating/facet/albedo": "W m-2",
+    "heating/facet/planet_ir": "W m-2", "model/source": "",
+}
+
+
+@pytest.fixture
+def written(tmp_path):
+    kw = sample_results(facet=True)
+    path = h5io.write_results(tmp_path / "out.h5", **kw)
+    return path, kw
+
+
+def test_contract_layout_units_and_descriptions(written):
+    path, kw = written
+    with h5py.File(path, "r") as h:
+        for name, units in CONTRACT.items():
+            assert name in h, name
+            assert h[name].attrs["units"] == units, name
+        every = []
+        h.visititems(lambda n, o: every.append((n, o)) if isinstance(o, h5py.Dataset) else None)
+        assert len(every) > len(CONTRACT)
+        for name, ds in every:
+            assert "units" in ds.attrs, name
+            assert isinstance(ds.attrs["description"], str) and ds.attrs["description"], name
+        for key in ("vfactor_version", "created_utc", "model_sha256", "seed", "rays_per_node",
+                    "schema_version"):
+            assert key in h.attrs, key
+        assert h.attrs["model_sha256"] == kw["model"].sha256
+        assert h.attrs["seed"] == 3 and h.attrs["rays_per_node"] == 10_000
+        assert h.attrs["elapsed_view_factors_s"] == 1.5
+        assert h["model/source"].asstr()[()] == kw["model"].source_text
+        # strings are UTF-8 variable length
+        assert h["nodes/name"].dtype.kind == "O"
+        assert h5py.check_string_dtype(h["nodes/name"].dtype).encoding == "utf-8"
+        # per-facet heating is chunked and compressed
+        assert h["heating/facet/solar"].compression == "gzip"
+        assert h["heating/facet/solar"].chunks is not None
+        # conductance = sigma * exchange area (Stefan-Boltzmann constant, CODATA 2018)
+        np.testing.assert_array_equal(h["exchange/conductance"][()],
+                                      STEFAN_BOLTZMANN * kw["exchange"].area)
+        # orbit stored at the edge in km and degrees
+        np.testing.assert_allclose(h["orbit/position"][()] * 1e3, kw["trajectory"].position,
+                                   rtol=0, atol=1e-6)
+        np.testing.assert_allclose(np.radians(h["orbit/beta"][()]), kw["trajectory"].beta,
+                                   rtol=0, atol=1e-15)
+
+
+def test_round_trip(written):
+    path, kw = written
+    r = h5io.read_results(path)
+    g, g0 = r.geometry, kw["geometry"]
+    assert g.nodes.names == g0.nodes.names and g.part_names == g0.part_names
+    np.testing.assert_array_equal(g.vertices, g0.vertices)
+    np.testing.assert_array_equal(g.triangles, g0.triangles)
+    np.testing.assert_array_equal(g.back_node, g0.back_node)
+    assert g.coatings == g0.coatings
+    vf, vf0 = r.view_factors, kw["view_factors"]
+    for name in ("matrix", "space", "inert", "stderr", "raw_matrix", "rays"):
+        np.testing.assert_array_equal(getattr(vf, name), getattr(vf0, name))
+    assert vf.target_error is None and vf.method == vf0.method
+    assert (vf.facet_matrix != vf0.facet_matrix).nnz == 0
+    np.testing.assert_array_equal(r.exchange.area, kw["exchange"].area)
+    tr, tr0 = r.trajectory, kw["trajectory"]
+    np.testing.assert_array_equal(tr.time, tr0.time)
+    np.testing.assert_allclose(tr.position, tr0.position, rtol=1e-15)
+    assert tr.period == tr0.period and tr.epoch_utc == tr0.epoch_utc
+    h, h0 = r.heating, kw["heating"]
+    np.testing.assert_array_equal(h.facet_albedo, h0.facet_albedo)
+    np.testing.assert_array_equal(h.node_planet_ir, h0.node_planet_ir)
+    # even steps over one orbit: the time average is the plain mean of the steps
+    np.testing.assert_allclose(r.node_average["solar"], h0.node_solar.mean(axis=0), rtol=1e-14)
+    np.testing.assert_allclose(r.node_average["total"],
+                               (h0.node_solar + h0.node_albedo + h0.node_planet_ir).mean(axis=0),
+                               rtol=1e-14)
+    assert r.seed == 3 and r.rays_per_node == 10_000
+    assert r.elapsed_s["view_factors"] == 1.5
+    assert r.model_source == kw["model"].source_text
+
+
+def test_couplings_only_file(tmp_path):
+    kw = sample_results(with_orbit=False)
+    r = h5io.read_results(h5io.write_results(tmp_path / "c.h5", **kw))
+    assert r.trajectory is None and r.heating is None and r.node_average is None
+    assert r.exchange is not None
+
+
+def test_failed_write_leaves_no_file_and_keeps_old(tmp_path, monkeypatch):
+    kw = sample_results()
+    target = tmp_path / "out.h5"
+    h5io.write_results(target, **kw)
+    before = target.read_bytes()
+
+    def boom(*args, **kwargs):
+        raise RuntimeError("disk full (simulated)")
+
+    monkeypatch.setattr(h5io, "_write_heating", boom)
+    with pytest.raises(RuntimeError, match="simulated"):
+        h5io.write_results(target, **kw)
+    assert target.read_bytes() == before  # the old file survives
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out.h5"]  # no temporary left
+    fresh = tmp_path / "new.h5"
+    with pytest.raises(RuntimeError):
+        h5io.write_results(fresh, **kw)
+    assert not fresh.exists()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out.h5"]
+
+
+def test_missing_folder(tmp_path):
+    with pytest.raises(ResultsFileError, match="does not exist"):
+        h5io.write_results(tmp_path / "nope" / "out.h5", **sample_results())
+
+
+@pytest.mark.parametrize("kind", ["missing", "text", "foreign", "incomplete"])
+def test_bad_results_files(tmp_path, kind):
+    path = tmp_path / "bad.h5"
+    if kind == "text":
+        path.write_text("not hdf5\n")
+    elif kind == "foreign":
+        with h5py.File(path, "w") as h:
+            h["x"] = 1
+    elif kind == "incomplete":
+        with h5py.File(path, "w") as h:
+            h.attrs["file_kind"] = h5io.FILE_KIND
+            h.attrs["schema_version"] = h5io.SCHEMA_VERSION
+    with pytest.raises(ResultsFileError) as err:
+        h5io.read_results(path)
+    msg = str(err.value)
+    assert "\n" not in msg and str(path) in msg
