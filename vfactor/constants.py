@@ -44,4 +44,34 @@ TROPICAL_YEAR_S = 365.24219 * 86400.0
 """Mean tropical year [s]; common practice (365.242 19 d). Used for sun-synchronous precession."""
 
 # --- Environment design cases ---------------------------------------------------------------
-# (filled in by vfactor.environment; values there name their sources)
+# Used by vfactor.environment. The hot and cold solar constants are derived there from
+# SOLAR_CONSTANT_1AU and EARTH_ORBIT_ECCENTRICITY (inverse-square law at perihelion and
+# aphelion), not stored as numbers.
+EARTH_ORBIT_ECCENTRICITY = 0.0167086
+"""Eccentricity of the Earth's orbit about the Sun [1], J2000 mean value; Simon et al. 1994,
+A&A 282, 663, Table 6 (from memory). Perihelion 1 - e = 0.98329 au, aphelion 1 + e = 1.01671 au."""
+
+ALBEDO_NOMINAL = 0.30
+"""Earth orbit-averaged Bond albedo, nominal design value [1]; Gilmore (ed.), Spacecraft
+Thermal Control Handbook, Vol. I, 2nd ed. (2002), ch. 2, "0.30 +/- 0.05" (from memory)."""
+
+ALBEDO_HOT = 0.35
+"""Earth albedo, hot design case [1]; Gilmore 2002, ch. 2, upper end of 0.30 +/- 0.05
+(from memory)."""
+
+ALBEDO_COLD = 0.25
+"""Earth albedo, cold design case [1]; Gilmore 2002, ch. 2, lower end of 0.30 +/- 0.05
+(from memory)."""
+
+PLANET_IR_NOMINAL = 237.0
+"""Earth outgoing long-wave radiation at the top of the atmosphere, nominal [W m-2];
+Gilmore 2002, ch. 2, "237 +/- 21 W/m2" (from memory); consistent with the ERBE global
+annual mean of about 237-240 W m-2 (common practice)."""
+
+PLANET_IR_HOT = 258.0
+"""Earth outgoing long-wave radiation, hot design case [W m-2]; Gilmore 2002, ch. 2,
+237 + 21 (from memory)."""
+
+PLANET_IR_COLD = 216.0
+"""Earth outgoing long-wave radiation, cold design case [W m-2]; Gilmore 2002, ch. 2,
+237 - 21 (from memory)."""
