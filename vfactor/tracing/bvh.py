@@ -1,0 +1,535 @@
+"""Bounding volume hierarchy (BVH): binned SAH build and refit, as flat arrays.
+
+Layout (what :mod:`vfactor.tracing.traverse` reads)
+----------------------------------------------------
+A binary tree whose nodes each hold the boxes of BOTH children, so one 64-byte node (one
+cache line) answers the box tests of a traversal step:
+
+``nodes`` : (n, 16) float32, 64-byte aligned
+    ``[0:6]`` box of child 0 (min x, y, z, max x, y, z) [m], ``[6:12]`` box of child 1.
+    Boxes are rounded OUTWARD to float32 (minimum rounded down, maximum up), so a box
+    never shrinks by the rounding and no ray is missed. An empty child has the box
+    (+inf, +inf, +inf, -inf, -inf, -inf).
+``nodes_i`` : (n, 16) int32, the same memory viewed as int32
+    ``[12]``, ``[13]``: child references. ``ref >= 0`` is an inner node (row of
+    ``nodes``); ``ref < 0`` is a leaf, ``-1 - ref = (first << 4) | count`` with the
+    triangle range ``first .. first + count - 1`` of ``tri`` (count 0..15).
+``tri`` : (m, 9) float64
+    The 3 vertices (A, B, C, each x y z) [m] of each triangle in leaf order.
+``tri_ids`` : (m,) int64
+    Original facet index of each row of ``tri``.
+
+Row 0 is the root. Nodes are numbered depth-first (a child after its parent, the left
+subtree before the right), which keeps a traversal path close in memory and lets
+:func:`refit` work in one backward sweep. Degenerate triangles (zero area to rounding)
+are left out of the tree at build time: they can never be hit.
+
+Build
+-----
+Top-down binned surface-area heuristic (SAH): at each node the triangle centroids are
+put into ``n_bins`` bins along each axis, and the split plane between bins that minimises
+``C_trav + (A_L N_L + A_R N_R) / A`` (in units of one triangle test) is taken, or a leaf is
+made when ``N`` is at most ``max_leaf`` and cheaper (Wald 2007, "On fast construction of
+SAH-based bounding volume hierarchies", IEEE Symp. Interactive Ray Tracing, sections 3-4;
+MacDonald & Booth 1990, "Heuristics for ray tracing using space subdivision", The Visual
+Computer 6(3), for the cost model). Below depth 48, or when all centroids fall in one bin,
+the split is at the median centroid of the widest axis, which bounds the depth (<= 48 +
+log2 m) and so the traversal stack.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+from .config import JIT
+
+__all__ = ["BVH", "build", "refit", "MAX_LEAF_LIMIT", "STACK_SIZE"]
+
+#: Largest leaf size the reference encoding allows.
+MAX_LEAF_LIMIT = 15
+#: Depth below which SAH splits give way to median splits.
+_SAH_MAX_DEPTH = 48
+#: Traversal stack entries needed for any tree this module builds (>= max depth).
+STACK_SIZE = 96
+
+
+def _empty_box():
+    return np.array([np.inf, np.inf, np.inf, -np.inf, -np.inf, -np.inf])
+
+
+@njit(**JIT)
+def _triangle_data(vertices, triangles, ids, tri, tri_min, tri_max, cent):
+    """Gather vertices of facets ``ids`` into ``tri`` rows, with boxes and centroids."""
+    for r in range(ids.shape[0]):
+        f = ids[r]
+        for j in range(3):
+            v = triangles[f, j]
+            for a in range(3):
+                tri[r, 3 * j + a] = vertices[v, a]
+        for a in range(3):
+            x0 = tri[r, a]
+            x1 = tri[r, 3 + a]
+            x2 = tri[r, 6 + a]
+            lo = min(x0, min(x1, x2))
+            hi = max(x0, max(x1, x2))
+            tri_min[r, a] = lo
+            tri_max[r, a] = hi
+            cent[r, a] = 0.5 * (lo + hi)
+
+
+@njit(**JIT)
+def degenerate_mask(vertices, triangles):
+    """True for triangles of zero area to rounding.
+
+    A triangle is degenerate when ``|(B - A) x (C - A)| <= 64 eps L^2`` with ``L`` its
+    longest edge and ``eps = 2**-52`` (our choice: a few ulps of the area scale).
+
+    Parameters
+    ----------
+    vertices : (v, 3) float64 [m]
+    triangles : (f, 3) int64
+
+    Returns
+    -------
+    (f,) bool
+    """
+    f = triangles.shape[0]
+    out = np.zeros(f, dtype=np.bool_)
+    eps = 2.0 ** -52
+    for i in range(f):
+        a = triangles[i, 0]
+        b = triangles[i, 1]
+        c = triangles[i, 2]
+        e1x = vertices[b, 0] - vertices[a, 0]
+        e1y = vertices[b, 1] - vertices[a, 1]
+        e1z = vertices[b, 2] - vertices[a, 2]
+        e2x = vertices[c, 0] - vertices[a, 0]
+        e2y = vertices[c, 1] - vertices[a, 1]
+        e2z = vertices[c, 2] - vertices[a, 2]
+        e3x = e2x - e1x
+        e3y = e2y - e1y
+        e3z = e2z - e1z
+        nx = e1y * e2z - e1z * e2y
+        ny = e1z * e2x - e1x * e2z
+        nz = e1x * e2y - e1y * e2x
+        n2 = nx * nx + ny * ny + nz * nz
+        l2 = max(e1x * e1x + e1y * e1y + e1z * e1z,
+                 max(e2x * e2x + e2y * e2y + e2z * e2z, e3x * e3x + e3y * e3y + e3z * e3z))
+        lim = 64.0 * eps * l2
+        out[i] = not (n2 > lim * lim)
+    return out
+
+
+@njit(**JIT)
+def _area(lo0, lo1, lo2, hi0, hi1, hi2):
+    dx = hi0 - lo0
+    dy = hi1 - lo1
+    dz = hi2 - lo2
+    return dx * dy + dy * dz + dz * dx
+
+
+@njit(**JIT)
+def _range_bounds(order, start, end, tri_min, tri_max, cent, box, cbox):
+    for a in range(3):
+        box[a] = np.inf
+        box[3 + a] = -np.inf
+        cbox[a] = np.inf
+        cbox[3 + a] = -np.inf
+    for i in range(start, end):
+        r = order[i]
+        for a in range(3):
+            box[a] = min(box[a], tri_min[r, a])
+            box[3 + a] = max(box[3 + a], tri_max[r, a])
+            cbox[a] = min(cbox[a], cent[r, a])
+            cbox[3 + a] = max(cbox[3 + a], cent[r, a])
+
+
+@njit(**JIT)
+def _encode_leaf(first, count):
+    return np.int32(-1 - ((first << 4) | count))
+
+
+@njit(**JIT)
+def _build_kernel(tri_min, tri_max, cent, max_leaf, n_bins, trav_cost,
+                  order, boxes, refs):
+    """Top-down binned SAH build; fills ``boxes (cap, 12)``, ``refs (cap, 2)``, ``order``.
+
+    Returns the number of nodes.
+    """
+    m = order.shape[0]
+    for i in range(m):
+        order[i] = i
+    # Empty boxes everywhere to start with.
+    for n in range(boxes.shape[0]):
+        for c in range(2):
+            for a in range(3):
+                boxes[n, 6 * c + a] = np.inf
+                boxes[n, 6 * c + 3 + a] = -np.inf
+            refs[n, c] = -1
+    n_nodes = 1
+    if m == 0:
+        return n_nodes
+    # Stack of pending ranges: parent node, child slot, start, end, depth.
+    st_parent = np.empty(128, np.int64)
+    st_slot = np.empty(128, np.int64)
+    st_start = np.empty(128, np.int64)
+    st_end = np.empty(128, np.int64)
+    st_depth = np.empty(128, np.int64)
+    box = np.empty(6)
+    cbox = np.empty(6)
+    bin_n = np.zeros((3, n_bins), np.int64)
+    bin_b = np.empty((3, n_bins, 6))
+    right_a = np.empty(n_bins)
+    right_n = np.empty(n_bins, np.int64)
+    keys = np.empty(m)
+
+    # The root range goes into node 0; if it becomes a leaf it sits in slot 0.
+    sp = 0
+    st_parent[0] = -1
+    st_slot[0] = 0
+    st_start[0] = 0
+    st_end[0] = m
+    st_depth[0] = 0
+    sp = 1
+    while sp > 0:
+        sp -= 1
+        parent = st_parent[sp]
+        slot = st_slot[sp]
+        start = st_start[sp]
+        end = st_end[sp]
+        depth = st_depth[sp]
+        count = end - start
+        _range_bounds(order, start, end, tri_min, tri_max, cent, box, cbox)
+        area = _area(box[0], box[1], box[2], box[3], box[4], box[5])
+
+        split_axis = -1
+        split_bin = -1
+        best_cost = np.inf
+        if depth < _SAH_MAX_DEPTH and count > 1:
+            for a in range(3):
+                ext = cbox[3 + a] - cbox[a]
+                if not ext > 0.0:
+                    continue
+                scale = n_bins / ext
+                for b in range(n_bins):
+                    bin_n[a, b] = 0
+                    for q in range(3):
+                        bin_b[a, b, q] = np.inf
+                        bin_b[a, b, 3 + q] = -np.inf
+                for i in range(start, end):
+                    r = order[i]
+                    b = int((cent[r, a] - cbox[a]) * scale)
+                    if b >= n_bins:
+                        b = n_bins - 1
+                    if b < 0:
+                        b = 0
+                    bin_n[a, b] += 1
+                    for q in range(3):
+                        bin_b[a, b, q] = min(bin_b[a, b, q], tri_min[r, q])
+                        bin_b[a, b, 3 + q] = max(bin_b[a, b, 3 + q], tri_max[r, q])
+                # Sweep from the right: area and count of bins b .. n_bins-1.
+                lo0 = np.inf
+                lo1 = np.inf
+                lo2 = np.inf
+                hi0 = -np.inf
+                hi1 = -np.inf
+                hi2 = -np.inf
+                nr = 0
+                for b in range(n_bins - 1, 0, -1):
+                    lo0 = min(lo0, bin_b[a, b, 0])
+                    lo1 = min(lo1, bin_b[a, b, 1])
+                    lo2 = min(lo2, bin_b[a, b, 2])
+                    hi0 = max(hi0, bin_b[a, b, 3])
+                    hi1 = max(hi1, bin_b[a, b, 4])
+                    hi2 = max(hi2, bin_b[a, b, 5])
+                    nr += bin_n[a, b]
+                    right_n[b] = nr
+                    right_a[b] = _area(lo0, lo1, lo2, hi0, hi1, hi2) if nr > 0 else 0.0
+                lo0 = np.inf
+                lo1 = np.inf
+                lo2 = np.inf
+                hi0 = -np.inf
+                hi1 = -np.inf
+                hi2 = -np.inf
+                nl = 0
+                for b in range(0, n_bins - 1):
+                    lo0 = min(lo0, bin_b[a, b, 0])
+                    lo1 = min(lo1, bin_b[a, b, 1])
+                    lo2 = min(lo2, bin_b[a, b, 2])
+                    hi0 = max(hi0, bin_b[a, b, 3])
+                    hi1 = max(hi1, bin_b[a, b, 4])
+                    hi2 = max(hi2, bin_b[a, b, 5])
+                    nl += bin_n[a, b]
+                    nr = right_n[b + 1]
+                    if nl == 0 or nr == 0:
+                        continue
+                    cost = _area(lo0, lo1, lo2, hi0, hi1, hi2) * nl + right_a[b + 1] * nr
+                    if cost < best_cost:
+                        best_cost = cost
+                        split_axis = a
+                        split_bin = b + 1
+
+        make_leaf = False
+        if count <= max_leaf:
+            if count == 1 or split_axis < 0:
+                make_leaf = True
+            elif area > 0.0 and trav_cost + best_cost / area >= count:
+                make_leaf = True
+            elif not area > 0.0:
+                make_leaf = True
+        if make_leaf:
+            if parent < 0:
+                refs[0, 0] = _encode_leaf(start, count)
+                for q in range(6):
+                    boxes[0, q] = box[q]
+            else:
+                refs[parent, slot] = _encode_leaf(start, count)
+                for q in range(6):
+                    boxes[parent, 6 * slot + q] = box[q]
+            continue
+
+        # Inner node: the root range is node 0 itself.
+        if parent < 0:
+            node = 0
+        else:
+            node = n_nodes
+            n_nodes += 1
+            refs[parent, slot] = node
+            for q in range(6):
+                boxes[parent, 6 * slot + q] = box[q]
+
+        mid = start
+        if split_axis >= 0:
+            a = split_axis
+            ext = cbox[3 + a] - cbox[a]
+            scale = n_bins / ext
+            i = start
+            j = end - 1
+            while i <= j:
+                b = int((cent[order[i], a] - cbox[a]) * scale)
+                if b >= n_bins:
+                    b = n_bins - 1
+                if b < split_bin:
+                    i += 1
+                else:
+                    t = order[i]
+                    order[i] = order[j]
+                    order[j] = t
+                    j -= 1
+            mid = i
+        if mid <= start or mid >= end:
+            # Median split on the widest centroid axis (or by index if all coincide).
+            a = 0
+            for q in range(1, 3):
+                if cbox[3 + q] - cbox[q] > cbox[3 + a] - cbox[a]:
+                    a = q
+            for i in range(start, end):
+                keys[i] = cent[order[i], a]
+            perm = np.argsort(keys[start:end], kind="mergesort")
+            tmp = order[start:end].copy()
+            for i in range(count):
+                order[start + i] = tmp[perm[i]]
+            mid = start + count // 2
+        # Push right then left, so the left subtree is numbered first (depth-first).
+        st_parent[sp] = node
+        st_slot[sp] = 1
+        st_start[sp] = mid
+        st_end[sp] = end
+        st_depth[sp] = depth + 1
+        sp += 1
+        st_parent[sp] = node
+        st_slot[sp] = 0
+        st_start[sp] = start
+        st_end[sp] = mid
+        st_depth[sp] = depth + 1
+        sp += 1
+    return n_nodes
+
+
+@njit(**JIT)
+def _refit_kernel(tri, boxes, refs, n_nodes):
+    """Recompute node boxes bottom-up (children have larger rows than their parent)."""
+    for n in range(n_nodes - 1, -1, -1):
+        for c in range(2):
+            ref = refs[n, c]
+            lo0 = np.inf
+            lo1 = np.inf
+            lo2 = np.inf
+            hi0 = -np.inf
+            hi1 = -np.inf
+            hi2 = -np.inf
+            if ref >= 0:
+                for cc in range(2):
+                    lo0 = min(lo0, boxes[ref, 6 * cc + 0])
+                    lo1 = min(lo1, boxes[ref, 6 * cc + 1])
+                    lo2 = min(lo2, boxes[ref, 6 * cc + 2])
+                    hi0 = max(hi0, boxes[ref, 6 * cc + 3])
+                    hi1 = max(hi1, boxes[ref, 6 * cc + 4])
+                    hi2 = max(hi2, boxes[ref, 6 * cc + 5])
+            else:
+                code = -1 - ref
+                first = code >> 4
+                count = code & 15
+                for r in range(first, first + count):
+                    for j in range(3):
+                        lo0 = min(lo0, tri[r, 3 * j + 0])
+                        lo1 = min(lo1, tri[r, 3 * j + 1])
+                        lo2 = min(lo2, tri[r, 3 * j + 2])
+                        hi0 = max(hi0, tri[r, 3 * j + 0])
+                        hi1 = max(hi1, tri[r, 3 * j + 1])
+                        hi2 = max(hi2, tri[r, 3 * j + 2])
+            boxes[n, 6 * c + 0] = lo0
+            boxes[n, 6 * c + 1] = lo1
+            boxes[n, 6 * c + 2] = lo2
+            boxes[n, 6 * c + 3] = hi0
+            boxes[n, 6 * c + 4] = hi1
+            boxes[n, 6 * c + 5] = hi2
+
+
+def _to_float32_outward(boxes):
+    """float64 boxes (n, 12) -> float32 rounded outward (min down, max up)."""
+    f = boxes.astype(np.float32)
+    back = f.astype(np.float64)
+    lo = np.zeros(12, dtype=bool)
+    lo[[0, 1, 2, 6, 7, 8]] = True
+    lo_cols = np.broadcast_to(lo, boxes.shape)
+    down = lo_cols & (back > boxes)
+    up = ~lo_cols & (back < boxes)
+    f[down] = np.nextafter(f[down], np.float32(-np.inf))
+    f[up] = np.nextafter(f[up], np.float32(np.inf))
+    return f
+
+
+def _aligned_nodes(n):
+    """Zeroed (n, 16) float32 array whose start is 64-byte aligned."""
+    raw = np.zeros(n * 16 + 16, dtype=np.float32)
+    off = (-raw.ctypes.data % 64) // 4
+    return raw[off:off + n * 16].reshape(n, 16)
+
+
+@njit(**JIT)
+def _collapse_degenerate(tri, bad):
+    """Make triangles flagged ``bad`` a single point: such a triangle is never hit."""
+    for r in range(tri.shape[0]):
+        if bad[r]:
+            for j in range(1, 3):
+                for a in range(3):
+                    tri[r, 3 * j + a] = tri[r, a]
+
+
+class BVH:
+    """Flat BVH arrays (see the module notes for the layout).
+
+    Attributes
+    ----------
+    nodes : (n, 16) float32
+    nodes_i : (n, 16) int32 (same memory as ``nodes``)
+    tri : (m, 9) float64 [m]
+    tri_ids : (m,) int64
+    n_facets : int
+        Number of rows of the ``triangles`` array the tree was built from.
+    """
+
+    def __init__(self, nodes, tri, tri_ids, n_facets, boxes64, refs):
+        self.nodes = nodes
+        self.nodes_i = nodes.view(np.int32)
+        self.tri = tri
+        self.tri_ids = tri_ids
+        self.n_facets = n_facets
+        self._refs = refs
+
+    @property
+    def n_nodes(self):
+        return self.nodes.shape[0]
+
+    def depth(self):
+        """Largest number of inner nodes on a root-to-leaf path."""
+        best = 0
+        stack = [(0, 1)]
+        while stack:
+            n, d = stack.pop()
+            best = max(best, d)
+            for c in range(2):
+                ref = int(self._refs[n, c])
+                if ref >= 0:
+                    stack.append((ref, d + 1))
+        return best
+
+
+def build(vertices, triangles, max_leaf=4, n_bins=16, traversal_cost=1.0):
+    """Build a BVH over the non-degenerate triangles of a mesh.
+
+    Parameters
+    ----------
+    vertices : (v, 3) float64 [m], finite
+    triangles : (f, 3) int64, indices into ``vertices``
+    max_leaf : int
+        Most triangles in a leaf (1 .. 15).
+    n_bins : int
+        SAH bins per axis (Wald 2007 uses 16-32).
+    traversal_cost : float
+        Cost of one node visit in units of one triangle test (SAH constant).
+
+    Returns
+    -------
+    BVH
+    """
+    if not 1 <= int(max_leaf) <= MAX_LEAF_LIMIT:
+        raise ValueError(f"bvh.build: max_leaf must be in 1..{MAX_LEAF_LIMIT}, got {max_leaf}")
+    if not 2 <= int(n_bins) <= 256:
+        raise ValueError(f"bvh.build: n_bins must be in 2..256, got {n_bins}")
+    vertices = np.ascontiguousarray(vertices, dtype=np.float64)
+    triangles = np.ascontiguousarray(triangles, dtype=np.int64)
+    bad = degenerate_mask(vertices, triangles)
+    ids = np.flatnonzero(~bad).astype(np.int64)
+    m = ids.shape[0]
+    if m >= 1 << 27:
+        raise ValueError(f"bvh.build: at most 2**27 triangles, got {m}")
+    tri = np.empty((m, 9))
+    tri_min = np.empty((m, 3))
+    tri_max = np.empty((m, 3))
+    cent = np.empty((m, 3))
+    _triangle_data(vertices, triangles, ids, tri, tri_min, tri_max, cent)
+    cap = max(m, 1)
+    boxes = np.empty((cap, 12))
+    refs = np.empty((cap, 2), dtype=np.int32)
+    order = np.empty(m, dtype=np.int64)
+    n_nodes = _build_kernel(tri_min, tri_max, cent, int(max_leaf), int(n_bins),
+                            float(traversal_cost), order, boxes, refs)
+    nodes = _aligned_nodes(n_nodes)
+    nodes[:, :12] = _to_float32_outward(boxes[:n_nodes])
+    nodes_i = nodes.view(np.int32)
+    nodes_i[:, 12:14] = refs[:n_nodes]
+    tri = np.ascontiguousarray(tri[order])
+    tri_ids = np.ascontiguousarray(ids[order])
+    return BVH(nodes, tri, tri_ids, triangles.shape[0], None, refs[:n_nodes].copy())
+
+
+def refit(bvh, vertices, triangles):
+    """Move the triangles of ``bvh`` to new vertex positions and recompute the boxes.
+
+    The tree topology (which triangle is in which leaf) is kept; the arrays are updated in
+    place, so tuples of them held elsewhere stay valid. Triangles that were degenerate at
+    build time stay out of the tree; triangles that became degenerate are collapsed to a
+    point and can no longer be hit.
+
+    Parameters
+    ----------
+    bvh : BVH
+    vertices : (v, 3) float64 [m], finite
+    triangles : (f, 3) int64, the array the tree was built from
+    """
+    m = bvh.tri.shape[0]
+    tri = np.empty((m, 9))
+    tri_min = np.empty((m, 3))
+    tri_max = np.empty((m, 3))
+    cent = np.empty((m, 3))
+    _triangle_data(vertices, triangles, bvh.tri_ids, tri, tri_min, tri_max, cent)
+    bad = degenerate_mask(vertices, triangles)[bvh.tri_ids]
+    _collapse_degenerate(tri, bad)
+    bvh.tri[...] = tri
+    n = bvh.n_nodes
+    boxes = np.empty((n, 12))
+    _refit_kernel(bvh.tri, boxes, bvh._refs, n)
+    bvh.nodes[:, :12] = _to_float32_outward(boxes)

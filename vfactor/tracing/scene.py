@@ -1,0 +1,449 @@
+"""Scene: a BVH over the facets of a model, with batch ray queries.
+
+Batch queries (:meth:`Scene.closest_hit`, :meth:`Scene.occluded`) take numpy arrays of rays
+and run in parallel over the rays. Fused kernels (sample -> trace -> tally inside numba)
+call the device functions of :mod:`vfactor.tracing.traverse` directly with
+:attr:`Scene.arrays`; :func:`count_cosine_hits` is the pattern to copy:
+
+>>> @njit(**JIT_PARALLEL)
+... def kernel(arrays, vertices, triangles, normals, ray_counts, seed, out):
+...     for f in prange(ray_counts.shape[0]):           # one emitter per iteration
+...         for k in range(ray_counts[f]):               # its rays, counter = k
+...             u0, u1, u2, u3 = uniform4(seed, f, k)
+...             x, y, z = triangle_point(vertices, triangles, f, u0, u1)
+...             dx, dy, dz = cosine_direction(normals[f, 0], ..., u2, u3)
+...             hit, t, front = closest_hit(arrays, x, y, z, dx, dy, dz, np.inf, f)
+...             ...                                     # tally into out[f, ...] only
+
+Each iteration writes only its own emitter's tallies, and every random number is a pure
+function of (seed, stream, ray index), so tallies are bit-identical for any thread count and
+for any split of the ray indices into chunks.
+"""
+
+from __future__ import annotations
+
+from typing import NamedTuple
+
+import numpy as np
+from numba import njit, prange
+
+from ..errors import GeometryError
+from . import bvh as _bvh
+from .config import JIT, JIT_PARALLEL
+from .rng import uniform4
+from .sampling import cosine_direction, triangle_point
+from .traverse import any_hit, closest_hit
+
+__all__ = ["Scene", "Hits", "CosineTally", "rays_by_area", "cosine_rays",
+           "count_cosine_hits"]
+
+
+class Hits(NamedTuple):
+    """First hits of a batch of rays.
+
+    Attributes
+    ----------
+    facet : (r,) int64
+        Original facet index hit, -1 for a miss.
+    distance : (r,) float64 [m]
+        Distance from the origin to the hit (``inf`` or the given ``tmax`` on a miss).
+    front : (r,) bool
+        True when the ray met the side the facet normal points to (dot(d, n) < 0).
+    """
+
+    facet: np.ndarray
+    distance: np.ndarray
+    front: np.ndarray
+
+
+class CosineTally(NamedTuple):
+    """Tallies of :func:`count_cosine_hits`, per emitting facet.
+
+    Attributes
+    ----------
+    rays : (f,) int64
+        Rays emitted.
+    hits : (f,) int64
+        Rays that hit a facet (the rest escaped).
+    front_hits : (f,) int64
+        Hits on the front side of the facet hit.
+    facet_sum : (f,) int64
+        Sum of the indices of the facets hit (a checksum of which facets were hit).
+    """
+
+    rays: np.ndarray
+    hits: np.ndarray
+    front_hits: np.ndarray
+    facet_sum: np.ndarray
+
+
+@njit(**JIT)
+def _facet_normals(vertices, triangles, out):
+    for i in range(triangles.shape[0]):
+        a = triangles[i, 0]
+        b = triangles[i, 1]
+        c = triangles[i, 2]
+        e1x = vertices[b, 0] - vertices[a, 0]
+        e1y = vertices[b, 1] - vertices[a, 1]
+        e1z = vertices[b, 2] - vertices[a, 2]
+        e2x = vertices[c, 0] - vertices[a, 0]
+        e2y = vertices[c, 1] - vertices[a, 1]
+        e2z = vertices[c, 2] - vertices[a, 2]
+        nx = e1y * e2z - e1z * e2y
+        ny = e1z * e2x - e1x * e2z
+        nz = e1x * e2y - e1y * e2x
+        n = np.sqrt(nx * nx + ny * ny + nz * nz)
+        if n > 0.0:
+            out[i, 0] = nx / n
+            out[i, 1] = ny / n
+            out[i, 2] = nz / n
+        else:
+            out[i, 0] = 0.0
+            out[i, 1] = 0.0
+            out[i, 2] = 0.0
+
+
+def _clean_mesh(vertices, triangles, where):
+    vertices = np.asarray(vertices)
+    triangles = np.asarray(triangles)
+    if vertices.ndim != 2 or vertices.shape[1] != 3:
+        raise GeometryError(f"vertices must have shape (v, 3), got {vertices.shape}",
+                            where=where)
+    if triangles.ndim != 2 or triangles.shape[1] != 3:
+        raise GeometryError(f"triangles must have shape (f, 3), got {triangles.shape}",
+                            where=where)
+    if triangles.size and triangles.dtype.kind not in "iu":
+        raise GeometryError(f"triangles must be integers, got dtype {triangles.dtype}",
+                            where=where)
+    vertices = np.ascontiguousarray(vertices, dtype=np.float64)
+    triangles = np.ascontiguousarray(triangles, dtype=np.int64)
+    bad = ~np.isfinite(vertices).all(axis=1)
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        raise GeometryError(f"vertex {i} is not finite: {vertices[i].tolist()}", where=where)
+    if triangles.size:
+        out = (triangles < 0) | (triangles >= vertices.shape[0])
+        if out.any():
+            f = int(np.flatnonzero(out.any(axis=1))[0])
+            raise GeometryError(
+                f"facet {f} refers to vertex {triangles[f].tolist()} outside 0..{vertices.shape[0] - 1}",
+                where=where, facets=np.flatnonzero(out.any(axis=1)))
+    return vertices, triangles
+
+
+def _clean_rays(origins, directions, tmax, exclude, n_facets, name):
+    origins = np.asarray(origins, dtype=np.float64)
+    directions = np.asarray(directions, dtype=np.float64)
+    if origins.ndim != 2 or origins.shape[1] != 3:
+        raise ValueError(f"Scene.{name}: origins must have shape (r, 3), got {origins.shape}")
+    if directions.shape != origins.shape:
+        raise ValueError(f"Scene.{name}: directions must have shape {origins.shape}, "
+                         f"got {directions.shape}")
+    r = origins.shape[0]
+    if not np.isfinite(origins).all():
+        i = int(np.flatnonzero(~np.isfinite(origins).all(axis=1))[0])
+        raise ValueError(f"Scene.{name}: origin {i} is not finite: {origins[i].tolist()}")
+    if not np.isfinite(directions).all():
+        i = int(np.flatnonzero(~np.isfinite(directions).all(axis=1))[0])
+        raise ValueError(f"Scene.{name}: direction {i} is not finite: {directions[i].tolist()}")
+    norm = np.sqrt(np.einsum("ij,ij->i", directions, directions))
+    if r and not (norm > 0.0).all():
+        i = int(np.flatnonzero(~(norm > 0.0))[0])
+        raise ValueError(f"Scene.{name}: direction {i} is zero")
+    directions = np.ascontiguousarray(directions / norm[:, None])
+    origins = np.ascontiguousarray(origins)
+    tmax = np.asarray(tmax, dtype=np.float64)
+    if tmax.ndim == 0:
+        tmax = np.full(r, float(tmax))
+    if tmax.shape != (r,):
+        raise ValueError(f"Scene.{name}: tmax must be a scalar or shape ({r},), got {tmax.shape}")
+    if np.isnan(tmax).any() or (tmax < 0).any():
+        i = int(np.flatnonzero(np.isnan(tmax) | (tmax < 0))[0])
+        raise ValueError(f"Scene.{name}: tmax[{i}] must be >= 0, got {tmax[i]}")
+    tmax = np.ascontiguousarray(tmax)
+    if exclude is None:
+        exclude = np.full(r, -1, dtype=np.int64)
+    else:
+        exclude = np.asarray(exclude)
+        if exclude.ndim == 0:
+            exclude = np.full(r, int(exclude), dtype=np.int64)
+        if exclude.shape != (r,) or (exclude.size and exclude.dtype.kind not in "iu"):
+            raise ValueError(f"Scene.{name}: exclude must be None or ({r},) int, got "
+                             f"shape {exclude.shape} dtype {exclude.dtype}")
+        exclude = np.ascontiguousarray(exclude, dtype=np.int64)
+        if exclude.size and ((exclude < -1) | (exclude >= n_facets)).any():
+            i = int(np.flatnonzero((exclude < -1) | (exclude >= n_facets))[0])
+            raise ValueError(f"Scene.{name}: exclude[{i}] = {exclude[i]} is not -1 or a "
+                             f"facet index below {n_facets}")
+    return origins, directions, tmax, exclude
+
+
+@njit(**JIT_PARALLEL)
+def _closest_kernel(arrays, origins, directions, tmax, exclude, facet, distance, front):
+    for i in prange(origins.shape[0]):
+        f, t, fr = closest_hit(arrays, origins[i, 0], origins[i, 1], origins[i, 2],
+                               directions[i, 0], directions[i, 1], directions[i, 2],
+                               tmax[i], exclude[i])
+        facet[i] = f
+        distance[i] = t
+        front[i] = fr
+
+
+@njit(**JIT_PARALLEL)
+def _occluded_kernel(arrays, origins, directions, tmax, exclude, out):
+    for i in prange(origins.shape[0]):
+        out[i] = any_hit(arrays, origins[i, 0], origins[i, 1], origins[i, 2],
+                         directions[i, 0], directions[i, 1], directions[i, 2],
+                         tmax[i], exclude[i])
+
+
+class Scene:
+    """A triangle mesh with a BVH, answering first-hit and occlusion queries.
+
+    Build with :meth:`Scene.build`. Attributes: ``vertices (v, 3) [m]``,
+    ``triangles (f, 3) int64``, ``normals (f, 3) [1]`` (unit, from the counter-clockwise
+    winding; zero for degenerate facets), ``bvh`` (:class:`vfactor.tracing.bvh.BVH`) and
+    ``arrays`` (the tuple for the device functions).
+    """
+
+    def __init__(self, vertices, triangles, tree):
+        self.vertices = vertices
+        self.triangles = triangles
+        self.bvh = tree
+        self.normals = np.empty((triangles.shape[0], 3))
+        _facet_normals(vertices, triangles, self.normals)
+
+    @classmethod
+    def build(cls, vertices, triangles, max_leaf=4, n_bins=16):
+        """Build the BVH of a triangle mesh.
+
+        Parameters
+        ----------
+        vertices : (v, 3) float [m], finite
+        triangles : (f, 3) int, vertex indices, counter-clockwise seen from the front
+        max_leaf : int, optional
+            Most triangles in a BVH leaf (1..15).
+        n_bins : int, optional
+            SAH bins per axis.
+
+        Returns
+        -------
+        Scene
+
+        Raises
+        ------
+        vfactor.errors.GeometryError
+            Wrong shapes, non-finite vertices, vertex indices out of range.
+        """
+        vertices, triangles = _clean_mesh(vertices, triangles, "Scene.build")
+        vertices = vertices.copy()
+        triangles = triangles.copy()
+        tree = _bvh.build(vertices, triangles, max_leaf=max_leaf, n_bins=n_bins)
+        return cls(vertices, triangles, tree)
+
+    @property
+    def arrays(self):
+        """``(nodes, nodes_i, tri, tri_ids)``: what the device functions take."""
+        t = self.bvh
+        return (t.nodes, t.nodes_i, t.tri, t.tri_ids)
+
+    @property
+    def n_facets(self):
+        return self.triangles.shape[0]
+
+    def refit(self, vertices):
+        """Move the vertices (same triangles) and refit the BVH boxes in place.
+
+        Parameters
+        ----------
+        vertices : (v, 3) float [m], finite, same shape as at build
+
+        Raises
+        ------
+        vfactor.errors.GeometryError
+            Wrong shape or non-finite vertices.
+        """
+        vertices, _ = _clean_mesh(vertices, self.triangles, "Scene.refit")
+        if vertices.shape != self.vertices.shape:
+            raise GeometryError(f"vertices must keep shape {self.vertices.shape}, got "
+                                f"{vertices.shape}", where="Scene.refit")
+        self.vertices[...] = vertices
+        _bvh.refit(self.bvh, self.vertices, self.triangles)
+        _facet_normals(self.vertices, self.triangles, self.normals)
+
+    def closest_hit(self, origins, directions, tmax=np.inf, exclude=None):
+        """First facet hit by each ray.
+
+        Parameters
+        ----------
+        origins : (r, 3) float [m]
+        directions : (r, 3) float, non-zero (normalised here)
+        tmax : float or (r,) float [m], optional
+            Largest distance counted.
+        exclude : None or (r,) int, optional
+            Facet never hit by each ray (the emitting facet), -1 for none.
+
+        Returns
+        -------
+        Hits
+        """
+        o, d, tm, ex = _clean_rays(origins, directions, tmax, exclude, self.n_facets,
+                                   "closest_hit")
+        r = o.shape[0]
+        facet = np.empty(r, dtype=np.int64)
+        distance = np.empty(r)
+        front = np.empty(r, dtype=np.bool_)
+        if r:
+            _closest_kernel(self.arrays, o, d, tm, ex, facet, distance, front)
+        return Hits(facet, distance, front)
+
+    def occluded(self, origins, directions, tmax, exclude=None):
+        """Whether each ray hits any facet closer than ``tmax``.
+
+        Parameters are those of :meth:`closest_hit` (``tmax`` required; ``inf`` for rays
+        toward the Sun).
+
+        Returns
+        -------
+        (r,) bool
+        """
+        o, d, tm, ex = _clean_rays(origins, directions, tmax, exclude, self.n_facets,
+                                   "occluded")
+        out = np.empty(o.shape[0], dtype=np.bool_)
+        if o.shape[0]:
+            _occluded_kernel(self.arrays, o, d, tm, ex, out)
+        return out
+
+
+def rays_by_area(areas, n_rays):
+    """Split ``n_rays`` over facets in proportion to their areas (largest remainder).
+
+    Parameters
+    ----------
+    areas : (f,) float [m2], non-negative, not all zero
+    n_rays : int
+
+    Returns
+    -------
+    (f,) int64
+        Sums to ``n_rays``; deterministic (ties go to the lower facet index).
+    """
+    areas = np.asarray(areas, dtype=np.float64)
+    if areas.ndim != 1 or not np.isfinite(areas).all() or (areas < 0).any() or areas.sum() <= 0:
+        raise ValueError("rays_by_area: areas must be finite, non-negative, not all zero")
+    share = areas / areas.sum() * int(n_rays)
+    counts = np.floor(share).astype(np.int64)
+    rest = int(n_rays) - int(counts.sum())
+    if rest > 0:
+        order = np.lexsort((np.arange(areas.size), -(share - counts)))
+        counts[order[:rest]] += 1
+    return counts
+
+
+@njit(**JIT_PARALLEL)
+def _cosine_rays_kernel(vertices, triangles, normals, starts, ray_counts, seed, stream0,
+                        counter0, sign, origins, directions, emitter):
+    for f in prange(ray_counts.shape[0]):
+        nx = sign * normals[f, 0]
+        ny = sign * normals[f, 1]
+        nz = sign * normals[f, 2]
+        base = starts[f]
+        for k in range(ray_counts[f]):
+            u0, u1, u2, u3 = uniform4(seed, stream0 + f, counter0 + k)
+            x, y, z = triangle_point(vertices, triangles, f, u0, u1)
+            dx, dy, dz = cosine_direction(nx, ny, nz, u2, u3)
+            i = base + k
+            origins[i, 0] = x
+            origins[i, 1] = y
+            origins[i, 2] = z
+            directions[i, 0] = dx
+            directions[i, 1] = dy
+            directions[i, 2] = dz
+            emitter[i] = f
+
+
+def cosine_rays(scene, ray_counts, seed, side=1, stream_offset=0, counter_start=0):
+    """Rays from uniform points on facets in cosine-weighted directions.
+
+    Parameters
+    ----------
+    scene : Scene
+    ray_counts : (f,) int
+        Rays per facet (e.g. from :func:`rays_by_area`); degenerate facets must get 0.
+    seed : int
+    side : {1, -1}
+        Emit about the front normal (1) or the back (-1).
+    stream_offset, counter_start : int
+        Stream of facet ``f`` is ``stream_offset + f``; its ray ``k`` uses counter
+        ``counter_start + k``.
+
+    Returns
+    -------
+    origins (r, 3) [m], directions (r, 3) [1], emitter (r,) int64
+    """
+    counts = _check_counts(scene, ray_counts)
+    starts = np.concatenate([[0], np.cumsum(counts)[:-1]]).astype(np.int64)
+    r = int(counts.sum())
+    origins = np.empty((r, 3))
+    directions = np.empty((r, 3))
+    emitter = np.empty(r, dtype=np.int64)
+    _cosine_rays_kernel(scene.vertices, scene.triangles, scene.normals, starts, counts,
+                        np.uint64(seed), np.uint64(stream_offset), np.uint64(counter_start),
+                        float(side), origins, directions, emitter)
+    return origins, directions, emitter
+
+
+def _check_counts(scene, ray_counts):
+    counts = np.ascontiguousarray(ray_counts, dtype=np.int64)
+    if counts.shape != (scene.n_facets,) or (counts < 0).any():
+        raise ValueError(f"ray_counts must be ({scene.n_facets},) non-negative integers")
+    degenerate = ~(np.abs(scene.normals).sum(axis=1) > 0)
+    if (counts[degenerate] > 0).any():
+        f = int(np.flatnonzero(degenerate & (counts > 0))[0])
+        raise ValueError(f"ray_counts: facet {f} is degenerate (no area) but gets rays")
+    return counts
+
+
+@njit(**JIT_PARALLEL)
+def _count_kernel(arrays, vertices, triangles, normals, ray_counts, seed, stream0,
+                  counter0, sign, hits, front_hits, facet_sum):
+    for f in prange(ray_counts.shape[0]):
+        nx = sign * normals[f, 0]
+        ny = sign * normals[f, 1]
+        nz = sign * normals[f, 2]
+        nh = 0
+        nf = 0
+        s = 0
+        for k in range(ray_counts[f]):
+            u0, u1, u2, u3 = uniform4(seed, stream0 + f, counter0 + k)
+            x, y, z = triangle_point(vertices, triangles, f, u0, u1)
+            dx, dy, dz = cosine_direction(nx, ny, nz, u2, u3)
+            g, t, front = closest_hit(arrays, x, y, z, dx, dy, dz, np.inf, f)
+            if g >= 0:
+                nh += 1
+                s += g
+                if front:
+                    nf += 1
+        hits[f] = nh
+        front_hits[f] = nf
+        facet_sum[f] = s
+
+
+def count_cosine_hits(scene, ray_counts, seed, side=1, stream_offset=0, counter_start=0):
+    """Fused kernel: emit cosine-weighted rays from facets, trace them, count the hits.
+
+    Parameters are those of :func:`cosine_rays`; no ray array is ever made.
+
+    Returns
+    -------
+    CosineTally
+    """
+    counts = _check_counts(scene, ray_counts)
+    f = scene.n_facets
+    hits = np.zeros(f, dtype=np.int64)
+    front_hits = np.zeros(f, dtype=np.int64)
+    facet_sum = np.zeros(f, dtype=np.int64)
+    _count_kernel(scene.arrays, scene.vertices, scene.triangles, scene.normals, counts,
+                  np.uint64(seed), np.uint64(stream_offset), np.uint64(counter_start),
+                  float(side), hits, front_hits, facet_sum)
+    return CosineTally(counts, hits, front_hits, facet_sum)
