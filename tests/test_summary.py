@@ -1,0 +1,65 @@
+"""Summary of a results file: numbers match the file, JSON is complete, cautions shown."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+
+from vfactor import h5io, summary
+from vfactor.constants import STEFAN_BOLTZMANN
+
+from results_sample import sample_results
+
+
+@pytest.fixture
+def results(tmp_path):
+    kw = sample_results()
+    return h5io.read_results(h5io.write_results(tmp_path / "out.h5", **kw)), kw
+
+
+def test_summary_numbers_match_the_file(results):
+    r, kw = results
+    s = summary.summarize(r)
+    assert s["provenance"]["seed"] == 3 and s["provenance"]["rays_per_node"] == 10_000
+    assert s["provenance"]["model_sha256"] == kw["model"].sha256
+    pair = s["couplings"]["strongest"][0]
+    assert (pair["from"], pair["to"]) == ("bottom", "top")
+    assert pair["exchange_area_m2"] == kw["exchange"].area[0, 1]
+    assert pair["conductance_W_K4"] == STEFAN_BOLTZMANN * kw["exchange"].area[0, 1]
+    # Exchange.stderr is given: area error = eps_i A_i sigma(B_ij)
+    assert pair["exchange_area_stderr_m2"] == pytest.approx(0.85 * 1.0 * 1e-3, rel=1e-12)
+    assert s["space"][1]["view_factor"] == kw["view_factors"].space[1]
+    heat = kw["heating"]
+    row = s["heat_loads"]["nodes"][0]
+    assert row["solar"]["max_W"] == heat.node_solar[:, 0].max()
+    assert row["solar"]["min_W"] == 0.0  # two steps in umbra
+    # evenly spaced steps over one orbit: the average is the plain mean of the steps
+    assert row["total"]["average_W"] == pytest.approx(
+        (heat.node_solar + heat.node_albedo + heat.node_planet_ir)[:, 0].mean(), rel=1e-13)
+    o = s["orbit"]
+    # 2 of 8 even steps have sun_fraction 0 in the sample
+    assert o["eclipse_share"] == pytest.approx(0.25, abs=1e-12)
+    assert o["longest_eclipse_s"] == pytest.approx(2 * 5676.0 / 8, abs=1e-9)
+    assert o["beta_min_deg"] == pytest.approx(12.5, abs=1e-12)
+    assert o["period_s"] == 5676.0
+
+
+def test_text_and_json(results):
+    r, _ = results
+    text = summary.format_summary(r)
+    for needle in ("Strongest couplings", "Couplings to deep space", "Orbit", "heat loads",
+                   "Cautions", "licensed engineering practice", "bottom -> top"):
+        assert needle in text, needle
+    back = json.loads(summary.to_json(summary.summarize(r)))
+    assert back["cautions"] == list(summary.CAUTIONS)
+    assert back["heat_loads"]["case"] == "nominal"
+
+
+def test_couplings_only(tmp_path):
+    r = h5io.read_results(h5io.write_results(tmp_path / "c.h5", **sample_results(with_orbit=False)))
+    s = summary.summarize(r)
+    assert s["orbit"] is None and s["heat_loads"] is None
+    assert "Orbit" not in summary.format_summary(r)
+    assert np.isfinite(s["accuracy"]["largest_relative_stderr_significant"])

@@ -1,0 +1,257 @@
+"""``vfactor export``: results as CSV tables for a network solver, and coloured meshes.
+
+Formats (the CSV layout is documented in the README, "CSV layout"):
+
+``csv``
+    A folder with ``nodes.csv`` (one row per node), ``couplings.csv`` (one row per ordered
+    node pair whose view factor or Gebhart factor reaches ``threshold``) and, when the run
+    has an orbit, ``heat_loads.csv`` (one row per step and node). The header of every column
+    carries its unit in square brackets (``area [m2]``); one header line, comma-separated,
+    no comment lines.
+``vtk``
+    An unstructured grid (``.vtu``, via meshio) with per-facet cell data for ParaView.
+``gltf``
+    A binary glTF (``.glb``, via trimesh) whose facets are coloured by the orbit-average
+    absorbed flux (by node where the run has no orbit); the values ride along as the custom
+    vertex attribute ``_VALUE`` and the colour range in the mesh ``extras``.
+"""
+
+from __future__ import annotations
+
+import csv
+from pathlib import Path
+
+import numpy as np
+
+from .constants import STEFAN_BOLTZMANN
+from .errors import ArgumentError, ResultsFileError
+from .h5io import Results
+
+__all__ = ["FORMATS", "DEFAULT_THRESHOLD", "export", "export_csv", "export_vtk",
+           "export_gltf", "facet_fields"]
+
+FORMATS = ("csv", "vtk", "gltf")
+DEFAULT_THRESHOLD = 1e-4
+"""Smallest view factor or Gebhart factor [1] for a node pair to be listed in couplings.csv."""
+
+_SOURCES = ("solar", "albedo", "planet_ir")
+
+
+def export(results: Results, fmt: str, path, *, threshold: float = DEFAULT_THRESHOLD) -> list:
+    """Export ``results`` in format ``fmt`` to ``path``; return the files written.
+
+    Parameters
+    ----------
+    results : vfactor.h5io.Results
+    fmt : {"csv", "vtk", "gltf"}
+    path : str or os.PathLike
+        A folder for ``csv`` (created if missing), a file for ``vtk`` (``.vtu``) and
+        ``gltf`` (``.glb``).
+    threshold : float
+        Only for ``csv``: smallest view factor or Gebhart factor listed [1].
+
+    Returns
+    -------
+    list of pathlib.Path
+
+    Raises
+    ------
+    ArgumentError
+        Unknown format or negative threshold.
+    """
+    if fmt not in FORMATS:
+        raise ArgumentError(f"unknown export format {fmt!r}; choose one of {', '.join(FORMATS)}")
+    if fmt == "csv":
+        return export_csv(results, path, threshold=threshold)
+    if fmt == "vtk":
+        return [export_vtk(results, path)]
+    return [export_gltf(results, path)]
+
+
+# ---------------------------------------------------------------------------------------
+# CSV
+# ---------------------------------------------------------------------------------------
+def _fmt(x) -> str:
+    if isinstance(x, str):
+        return x
+    if isinstance(x, (int, np.integer)):
+        return str(int(x))
+    return repr(float(x))  # shortest text that reads back to the same float64
+
+
+def _write_csv(path: Path, header, rows) -> Path:
+    with open(path, "w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(header)
+        for r in rows:
+            w.writerow([_fmt(c) for c in r])
+    return path
+
+
+def export_csv(results: Results, folder, *, threshold: float = DEFAULT_THRESHOLD) -> list:
+    """Write ``nodes.csv``, ``couplings.csv`` and ``heat_loads.csv`` into ``folder``.
+
+    Values are written with full float64 precision, so they read back bit for bit.
+    """
+    if not threshold >= 0:
+        raise ArgumentError(f"--threshold must be >= 0, got {threshold!r}")
+    folder = Path(folder)
+    if folder.exists() and not folder.is_dir():
+        raise ArgumentError(f"{folder}: CSV export needs a folder, and this is a file")
+    folder.mkdir(parents=True, exist_ok=True)
+    g = results.geometry
+    nodes = g.nodes
+    n = len(nodes)
+    vf, ex, heat = results.view_factors, results.exchange, results.heating
+    written = []
+
+    header = ["node", "coating", "area [m2]", "solar_absorptivity [1]", "ir_emissivity [1]",
+              "facets [1]"]
+    cols = []
+    if vf is not None:
+        header += ["view_factor_space [1]", "view_factor_space_stderr [1]", "view_factor_inert [1]"]
+        cols += [vf.space, vf.stderr_space, vf.inert]
+    if ex is not None:
+        header += ["gebhart_space [1]", "exchange_area_space [m2]", "conductance_space [W K-4]"]
+        cols += [ex.gebhart_space, ex.area_space, STEFAN_BOLTZMANN * ex.area_space]
+    if heat is not None and results.node_average is not None:
+        for src in _SOURCES + ("total",):
+            header.append(f"average_absorbed_{src} [W]")
+            cols.append(results.node_average[src])
+    rows = []
+    for i in range(n):
+        rows.append([nodes.names[i], nodes.coating[i], nodes.area[i],
+                     nodes.solar_absorptivity[i], nodes.ir_emissivity[i],
+                     int(nodes.facet_count[i])] + [c[i] for c in cols])
+    written.append(_write_csv(folder / "nodes.csv", header, rows))
+
+    if vf is not None:
+        header = ["from", "to", "view_factor [1]", "view_factor_stderr [1]"]
+        if ex is not None:
+            header += ["gebhart [1]", "exchange_area [m2]", "conductance [W K-4]"]
+        rows = []
+        for i in range(n):
+            for j in range(n):
+                f_ij = vf.matrix[i, j]
+                b_ij = ex.gebhart[i, j] if ex is not None else 0.0
+                if max(f_ij, b_ij) < threshold or (f_ij == 0 and b_ij == 0):
+                    continue
+                row = [nodes.names[i], nodes.names[j], f_ij, vf.stderr[i, j]]
+                if ex is not None:
+                    row += [b_ij, ex.area[i, j], STEFAN_BOLTZMANN * ex.area[i, j]]
+                rows.append(row)
+        written.append(_write_csv(folder / "couplings.csv", header, rows))
+
+    if heat is not None:
+        tr = results.trajectory
+        header = ["step [1]", "time [s]", "sun_fraction [1]", "node", "solar [W]", "albedo [W]",
+                  "planet_ir [W]", "total [W]"]
+        rows = []
+        for k in range(tr.n_steps):
+            for i in range(n):
+                s, a, p = heat.node_solar[k, i], heat.node_albedo[k, i], heat.node_planet_ir[k, i]
+                rows.append([k, tr.time[k], tr.sun_fraction[k], nodes.names[i], s, a, p,
+                             s + a + p])
+        written.append(_write_csv(folder / "heat_loads.csv", header, rows))
+    return written
+
+
+# ---------------------------------------------------------------------------------------
+# Meshes
+# ---------------------------------------------------------------------------------------
+def facet_fields(results: Results) -> dict:
+    """Per-facet values exported to meshes: name -> ((f,) array, units).
+
+    Always ``front_node``, ``back_node``, ``part`` and ``area``; with heating also the
+    time-averaged absorbed flux ``absorbed_<source>`` and ``absorbed_total`` [W m-2].
+    """
+    g = results.geometry
+    out = {"front_node": (g.front_node.astype(np.int32), "1"),
+           "back_node": (g.back_node.astype(np.int32), "1"),
+           "part": (g.part.astype(np.int32), "1"),
+           "area": (g.areas.astype(float), "m2")}
+    if results.facet_average is not None:
+        for src in _SOURCES + ("total",):
+            out[f"absorbed_{src}"] = (np.asarray(results.facet_average[src], float), "W m-2")
+    return out
+
+
+def _mesh_target(path, suffix) -> Path:
+    path = Path(path)
+    if path.is_dir():
+        raise ArgumentError(f"{path}: is a folder; give a file name ending in {suffix}")
+    if not path.parent.is_dir():
+        raise ArgumentError(f"{path}: folder {path.parent} does not exist")
+    return path
+
+
+def export_vtk(results: Results, path) -> Path:
+    """Write the facets with their :func:`facet_fields` as VTK cell data (meshio).
+
+    A path without a suffix gets ``.vtu``. Field units are listed in the field names'
+    companion ``field_data`` entry ``units`` (VTK has no per-array unit attribute).
+    """
+    import meshio
+
+    path = _mesh_target(path, ".vtu")
+    if path.suffix == "":
+        path = path.with_suffix(".vtu")
+    g = results.geometry
+    fields = facet_fields(results)
+    mesh = meshio.Mesh(points=np.asarray(g.vertices, float),
+                       cells=[("triangle", np.asarray(g.triangles, np.int64))],
+                       cell_data={name: [values] for name, (values, _u) in fields.items()})
+    try:
+        mesh.write(path)
+    except (OSError, KeyError) as exc:
+        raise ResultsFileError(f"{path}: cannot write VTK file: {exc}") from None
+    return path
+
+
+def _colours(values: np.ndarray, vmin: float, vmax: float, cmap: str) -> np.ndarray:
+    from matplotlib import colormaps
+
+    span = vmax - vmin if vmax > vmin else 1.0
+    rgba = colormaps[cmap]((np.asarray(values, float) - vmin) / span)
+    return (np.clip(rgba, 0, 1) * 255).round().astype(np.uint8)
+
+
+def export_gltf(results: Results, path) -> Path:
+    """Write a binary glTF (``.glb``) with facet colours baked in (trimesh).
+
+    Colour: time-averaged total absorbed flux [W m-2] (colour map ``inferno``, range in the
+    mesh ``extras``) when the run has heating; otherwise the front node index (``tab20``).
+    Each facet gets its own three vertices so that colours stay per facet.
+    """
+    import trimesh
+
+    path = _mesh_target(path, ".glb")
+    if path.suffix == "":
+        path = path.with_suffix(".glb")
+    g = results.geometry
+    f = g.n_facets
+    if results.facet_average is not None:
+        values = np.asarray(results.facet_average["total"], float)
+        quantity, units, cmap = "time-averaged absorbed flux, all sources", "W m-2", "inferno"
+        vmin, vmax = float(values.min()), float(values.max())
+        rgba = _colours(values, vmin, vmax, cmap)
+    else:
+        values = g.front_node.astype(float)
+        quantity, units, cmap = "front node index", "1", "tab20"
+        vmin, vmax = 0.0, float(max(g.n_nodes - 1, 1))
+        from matplotlib import colormaps
+
+        rgba = (np.asarray(colormaps[cmap]((g.front_node % 20) / 19.0)) * 255).round().astype(
+            np.uint8)
+    vertices = np.asarray(g.vertices, float)[g.triangles.reshape(-1)]
+    faces = np.arange(3 * f, dtype=np.int64).reshape(f, 3)
+    mesh = trimesh.Trimesh(vertices=vertices, faces=faces, process=False,
+                           vertex_colors=np.repeat(rgba, 3, axis=0))
+    mesh.vertex_attributes["_VALUE"] = np.repeat(values.astype(np.float32), 3)
+    mesh.metadata.update({"quantity": quantity, "units": units, "colormap": cmap,
+                          "vmin": vmin, "vmax": vmax, "model": results.model_name})
+    try:
+        mesh.export(path, file_type="glb")
+    except OSError as exc:
+        raise ResultsFileError(f"{path}: cannot write glTF file: {exc}") from None
+    return path

@@ -1,0 +1,323 @@
+"""``vfactor plot``: PNG figures of a run, for reports.
+
+Figures (each function returns the file it wrote):
+
+- :func:`plot_heat_loads` — absorbed power per node along the orbit, stacked by source
+  (solar, albedo, planet IR), shadow shaded; one small panel per node (the nodes with the
+  largest time-averaged load first).
+- :func:`plot_absorbed_flux` — time-averaged absorbed flux painted on the geometry from
+  three viewpoints, with a colour bar in W m-2 (by node where the run has no orbit).
+- :func:`plot_couplings` — the exchange-area matrix (with space) as a heat map, log scale.
+- :func:`plot_orbit` — the orbit seen along its normal with the Sun direction and the
+  shadowed arc, and the beta angle and sun fraction along the orbit.
+
+Matplotlib is used through :class:`matplotlib.figure.Figure` and the Agg canvas only, so
+no display and no global pyplot state is involved.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from .errors import ArgumentError
+from .h5io import Results
+
+__all__ = ["SOURCE_COLOURS", "plot_all", "plot_heat_loads", "plot_absorbed_flux",
+           "plot_couplings", "plot_orbit"]
+
+SOURCE_COLOURS = {"solar": "#e3a23b", "albedo": "#7fb0d8", "planet_ir": "#b5524a"}
+_SOURCE_LABEL = {"solar": "direct solar", "albedo": "albedo", "planet_ir": "planet IR"}
+_SHADOW = "#38385a"
+_MAX_PANELS = 12
+_DPI = 110
+
+
+def _figure(width, height):
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(width, height), dpi=_DPI, layout="constrained")
+    return fig
+
+
+def _save(fig, path: Path) -> Path:
+    fig.savefig(path, dpi=_DPI)
+    return path
+
+
+def plot_all(results: Results, folder) -> list:
+    """Write every figure that the results support into ``folder`` (created if missing).
+
+    Returns
+    -------
+    list of pathlib.Path
+        ``absorbed_flux.png`` (or ``nodes.png`` without heating), ``couplings.png`` when
+        the run has exchange factors, and ``heat_loads.png`` and ``orbit.png`` when it has an
+        orbit.
+    """
+    folder = Path(folder)
+    if folder.exists() and not folder.is_dir():
+        raise ArgumentError(f"{folder}: plots need a folder, and this is a file")
+    folder.mkdir(parents=True, exist_ok=True)
+    out = []
+    if results.heating is not None:
+        out.append(plot_heat_loads(results, folder / "heat_loads.png"))
+        out.append(plot_absorbed_flux(results, folder / "absorbed_flux.png"))
+    else:
+        out.append(plot_absorbed_flux(results, folder / "nodes.png"))
+    if results.exchange is not None or results.view_factors is not None:
+        out.append(plot_couplings(results, folder / "couplings.png"))
+    if results.trajectory is not None:
+        out.append(plot_orbit(results, folder / "orbit.png"))
+    return out
+
+
+def _shadow_spans(ax, time_min, sun_fraction):
+    """Shade the steps in shadow: umbra dark, penumbra lighter (steps as intervals)."""
+    t = np.asarray(time_min)
+    if t.size < 2:
+        return
+    dt = np.append(np.diff(t), t[-1] - t[-2])
+    for k in range(t.size):
+        f = sun_fraction[k]
+        if f < 1.0:
+            ax.axvspan(t[k] - 0.5 * dt[k], t[k] + 0.5 * dt[k], color=_SHADOW,
+                       alpha=0.22 if f <= 0 else 0.10, lw=0)
+
+
+def plot_heat_loads(results: Results, path) -> Path:
+    """Absorbed power per node along the orbit, stacked by source, shadow shaded [W]."""
+    heat, tr = results.heating, results.trajectory
+    names = results.geometry.nodes.names
+    total = heat.node_solar + heat.node_albedo + heat.node_planet_ir
+    order = np.argsort(-total.mean(axis=0), kind="stable")[:_MAX_PANELS]
+    k = len(order)
+    cols = 1 if k == 1 else (2 if k <= 4 else 3)
+    rows = int(np.ceil(k / cols))
+    fig = _figure(4.2 * cols + 0.6, 2.3 * rows + 1.0)
+    t_min = tr.time / 60.0
+    axes = fig.subplots(rows, cols, squeeze=False, sharex=True)
+    for slot, ax in enumerate(axes.flat):
+        if slot >= k:
+            ax.set_visible(False)
+            continue
+        i = order[slot]
+        _shadow_spans(ax, t_min, tr.sun_fraction)
+        ax.stackplot(t_min, heat.node_solar[:, i], heat.node_albedo[:, i],
+                     heat.node_planet_ir[:, i],
+                     colors=[SOURCE_COLOURS[s] for s in ("solar", "albedo", "planet_ir")],
+                     labels=[_SOURCE_LABEL[s] for s in ("solar", "albedo", "planet_ir")],
+                     alpha=0.95, lw=0)
+        ax.plot(t_min, total[:, i], color="#222222", lw=0.8)
+        ax.set_title(f"{names[i]}   (average {total[:, i].mean():.3g} W)", fontsize=9, loc="left")
+        ax.set_xlim(t_min[0], t_min[-1])
+        ax.set_ylim(bottom=0)
+        ax.grid(alpha=0.25, lw=0.5)
+        ax.tick_params(labelsize=8)
+        if slot % cols == 0:
+            ax.set_ylabel("absorbed [W]", fontsize=8)
+        if slot >= k - cols:
+            ax.set_xlabel("time since epoch [min]", fontsize=8)
+    from matplotlib.patches import Patch
+
+    handles = [Patch(color=SOURCE_COLOURS[s], label=_SOURCE_LABEL[s])
+               for s in ("solar", "albedo", "planet_ir")]
+    handles += [Patch(color=_SHADOW, alpha=0.22, label="umbra"),
+                Patch(color=_SHADOW, alpha=0.10, label="penumbra")]
+    fig.legend(handles=handles, loc="outside lower center", ncols=5, fontsize=8, frameon=False)
+    more = "" if len(names) <= _MAX_PANELS else f" ({k} largest of {len(names)} nodes)"
+    fig.suptitle(f"{results.model_name}: absorbed environmental heat per node{more}, "
+                 f"case {heat.case}", fontsize=10)
+    return _save(fig, Path(path))
+
+
+def _paint(fig, axes_slots, geometry, values, cmap, norm, title, label, views):
+    from mpl_toolkits.mplot3d.art3d import Poly3DCollection
+
+    tri = geometry.vertices[geometry.triangles]
+    lo, hi = geometry.vertices.min(axis=0), geometry.vertices.max(axis=0)
+    centre, half = 0.5 * (lo + hi), 0.5 * float((hi - lo).max())
+    # light shading: darken facets that face away from a fixed light in the view
+    mappable = None
+    axes = []
+    for slot, (elev, azim, name) in zip(axes_slots, views):
+        ax = fig.add_subplot(slot, projection="3d")
+        axes.append(ax)
+        colours = cmap(norm(values))
+        view = np.array([np.cos(np.radians(elev)) * np.cos(np.radians(azim)),
+                         np.cos(np.radians(elev)) * np.sin(np.radians(azim)),
+                         np.sin(np.radians(elev))])
+        shade = 0.8 + 0.2 * np.abs(geometry.normals @ view)
+        colours[:, :3] *= shade[:, None]
+        poly = Poly3DCollection(tri, facecolors=colours, edgecolors=(0, 0, 0, 0.12),
+                                linewidths=0.15)
+        ax.add_collection3d(poly)
+        for setter, c in zip((ax.set_xlim, ax.set_ylim, ax.set_zlim), centre):
+            setter(c - half, c + half)
+        ax.set_box_aspect((1, 1, 1))
+        ax.view_init(elev=elev, azim=azim)
+        ax.set_title(name, fontsize=9)
+        ax.set_xlabel("x [m]", fontsize=7, labelpad=-8)
+        ax.set_ylabel("y [m]", fontsize=7, labelpad=-8)
+        ax.set_zlabel("z [m]", fontsize=7, labelpad=-8)
+        ax.tick_params(labelsize=6, pad=-3)
+        from matplotlib.cm import ScalarMappable
+
+        mappable = ScalarMappable(norm=norm, cmap=cmap)
+    return mappable, axes
+
+
+def _view_name(elev, azim) -> str:
+    """'from +x -y, above' for a matplotlib camera at (elev, azim) degrees."""
+    cx, cy = np.cos(np.radians(azim)), np.sin(np.radians(azim))
+    parts = []
+    for c, axis in ((cx, "x"), (cy, "y")):
+        if abs(c) > 0.3:
+            parts.append(("+" if c > 0 else "-") + axis)
+    return f"seen from {' '.join(parts)}, {'above' if elev > 0 else 'below'}"
+
+
+def plot_absorbed_flux(results: Results, path) -> Path:
+    """Time-averaged absorbed flux on the geometry from three viewpoints [W m-2].
+
+    Without heating the facets are coloured by their front node instead.
+    """
+    from matplotlib import colormaps
+    from matplotlib.colors import BoundaryNorm, Normalize
+
+    g = results.geometry
+    views = tuple((elev, azim, _view_name(elev, azim))
+                  for elev, azim in ((25, -60), (25, 120), (-35, 30)))
+    fig = _figure(13.0, 4.6)
+    if results.facet_average is not None:
+        values = np.asarray(results.facet_average["total"], float)
+        cmap = colormaps["inferno"]
+        norm = Normalize(vmin=float(values.min()), vmax=max(float(values.max()),
+                                                            float(values.min()) + 1e-9))
+        label = "time-averaged absorbed flux, all sources [W m-2]"
+        title = f"{results.model_name}: time-averaged absorbed flux (case {results.heating.case})"
+    else:
+        values = np.where(g.front_node >= 0, g.front_node, g.back_node).astype(float)
+        n = max(g.n_nodes, 1)
+        cmap = colormaps["tab20"].resampled(min(n, 20))
+        norm = BoundaryNorm(np.arange(-0.5, n + 0.5), cmap.N) if n <= 20 else Normalize(0, n - 1)
+        label = "node index (front side)"
+        title = f"{results.model_name}: nodes"
+    slots = (131, 132, 133)
+    mappable, axes = _paint(fig, slots, g, values, cmap, norm, title, label, views)
+    cb = fig.colorbar(mappable, ax=axes, shrink=0.75, pad=0.02)
+    cb.set_label(label, fontsize=9)
+    cb.ax.tick_params(labelsize=8)
+    if results.facet_average is None and g.n_nodes <= 20:
+        cb.set_ticks(np.arange(g.n_nodes))
+        cb.set_ticklabels(list(g.nodes.names), fontsize=7)
+    fig.suptitle(title, fontsize=10)
+    return _save(fig, Path(path))
+
+
+def plot_couplings(results: Results, path) -> Path:
+    """The exchange-area matrix eps_i A_i B_ij with a space column, log colour scale [m2].
+
+    Falls back to the view-factor matrix when the file has no exchange factors.
+    """
+    from matplotlib import colormaps
+    from matplotlib.colors import LogNorm
+
+    g = results.geometry
+    names = list(g.nodes.names) + ["space"]
+    if results.exchange is not None:
+        m = np.column_stack([results.exchange.area, results.exchange.area_space])
+        label = "exchange area eps_i A_i B_ij [m2]"
+        title = "infrared exchange areas (row = emitting node)"
+    else:
+        vf = results.view_factors
+        m = np.column_stack([vf.matrix, vf.space])
+        label = "view factor F_ij [1]"
+        title = "view factors (row = emitting node)"
+    n = m.shape[0]
+    positive = m[m > 0]
+    vmax = float(positive.max()) if positive.size else 1.0
+    vmin = max(float(positive.min()) if positive.size else vmax * 1e-6, vmax * 1e-6)
+    side = min(4.0 + 0.32 * n, 16.0)
+    fig = _figure(side + 2.0, side)
+    ax = fig.add_subplot(111)
+    cmap = colormaps["viridis"].with_extremes(under="#f2f2f2", bad="#f2f2f2")
+    img = ax.imshow(np.where(m > 0, m, np.nan), cmap=cmap, norm=LogNorm(vmin=vmin, vmax=vmax),
+                    interpolation="nearest", aspect="auto")
+    ax.axvline(n - 0.5, color="white", lw=2)
+    fs = 8 if n <= 25 else 6
+    if n <= 60:
+        ax.set_xticks(range(n + 1), names, rotation=70, ha="right", fontsize=fs)
+        ax.set_yticks(range(n), names[:-1], fontsize=fs)
+    ax.set_xlabel("receiving node", fontsize=9)
+    ax.set_ylabel("emitting node", fontsize=9)
+    cb = fig.colorbar(img, ax=ax, shrink=0.85)
+    cb.set_label(label, fontsize=9)
+    ax.set_title(f"{results.model_name}\n{title}; grey = zero", fontsize=10)
+    return _save(fig, Path(path))
+
+
+def plot_orbit(results: Results, path) -> Path:
+    """Orbit seen along its normal (Sun direction, shadowed arc) and beta / sun fraction."""
+    tr = results.trajectory
+    pos_km = tr.position / 1e3
+    vel = tr.velocity
+    h = np.cross(tr.position[0], vel[0])
+    h = h / np.linalg.norm(h)
+    e1 = tr.position[0] / np.linalg.norm(tr.position[0])
+    e2 = np.cross(h, e1)
+    x, y = pos_km @ e1, pos_km @ e2
+    sun = tr.sun_inertial[0]
+    sx, sy = float(sun @ e1), float(sun @ e2)
+    radius_m = results.orbit_attrs.get("planet_radius_m")
+    fig = _figure(11.5, 4.8)
+    gs = fig.add_gridspec(2, 2, width_ratios=(1.0, 1.35))
+    ax = fig.add_subplot(gs[:, 0])
+    r_orbit = float(np.max(np.hypot(x, y)))
+    if radius_m:
+        from matplotlib.patches import Circle
+
+        ax.add_patch(Circle((0, 0), float(radius_m) / 1e3, color="#9bb7d4", zorder=1))
+    lit = tr.sun_fraction >= 1.0
+    ax.plot(x, y, color="#bbbbbb", lw=1, zorder=2)
+    ax.scatter(x[lit], y[lit], s=10, color=SOURCE_COLOURS["solar"], label="sunlit", zorder=3)
+    ax.scatter(x[~lit], y[~lit], s=10, color=_SHADOW, label="shadow (umbra or penumbra)",
+               zorder=3)
+    ax.scatter([x[0]], [y[0]], s=40, marker="o", facecolors="none", edgecolors="k",
+               label="epoch", zorder=4)
+    norm_s = np.hypot(sx, sy)
+    if norm_s > 1e-6:
+        ax.annotate("", xy=(1.25 * r_orbit * sx / norm_s, 1.25 * r_orbit * sy / norm_s),
+                    xytext=(0, 0), arrowprops=dict(arrowstyle="->", color="#c07a10", lw=1.5))
+        ax.text(1.3 * r_orbit * sx / norm_s, 1.3 * r_orbit * sy / norm_s + 0.08 * r_orbit,
+                "to the Sun (projected)", color="#c07a10", fontsize=8, ha="center")
+    lim = 1.45 * r_orbit
+    ax.set_xlim(-lim, lim)
+    ax.set_ylim(-lim, lim)
+    ax.set_aspect("equal")
+    ax.set_xlabel("in-plane, toward the epoch position [km]", fontsize=8)
+    ax.set_ylabel("in-plane, along the motion [km]", fontsize=8)
+    ax.tick_params(labelsize=7)
+    ax.legend(fontsize=7, loc="lower left", frameon=False)
+    ax.set_title("orbit seen along its normal (first step)", fontsize=9)
+
+    t_min = tr.time / 60.0
+    ax1 = fig.add_subplot(gs[0, 1])
+    ax1.plot(t_min, np.degrees(tr.beta), color="#4a6fa5", lw=1.5)
+    ax1.set_ylabel("beta angle [deg]", fontsize=8)
+    ax1.grid(alpha=0.25, lw=0.5)
+    ax1.tick_params(labelsize=7)
+    ax1.set_title("beta angle and sun fraction along the orbit", fontsize=9)
+    ax2 = fig.add_subplot(gs[1, 1], sharex=ax1)
+    _shadow_spans(ax2, t_min, tr.sun_fraction)
+    ax2.step(t_min, tr.sun_fraction, where="mid", color="#222222", lw=1.2)
+    ax2.set_ylim(-0.05, 1.05)
+    ax2.set_ylabel("sun fraction [1]", fontsize=8)
+    ax2.set_xlabel("time since epoch [min]", fontsize=8)
+    ax2.grid(alpha=0.25, lw=0.5)
+    ax2.tick_params(labelsize=7)
+    ax1.set_xlim(t_min[0], t_min[-1])
+    fig.suptitle(f"{results.model_name}: orbit (period {tr.period / 60:.1f} min, "
+                 f"epoch {tr.epoch_utc})", fontsize=10)
+    return _save(fig, Path(path))

@@ -1,0 +1,361 @@
+"""``vfactor summary``: the results of a run as tables a thermal engineer reads.
+
+:func:`summarize` turns a :class:`vfactor.h5io.Results` into a plain dictionary (the
+``--json`` output); :func:`format_summary` lays the same numbers out as text: provenance,
+node table, strongest couplings with their statistical error, couplings to space, orbit
+facts, per-node heat loads, and the cautions that go with any such analysis.
+"""
+
+from __future__ import annotations
+
+import json
+import textwrap
+
+import numpy as np
+
+from .constants import STEFAN_BOLTZMANN
+from .h5io import Results, node_averages
+
+__all__ = ["CAUTIONS", "SIGNIFICANT_VIEW_FACTOR", "summarize", "format_summary", "to_json"]
+
+SIGNIFICANT_VIEW_FACTOR = 0.01
+"""View factors at or above this value count as significant when the summary reports the
+largest relative statistical error (a reporting threshold of our own)."""
+
+CAUTIONS = (
+    "Monte Carlo results carry statistical error; the one-sigma errors reported here are "
+    "estimates from the ray counts at the given seed. Check that they are small enough for "
+    "your use, or ask for more rays (--rays, [radiation] target_error).",
+    "The orbital environment is simplified: uniform planet infrared, a Lambertian planet of "
+    "uniform albedo, design-case constants. Real environments vary along the orbit.",
+    "Geometry is the triangulated model as given; check it with `vfactor check` and by eye.",
+    "These results feed design decisions for flight hardware: correlate the thermal model "
+    "with test, and have the analysis reviewed under the applicable project standards and "
+    "licensed engineering practice.",
+)
+
+_SOURCES = ("solar", "albedo", "planet_ir")
+_SOURCE_LABEL = {"solar": "solar", "albedo": "albedo", "planet_ir": "planet IR",
+                 "total": "total"}
+
+
+# ---------------------------------------------------------------------------------------
+# Numbers
+# ---------------------------------------------------------------------------------------
+def _orbit_facts(results: Results) -> dict | None:
+    """Period, beta range and eclipse shares and durations, resolved to the time step."""
+    tr = results.trajectory
+    if tr is None:
+        return None
+    t = np.asarray(tr.time, dtype=float)
+    frac = np.asarray(tr.sun_fraction, dtype=float)
+    step = float(np.median(np.diff(t))) if t.size > 1 else 0.0
+    w = np.append(np.diff(t), step) if t.size > 1 else np.ones(1)
+    shadow = frac < 1.0
+    umbra = frac <= 0.0
+
+    def longest(mask):
+        best = run = 0.0
+        for m, dt in zip(mask, w):
+            run = run + dt if m else 0.0
+            best = max(best, run)
+        return best
+
+    beta_deg = np.degrees(tr.beta)
+    return {
+        "epoch_utc": tr.epoch_utc,
+        "period_s": float(tr.period),
+        "steps": int(t.size),
+        "step_s": step,
+        "span_s": float(w.sum()),
+        "beta_min_deg": float(beta_deg.min()),
+        "beta_max_deg": float(beta_deg.max()),
+        "sunlit_share": float((frac * w).sum() / w.sum()),
+        "eclipse_share": float(w[shadow].sum() / w.sum()),
+        "umbra_share": float(w[umbra].sum() / w.sum()),
+        "longest_eclipse_s": longest(shadow),
+        "altitude_min_km": float((tr.planet_distance.min() - _planet_radius(results)) / 1e3)
+        if _planet_radius(results) else None,
+        "altitude_max_km": float((tr.planet_distance.max() - _planet_radius(results)) / 1e3)
+        if _planet_radius(results) else None,
+    }
+
+
+def _planet_radius(results: Results):
+    r = results.orbit_attrs.get("planet_radius_m")
+    return float(r) if r else None
+
+
+def summarize(results: Results, top: int = 15) -> dict:
+    """All summary numbers as a JSON-ready dictionary.
+
+    Parameters
+    ----------
+    results : vfactor.h5io.Results
+    top : int
+        Number of strongest node-pair couplings to list.
+
+    Returns
+    -------
+    dict
+        Keys ``provenance``, ``nodes``, ``couplings``, ``space``, ``accuracy``, ``orbit``,
+        ``heat_loads`` (``None`` where the run has no such stage) and ``cautions``.
+        Units are in the key names (``_m2``, ``_W``, ``_W_K4``, ``_s``, ``_deg``).
+    """
+    g = results.geometry
+    nodes = g.nodes
+    n = len(nodes)
+    a = results.attrs
+    prov = {
+        "file": str(results.path),
+        "vfactor_version": a.get("vfactor_version"),
+        "created_utc": a.get("created_utc"),
+        "model_name": results.model_name,
+        "model_sha256": a.get("model_sha256"),
+        "seed": results.seed,
+        "rays_per_node": results.rays_per_node,
+        "workers": a.get("workers"),
+        "elapsed_s": results.elapsed_s,
+        "facets": g.n_facets,
+        "nodes": n,
+    }
+    node_rows = []
+    for i in range(n):
+        node_rows.append({
+            "name": nodes.names[i], "coating": nodes.coating[i],
+            "area_m2": float(nodes.area[i]),
+            "solar_absorptivity": float(nodes.solar_absorptivity[i]),
+            "ir_emissivity": float(nodes.ir_emissivity[i]),
+            "facets": int(nodes.facet_count[i]),
+        })
+
+    vf, ex = results.view_factors, results.exchange
+    couplings = space = accuracy = None
+    if vf is not None:
+        eps_area = nodes.ir_emissivity * nodes.area
+        pairs = []
+        for i in range(n):
+            for j in range(i + 1, n):
+                area_ij = float(ex.area[i, j]) if ex is not None else None
+                key = area_ij if area_ij is not None else float(vf.matrix[i, j] * eps_area[i])
+                if key <= 0 and vf.matrix[i, j] <= 0:
+                    continue
+                row = {"from": nodes.names[i], "to": nodes.names[j],
+                       "view_factor": float(vf.matrix[i, j]),
+                       "view_factor_stderr": float(vf.stderr[i, j]),
+                       "view_factor_back": float(vf.matrix[j, i]),
+                       "_key": key}
+                if ex is not None:
+                    row["gebhart"] = float(ex.gebhart[i, j])
+                    row["exchange_area_m2"] = area_ij
+                    row["conductance_W_K4"] = STEFAN_BOLTZMANN * area_ij
+                    if ex.stderr is not None:
+                        err = float(eps_area[i] * ex.stderr[i, j])
+                        row["error_basis"] = "gebhart"
+                    elif vf.matrix[i, j] > 0:
+                        err = area_ij * float(vf.stderr[i, j] / vf.matrix[i, j])
+                        row["error_basis"] = "view factor (relative error carried over)"
+                    else:
+                        err = None
+                        row["error_basis"] = None
+                    row["exchange_area_stderr_m2"] = err
+                pairs.append(row)
+        pairs.sort(key=lambda r: -r["_key"])
+        for r in pairs:
+            del r["_key"]
+        couplings = {"pairs_total": len(pairs), "shown": min(top, len(pairs)),
+                     "strongest": pairs[:top]}
+        space = []
+        for i in range(n):
+            row = {"node": nodes.names[i], "view_factor": float(vf.space[i]),
+                   "view_factor_stderr": float(vf.stderr_space[i]),
+                   "inert": float(vf.inert[i]), "rays": int(vf.rays[i])}
+            if ex is not None:
+                row["gebhart"] = float(ex.gebhart_space[i])
+                row["exchange_area_m2"] = float(ex.area_space[i])
+                row["conductance_W_K4"] = float(STEFAN_BOLTZMANN * ex.area_space[i])
+            space.append(row)
+        sig = vf.raw_matrix >= SIGNIFICANT_VIEW_FACTOR
+        rel = np.where(sig, vf.stderr / np.where(sig, vf.raw_matrix, 1.0), 0.0)
+        accuracy = {
+            "largest_stderr": float(vf.stderr.max()) if vf.stderr.size else 0.0,
+            "significant_threshold": SIGNIFICANT_VIEW_FACTOR,
+            "largest_relative_stderr_significant": float(rel.max()) if rel.size else 0.0,
+            "smoothing_method": vf.method,
+            "largest_adjustment_sigma": float(vf.adjustment_sigma),
+            "target_error": vf.target_error,
+            "converged": bool(vf.converged),
+            "exchange_method": None if ex is None else ex.method,
+        }
+
+    heat = results.heating
+    loads = None
+    if heat is not None:
+        time = results.trajectory.time
+        loads = []
+        for i in range(n):
+            row = {"node": nodes.names[i]}
+            total = np.zeros(len(time))
+            for src in _SOURCES:
+                q = getattr(heat, f"node_{src}")[:, i]
+                total = total + q
+                row[src] = _stats(q, time)
+            row["total"] = _stats(total, time)
+            loads.append(row)
+        loads = {"case": heat.case, "albedo": float(heat.albedo),
+                 "planet_ir_W_m2": float(heat.planet_ir),
+                 "solar_constant_W_m2": [float(heat.solar_constant.min()),
+                                         float(heat.solar_constant.max())],
+                 "nodes": loads}
+
+    return {"provenance": prov, "nodes": node_rows, "couplings": couplings, "space": space,
+            "accuracy": accuracy, "orbit": _orbit_facts(results), "heat_loads": loads,
+            "cautions": list(CAUTIONS)}
+
+
+def _stats(q: np.ndarray, time: np.ndarray) -> dict:
+    return {"average_W": float(node_averages(q[:, None], time)[0]),
+            "min_W": float(q.min()), "max_W": float(q.max())}
+
+
+def to_json(summary: dict) -> str:
+    """The summary as indented JSON text."""
+    return json.dumps(summary, indent=2, allow_nan=False)
+
+
+# ---------------------------------------------------------------------------------------
+# Text
+# ---------------------------------------------------------------------------------------
+def _table(header, rows, align=None) -> list:
+    cells = [[str(h) for h in header]] + [[str(c) for c in r] for r in rows]
+    widths = [max(len(r[k]) for r in cells) for k in range(len(header))]
+    align = align or ["<"] + [">"] * (len(header) - 1)
+    out = []
+    for idx, r in enumerate(cells):
+        out.append("  " + "  ".join(f"{c:{al}{w}}" for c, w, al in zip(r, widths, align)))
+        if idx == 0:
+            out.append("  " + "  ".join("-" * w for w in widths))
+    return out
+
+
+def _g(x, digits=4) -> str:
+    if x is None:
+        return "-"
+    if x == 0:
+        return "0"
+    return f"{x:.{digits}g}"
+
+
+def _hms(seconds) -> str:
+    if seconds is None:
+        return "-"
+    s = float(seconds)
+    if s < 60:
+        return f"{s:.1f} s"
+    m, s = divmod(s, 60)
+    if m < 60:
+        return f"{int(m)} min {s:04.1f} s"
+    h, m = divmod(m, 60)
+    return f"{int(h)} h {int(m):02d} min"
+
+
+def format_summary(results: Results, top: int = 15) -> str:
+    """The summary as text (what ``vfactor summary`` prints)."""
+    s = summarize(results, top=top)
+    p = s["provenance"]
+    lines = [f"vfactor results: {p['file']}", ""]
+    lines.append("Run")
+    el = p["elapsed_s"] or {}
+    run_rows = [
+        ("model", p["model_name"]),
+        ("model sha256", p["model_sha256"]),
+        ("vfactor version", p["vfactor_version"]),
+        ("created (UTC)", p["created_utc"]),
+        ("seed", p["seed"]),
+        ("rays per node", f"{p['rays_per_node']:,}"),
+        ("nodes / facets", f"{p['nodes']} / {p['facets']}"),
+    ]
+    if p.get("workers"):
+        run_rows.append(("workers", p["workers"]))
+    for stage, sec in el.items():
+        run_rows.append((f"time: {stage.replace('_', ' ')}", _hms(sec)))
+    lines += [f"  {k:<22}{v}" for k, v in run_rows]
+
+    lines += ["", "Nodes"]
+    lines += _table(["node", "coating", "area [m2]", "alpha", "eps", "facets"],
+                    [(r["name"], r["coating"], _g(r["area_m2"]), f"{r['solar_absorptivity']:.3f}",
+                      f"{r['ir_emissivity']:.3f}", r["facets"]) for r in s["nodes"]],
+                    ["<", "<", ">", ">", ">", ">"])
+
+    if s["couplings"] is not None:
+        c = s["couplings"]
+        lines += ["", f"Strongest couplings ({c['shown']} of {c['pairs_total']} node pairs, "
+                      "infrared band; +- is one sigma)"]
+        rows = []
+        for r in c["strongest"]:
+            rows.append((f"{r['from']} -> {r['to']}",
+                         f"{r['view_factor']:.4f} +- {r['view_factor_stderr']:.1e}",
+                         _g(r.get("gebhart")),
+                         _g(r.get("exchange_area_m2")) + (
+                             f" +- {r['exchange_area_stderr_m2']:.1e}"
+                             if r.get("exchange_area_stderr_m2") is not None else ""),
+                         _g(r.get("conductance_W_K4"))))
+        lines += _table(["pair", "view factor", "Gebhart", "exch. area [m2]",
+                         "conductance [W K-4]"], rows)
+        lines += ["", "Couplings to deep space"]
+        lines += _table(["node", "view factor", "to inert", "Gebhart", "exch. area [m2]",
+                         "conductance [W K-4]", "rays"],
+                        [(r["node"], f"{r['view_factor']:.4f} +- {r['view_factor_stderr']:.1e}",
+                          f"{r['inert']:.4f}", _g(r.get("gebhart")),
+                          _g(r.get("exchange_area_m2")), _g(r.get("conductance_W_K4")),
+                          f"{r['rays']:,}") for r in s["space"]])
+        acc = s["accuracy"]
+        lines += ["", "Accuracy"]
+        lines.append(f"  largest one-sigma error of any view factor: {acc['largest_stderr']:.2e}")
+        lines.append(f"  largest relative one-sigma error of view factors >= "
+                     f"{acc['significant_threshold']}: "
+                     f"{100 * acc['largest_relative_stderr_significant']:.2f} %")
+        lines.append(f"  smoothing: {acc['smoothing_method']}; largest adjustment "
+                     f"{acc['largest_adjustment_sigma']:.2f} sigma")
+        if acc["target_error"] is not None:
+            lines.append(f"  target error {acc['target_error']:g}: "
+                         f"{'reached' if acc['converged'] else 'NOT reached (ray budget spent)'}")
+        if acc["exchange_method"]:
+            lines.append(f"  Gebhart factors by: {acc['exchange_method']}")
+
+    o = s["orbit"]
+    if o is not None:
+        lines += ["", "Orbit"]
+        rows = [("epoch (UTC)", o["epoch_utc"]),
+                ("period", f"{o['period_s'] / 60:.2f} min"),
+                ("steps", f"{o['steps']} of {o['step_s']:.1f} s, "
+                          f"{o['span_s'] / o['period_s']:.2f} orbits"),
+                ("beta angle", f"{o['beta_min_deg']:.2f} .. {o['beta_max_deg']:.2f} deg")]
+        if o.get("altitude_min_km") is not None:
+            rows.append(("altitude", f"{o['altitude_min_km']:.1f} .. "
+                                     f"{o['altitude_max_km']:.1f} km"))
+        rows += [("in shadow (any)", f"{100 * o['eclipse_share']:.1f} % of the time"),
+                 ("in umbra", f"{100 * o['umbra_share']:.1f} % of the time"),
+                 ("longest shadow", f"{o['longest_eclipse_s'] / 60:.1f} min "
+                                    f"(resolved to the {o['step_s']:.0f} s step)")]
+        lines += [f"  {k:<22}{v}" for k, v in rows]
+
+    h = s["heat_loads"]
+    if h is not None:
+        lines += ["", f"Absorbed heat loads per node [W] (environment case {h['case']}: "
+                      f"solar {_g(h['solar_constant_W_m2'][0])}..{_g(h['solar_constant_W_m2'][1])}"
+                      f" W m-2, albedo {h['albedo']:g}, planet IR {h['planet_ir_W_m2']:g} W m-2)"]
+        header = ["node"] + [f"{_SOURCE_LABEL[src]}: avg [min, max]"
+                             for src in _SOURCES + ("total",)]
+        rows = []
+        for r in h["nodes"]:
+            rows.append([r["node"]] + [
+                f"{_g(r[src]['average_W'])} [{_g(r[src]['min_W'])}, {_g(r[src]['max_W'])}]"
+                for src in _SOURCES + ("total",)])
+        lines += _table(header, rows)
+        lines.append("  avg = time average over the steps; reflections inside the vehicle included")
+
+    lines += ["", "Cautions"]
+    for c in CAUTIONS:
+        lines += textwrap.wrap(c, width=92, initial_indent="  - ", subsequent_indent="    ")
+    return "\n".join(lines) + "\n"
