@@ -1,0 +1,423 @@
+"""``vfactor check``: validate a model file and its geometry, listing every problem found.
+
+:func:`check_model` never raises for bad input: every problem becomes a
+:class:`vfactor.errors.Problem` (one line each). Errors make the model unusable (the
+command exits 2); warnings flag what is merely suspicious (exit 0).
+
+Errors
+------
+* from the loader (:mod:`vfactor.model`): invalid TOML, unknown sections or keys, missing
+  keys, unknown coatings, properties outside [0, 1], unknown shapes, bad values;
+* from the geometry (:mod:`vfactor.geometry`): missing, unreadable or empty mesh files,
+  non-finite coordinates, one node name given two different coatings;
+* zero-area or degenerate facets (height below 1e-9 of the longest edge);
+* a closed part whose normals point inward (negative signed volume);
+* coincident overlapping facets of different parts (coplanar within the tolerance and
+  overlapping with a width above the tolerance);
+* parts that intersect each other: an edge of a facet of one part crosses the interior of
+  a facet of another part, with both edge ends farther than the tolerance from the plane
+  and the crossing point farther than the tolerance from the facet's edges;
+* a node with no facets or no area.
+
+Warnings
+--------
+* a part with no active side (it only casts shadows);
+* a curved part whose facet area differs from the exact area by more than 1 %;
+* a mesh declared ``closed = true`` that is not watertight;
+* a closed part whose back (inner) side is active;
+* a very thin closed part (mean thickness 2 V / A below 0.5 % of its size).
+
+Tolerance
+---------
+``tol = 1e-6 * D`` where D is the diagonal of the bounding box of the whole model (1 µm
+for a 1 m vehicle): far above the rounding of float64 coordinates (~1e-16 D) and below any
+gap a designer would model on purpose. Parts that touch (a boom standing on a face, two
+panels meeting along an edge) are within the tolerance and are not intersections; only
+proper interpenetration is.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from vfactor.errors import Problem
+from vfactor.geometry import Geometry, build_geometry
+from vfactor.model import Model, load_model
+from vfactor.shapes import CURVED_SHAPES, exact_area, mesh_is_watertight
+
+__all__ = ["CheckReport", "AreaDifference", "check_model", "check_geometry",
+           "format_check_report", "RELATIVE_TOLERANCE", "AREA_WARNING"]
+
+RELATIVE_TOLERANCE = 1e-6
+"""Geometric tolerance as a fraction of the model's bounding-box diagonal."""
+AREA_WARNING = 0.01
+"""Relative tessellated-minus-exact area above which a curved part gets a warning."""
+DEGENERATE_RATIO = 1e-9
+"""A facet whose height is below this fraction of its longest edge is degenerate."""
+THIN_RATIO = 0.005
+"""A closed part whose mean thickness 2 V / A is below this fraction of its bounding-box
+diagonal is reported as very thin."""
+_MAX_EXAMPLES = 5
+
+
+@dataclass(frozen=True)
+class AreaDifference:
+    """Tessellated against exact area of one curved part [m2]."""
+
+    part: str
+    shape: str
+    facets: int
+    tessellated: float
+    exact: float
+
+    @property
+    def relative(self) -> float:
+        """(tessellated - exact) / exact [1]."""
+        return (self.tessellated - self.exact) / self.exact
+
+
+@dataclass
+class CheckReport:
+    """Outcome of :func:`check_model`.
+
+    Attributes
+    ----------
+    path : str — the model file
+    model : Model or None — None when the file could not be read at all
+    geometry : Geometry or None
+    problems : list of Problem
+    area_differences : list of AreaDifference — curved parts only
+    tolerance : float — geometric tolerance used [m]
+    """
+
+    path: str
+    model: Model | None
+    geometry: Geometry | None
+    problems: list = field(default_factory=list)
+    area_differences: list = field(default_factory=list)
+    tolerance: float = 0.0
+
+    @property
+    def ok(self) -> bool:
+        """True when no problem has severity ``error``."""
+        return not any(p.severity == "error" for p in self.problems)
+
+    @property
+    def errors(self) -> list:
+        return [p for p in self.problems if p.severity == "error"]
+
+    @property
+    def warnings(self) -> list:
+        return [p for p in self.problems if p.severity == "warning"]
+
+
+def check_model(path) -> CheckReport:
+    """Load, tessellate and check a model file; collect every problem found.
+
+    Parameters
+    ----------
+    path : str or os.PathLike — the TOML model file
+
+    Returns
+    -------
+    CheckReport (never raises for bad input)
+    """
+    file = str(path)
+    problems: list = []
+    model = load_model(path, problems=problems)
+    report = CheckReport(path=file, model=model, geometry=None, problems=problems)
+    if model is None:
+        return report
+    geometry = build_geometry(model, problems=problems)
+    report.geometry = geometry
+    check_geometry(model, geometry, report)
+    return report
+
+
+def check_geometry(model: Model, geometry: Geometry, report: CheckReport) -> None:
+    """Run the geometric checks on a built geometry, appending to ``report``."""
+    file = model.path
+    add = report.problems.append
+    g = geometry
+    if g.n_facets == 0:
+        if model.parts:
+            add(Problem("error", file, "", "the model has no facets"))
+        return
+    lo, hi = g.vertices.min(axis=0), g.vertices.max(axis=0)
+    diag = float(np.linalg.norm(hi - lo))
+    tol = RELATIVE_TOLERANCE * diag if diag > 0 else 1e-12
+    report.tolerance = tol
+
+    parts = {p.name: p for p in model.parts}
+    v = g.vertices[g.triangles]
+    edges = np.stack([v[:, 1] - v[:, 0], v[:, 2] - v[:, 1], v[:, 0] - v[:, 2]], axis=1)
+    longest = np.sqrt((edges ** 2).sum(axis=2)).max(axis=1)
+    degenerate = (g.areas <= 0.0) | (2.0 * g.areas <= DEGENERATE_RATIO * longest ** 2)
+
+    for k, pname in enumerate(g.part_names):
+        part = parts[pname]
+        sel = np.flatnonzero(g.part == k)
+        bad = sel[degenerate[sel]]
+        if len(bad):
+            add(Problem("error", file, part.where,
+                        f"{len(bad)} zero-area or degenerate facets (facets "
+                        f"{_examples(bad)}); fix the mesh or the shape parameters",
+                        tuple(int(i) for i in bad)))
+        good = sel[~degenerate[sel]]
+        closed = g.part_closed[k] if k < len(g.part_closed) else False
+        if part.shape == "mesh" and part.parameters.get("closed") is True and len(sel):
+            local_tris = g.triangles[sel]
+            if not mesh_is_watertight(g.vertices, local_tris):
+                add(Problem("warning", file, part.where,
+                            f"declared closed but mesh file "
+                            f"{part.parameters.get('file_as_written')!r} is not watertight"))
+        if closed and len(good):
+            c = g.centroids[good].mean(axis=0)
+            pv = g.vertices[g.triangles[good]] - c
+            volume = float(np.einsum("ij,ij->i", pv[:, 0], np.cross(pv[:, 1], pv[:, 2])).sum()
+                           / 6.0)
+            area = float(g.areas[good].sum())
+            pdiag = float(np.linalg.norm(np.ptp(g.vertices[g.triangles[sel]].reshape(-1, 3), axis=0)))
+            if volume < 0.0:
+                add(Problem("error", file, part.where,
+                            f"closed part with inward-pointing normals (signed volume "
+                            f"{volume:.4g} m3 < 0); reverse the facet winding of the mesh"))
+            elif area > 0.0 and 2.0 * volume / area < THIN_RATIO * pdiag:
+                add(Problem("warning", file, part.where,
+                            f"very thin closed part (mean thickness {2 * volume / area:.3g} "
+                            f"m for a size of {pdiag:.3g} m); a rectangle with a front and a "
+                            f"back side is more robust"))
+            if part.back is not None:
+                add(Problem("warning", file, part.where,
+                            "closed part with an active back side: its inside sees only "
+                            "itself"))
+        if part.shape in CURVED_SHAPES and len(sel):
+            exact = exact_area(part)
+            diff = AreaDifference(pname, part.shape, len(sel), float(g.areas[sel].sum()),
+                                  exact)
+            report.area_differences.append(diff)
+            if abs(diff.relative) > AREA_WARNING:
+                add(Problem("warning", file, part.where,
+                            f"facet area {diff.tessellated:.5g} m2 differs from the exact "
+                            f"{diff.exact:.5g} m2 by {100 * diff.relative:+.2f} %; use a "
+                            f"smaller max_edge or more segments"))
+
+    for i, name in enumerate(g.nodes.names):
+        if g.nodes.facet_count[i] == 0 or g.nodes.area[i] <= 0.0:
+            add(Problem("error", file, f"node {name!r}",
+                        f"node has no facets or no area ({int(g.nodes.facet_count[i])} "
+                        f"facets, {g.nodes.area[i]:.3g} m2)"))
+
+    _check_contacts(model, g, ~degenerate, tol, report)
+
+
+def _examples(indices) -> str:
+    shown = ", ".join(str(int(i)) for i in indices[:_MAX_EXAMPLES])
+    return shown + (", ..." if len(indices) > _MAX_EXAMPLES else "")
+
+
+# --------------------------------------------------------------------------------------
+# Contacts between parts: coincident facets and intersections
+# --------------------------------------------------------------------------------------
+
+def _candidate_pairs(box_lo, box_hi, ia, ib, tol, chunk=2048):
+    """Facet pairs (a in ia, b in ib) whose bounding boxes overlap (grown by tol)."""
+    out_a, out_b = [], []
+    lo_b, hi_b = box_lo[ib], box_hi[ib]
+    order = np.argsort(lo_b[:, 0], kind="stable")
+    lo_b, hi_b, ib_sorted = lo_b[order], hi_b[order], ib[order]
+    for s in range(0, len(ia), chunk):
+        a = ia[s:s + chunk]
+        la, ha = box_lo[a], box_hi[a]
+        # sweep along x: b must start before a ends
+        end = np.searchsorted(lo_b[:, 0], ha[:, 0].max() + tol, side="right")
+        if end == 0:
+            continue
+        lb, hb = lo_b[:end], hi_b[:end]
+        ov = np.ones((len(a), end), bool)
+        for d in range(3):
+            ov &= (la[:, d, None] <= hb[None, :, d] + tol)
+            ov &= (lb[None, :, d] <= ha[:, d, None] + tol)
+        r, c = np.nonzero(ov)
+        out_a.append(a[r])
+        out_b.append(ib_sorted[c])
+    if not out_a:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64)
+    return np.concatenate(out_a), np.concatenate(out_b)
+
+
+def _edge_crossings(P, Q, T, n, tol):
+    """Which segments P->Q (m,3) cross the interior of triangles T (m,3,3), normals n.
+
+    Both ends must lie farther than ``tol`` on opposite sides of the triangle's plane and
+    the crossing point farther than ``tol`` inside every edge of the triangle.
+    """
+    dp = np.einsum("ij,ij->i", P - T[:, 0], n)
+    dq = np.einsum("ij,ij->i", Q - T[:, 0], n)
+    cross = ((dp > tol) & (dq < -tol)) | ((dp < -tol) & (dq > tol))
+    if not cross.any():
+        return cross
+    idx = np.flatnonzero(cross)
+    t = dp[idx] / (dp[idx] - dq[idx])
+    X = P[idx] + t[:, None] * (Q[idx] - P[idx])
+    Ti, ni = T[idx], n[idx]
+    inside = np.ones(len(idx), bool)
+    for k in range(3):
+        a, b = Ti[:, k], Ti[:, (k + 1) % 3]
+        e = b - a
+        elen = np.linalg.norm(e, axis=1)
+        d = np.einsum("ij,ij->i", np.cross(e, X - a), ni) / elen
+        inside &= d > tol
+    out = np.zeros_like(cross)
+    out[idx[inside]] = True
+    return out
+
+
+def _coplanar_overlap(A, B, n, tol):
+    """Coplanar triangle pairs that overlap by more than ``tol`` (separating axis test).
+
+    A, B : (m, 3, 3) triangles in (nearly) the same plane with unit normal n (m, 3).
+    The axes are the in-plane normals of the six edges; two convex polygons are disjoint
+    iff one of them separates them (separating axis theorem, e.g. Ericson, Real-Time
+    Collision Detection, 2005, section 5.2.1). Overlap below ``tol`` counts as touching.
+    """
+    overlap = np.ones(len(A), bool)
+    for tri in (A, B):
+        for k in range(3):
+            e = tri[:, (k + 1) % 3] - tri[:, k]
+            axis = np.cross(e, n)
+            axis /= np.maximum(np.linalg.norm(axis, axis=1), 1e-300)[:, None]
+            pa = np.einsum("ijk,ik->ij", A, axis)
+            pb = np.einsum("ijk,ik->ij", B, axis)
+            depth = np.minimum(pa.max(1), pb.max(1)) - np.maximum(pa.min(1), pb.min(1))
+            overlap &= depth > tol
+    return overlap
+
+
+def _check_contacts(model: Model, g: Geometry, usable, tol, report: CheckReport) -> None:
+    file = model.path
+    v = g.vertices[g.triangles]
+    box_lo, box_hi = v.min(axis=1), v.max(axis=1)
+    nparts = len(g.part_names)
+    facets_of = [np.flatnonzero((g.part == k) & usable) for k in range(nparts)]
+    part_lo = [box_lo[f].min(0) if len(f) else None for f in facets_of]
+    part_hi = [box_hi[f].max(0) if len(f) else None for f in facets_of]
+    for i in range(nparts):
+        for j in range(i + 1, nparts):
+            if part_lo[i] is None or part_lo[j] is None:
+                continue
+            lo = np.maximum(part_lo[i], part_lo[j]) - tol
+            hi = np.minimum(part_hi[i], part_hi[j]) + tol
+            if (lo > hi).any():
+                continue
+            fi, fj = facets_of[i], facets_of[j]
+            fi = fi[((box_hi[fi] >= lo) & (box_lo[fi] <= hi)).all(axis=1)]
+            fj = fj[((box_hi[fj] >= lo) & (box_lo[fj] <= hi)).all(axis=1)]
+            if not len(fi) or not len(fj):
+                continue
+            a, b = _candidate_pairs(box_lo, box_hi, fi, fj, tol)
+            if not len(a):
+                continue
+            na, nb = g.normals[a], g.normals[b]
+            A, B = v[a], v[b]
+            dist_b = np.abs(np.einsum("ijk,ik->ij", B - A[:, :1], na)).max(axis=1)
+            dist_a = np.abs(np.einsum("ijk,ik->ij", A - B[:, :1], nb)).max(axis=1)
+            coplanar = (np.abs((na * nb).sum(1)) > 1.0 - 1e-9) | \
+                ((dist_b <= tol) & (dist_a <= tol))
+            where = f"parts {g.part_names[i]!r} and {g.part_names[j]!r}"
+            cp = np.flatnonzero(coplanar & (dist_b <= tol))
+            if len(cp):
+                ov = _coplanar_overlap(A[cp], B[cp], na[cp], tol)
+                hits = cp[ov]
+                if len(hits):
+                    k0 = hits[0]
+                    add_facets = tuple(sorted(set(a[hits].tolist()) | set(b[hits].tolist())))
+                    report.problems.append(Problem(
+                        "error", file, where,
+                        f"{len(hits)} pairs of coincident overlapping facets (e.g. facets "
+                        f"{int(a[k0])} and {int(b[k0])} near "
+                        f"{_point(g.centroids[a[k0]])} m); Monte Carlo results are "
+                        f"meaningless there: leave a gap or remove one of the faces",
+                        add_facets))
+            nc = ~coplanar
+            if not nc.any():
+                continue
+            idx = np.flatnonzero(nc)
+            Ai, Bi, nai, nbi = A[idx], B[idx], na[idx], nb[idx]
+            hit = np.zeros(len(idx), bool)
+            for k in range(3):
+                hit |= _edge_crossings(Ai[:, k], Ai[:, (k + 1) % 3], Bi, nbi, tol)
+                hit |= _edge_crossings(Bi[:, k], Bi[:, (k + 1) % 3], Ai, nai, tol)
+            if hit.any():
+                hits = idx[hit]
+                k0 = hits[0]
+                report.problems.append(Problem(
+                    "error", file, where,
+                    f"parts intersect: {len(hits)} facet pairs cross each other (e.g. "
+                    f"facets {int(a[k0])} and {int(b[k0])} near "
+                    f"{_point(g.centroids[a[k0]])} m); move the parts apart or let them "
+                    f"only touch",
+                    tuple(sorted(set(a[hits].tolist()) | set(b[hits].tolist())))))
+
+
+def _point(p) -> str:
+    return "(" + ", ".join(f"{x:.4g}" for x in p) + ")"
+
+
+# --------------------------------------------------------------------------------------
+# Text report
+# --------------------------------------------------------------------------------------
+
+def format_check_report(report: CheckReport) -> str:
+    """The text ``vfactor check`` prints: node table, curved-part areas, problems, verdict.
+
+    Parameters
+    ----------
+    report : CheckReport
+
+    Returns
+    -------
+    str (no trailing newline)
+    """
+    lines = []
+    m, g = report.model, report.geometry
+    if m is not None:
+        lines.append(f"model {m.name!r} ({report.path}), length unit {m.length_unit}")
+    else:
+        lines.append(f"model {report.path}: not readable")
+    if g is not None:
+        total = float(g.areas.sum())
+        lines.append(f"{len(g.part_names)} parts, {g.n_facets} facets, {g.n_nodes} nodes, "
+                     f"facet area {total:.4g} m2 (one side)")
+        if g.n_nodes:
+            w = max(4, max(len(n) for n in g.nodes.names))
+            lines.append("")
+            lines.append(f"{'node':<{w}}  {'facets':>7}  {'area m2':>10}  "
+                         f"{'solar abs':>9}  {'IR emis':>7}  coating")
+            for k, name in enumerate(g.nodes.names):
+                lines.append(
+                    f"{name:<{w}}  {int(g.nodes.facet_count[k]):>7d}  "
+                    f"{g.nodes.area[k]:>10.5f}  {g.nodes.solar_absorptivity[k]:>9.3f}  "
+                    f"{g.nodes.ir_emissivity[k]:>7.3f}  {g.nodes.coating[k]}")
+    if report.area_differences:
+        w = max(len("curved part"), max(len(d.part) for d in report.area_differences))
+        lines.append("")
+        lines.append(f"{'curved part':<{w}}  {'shape':<8}  {'facets':>7}  "
+                     f"{'facet m2':>10}  {'exact m2':>10}  {'difference':>10}")
+        for d in report.area_differences:
+            lines.append(f"{d.part:<{w}}  {d.shape:<8}  {d.facets:>7d}  "
+                         f"{d.tessellated:>10.5f}  {d.exact:>10.5f}  "
+                         f"{100 * d.relative:>+9.3f}%")
+    if report.problems:
+        lines.append("")
+        for p in report.problems:
+            lines.append(p.line())
+    lines.append("")
+    n_err, n_warn = len(report.errors), len(report.warnings)
+    if n_err:
+        lines.append(f"FAILED: {n_err} error(s), {n_warn} warning(s) in {report.path}")
+    else:
+        lines.append(f"OK: no errors, {n_warn} warning(s) in {report.path}")
+    return "\n".join(lines)
