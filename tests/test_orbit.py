@@ -1,0 +1,202 @@
+"""Tests of vfactor.orbit against published values and independent computations."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from vfactor import ephemeris
+from vfactor.constants import EARTH_EQUATORIAL_RADIUS_M, EARTH_GM_M3_S2
+from vfactor.errors import ModelError
+from vfactor.orbit import (
+    j2_secular_rates,
+    local_time_of_node,
+    orbit_from_table,
+    solve_kepler,
+    sun_synchronous_inclination,
+)
+
+EPOCH = "2027-03-21T00:00:00Z"
+
+
+def circular(**extra):
+    table = {"type": "circular", "altitude_km": 400.0, "inclination_deg": 51.6,
+             "epoch": EPOCH}
+    table.update(extra)
+    return orbit_from_table(table, file="model.toml")
+
+
+def test_period_kepler_third_law_and_leo_rule_of_thumb():
+    orbit = circular()
+    a = EARTH_EQUATORIAL_RADIUS_M + 400e3
+    # Kepler's third law T = 2 pi sqrt(a^3 / GM) (e.g. Vallado 2013, eq. 1-27)
+    assert orbit.period == pytest.approx(2 * math.pi * math.sqrt(a ** 3 / EARTH_GM_M3_S2),
+                                         rel=1e-12)
+    # common practice: a ~400 km low Earth orbit takes about 92.4-92.6 minutes
+    assert abs(orbit.period / 60.0 - 92.5) < 0.3  # minutes
+
+
+def test_propagation_closes_after_one_period_and_keeps_circular_speed():
+    orbit = circular(steps_per_orbit=36)
+    t = np.array([0.0, orbit.period, 3 * orbit.period])
+    position, velocity = orbit.propagate(t)
+    # closure of the two-body orbit after whole periods (independent of the period formula
+    # only through Kepler's equation): within 1 mm
+    assert np.max(np.abs(position[1:] - position[0])) < 1e-3
+    r = np.linalg.norm(position, axis=1)
+    v = np.linalg.norm(velocity, axis=1)
+    # vis-viva for a circle, v = sqrt(GM / r) (Vallado 2013, eq. 1-31): within 1 mm/s
+    assert np.max(np.abs(v - np.sqrt(EARTH_GM_M3_S2 / r))) < 1e-3
+    # at epoch the vehicle is at the ascending node: z = 0, vz > 0
+    assert abs(position[0, 2]) < 1e-3 and velocity[0, 2] > 0.0
+
+
+def test_elliptic_orbit_perigee_apogee_and_vis_viva():
+    orbit = orbit_from_table({"type": "elements", "perigee_km": 300.0, "apogee_km": 35786.0,
+                              "inclination_deg": 7.0, "raan_deg": 40.0, "arg_perigee_deg": 178.0,
+                              "true_anomaly_deg": 0.0, "epoch": EPOCH, "steps_per_orbit": 2000})
+    position, velocity = orbit.propagate(orbit.times())
+    r = np.linalg.norm(position, axis=1)
+    v = np.linalg.norm(velocity, axis=1)
+    # perigee at epoch, apogee half a period later (sampled at 2000 steps: within 1 m)
+    assert r[0] - EARTH_EQUATORIAL_RADIUS_M == pytest.approx(300e3, abs=1.0)
+    assert r.max() - EARTH_EQUATORIAL_RADIUS_M == pytest.approx(35786e3, abs=1.0)
+    a = orbit.semi_major_axis
+    # vis-viva v^2 = GM (2/r - 1/a) (Vallado 2013, eq. 1-31): within 1 mm/s
+    assert np.max(np.abs(v - np.sqrt(EARTH_GM_M3_S2 * (2 / r - 1 / a)))) < 1e-3
+    # angular momentum conserved (Kepler's second law): relative 1e-12
+    h = np.linalg.norm(np.cross(position, velocity), axis=1)
+    assert np.ptp(h) / h.mean() < 1e-12
+
+
+def test_kepler_solver_satisfies_equation():
+    rng = np.random.default_rng(5)
+    m = rng.uniform(-20.0, 20.0, 500)
+    for e in (0.0, 0.1, 0.7, 0.95, 0.999):
+        big_e = solve_kepler(m, e)
+        # Kepler's equation M = E - e sin E, residual within 1e-12 rad
+        assert np.max(np.abs(big_e - e * np.sin(big_e) - m)) < 1e-12
+
+
+@pytest.mark.parametrize("altitude_km, inclination_deg, source", [
+    # from memory: commonly tabulated sun-synchronous inclinations of circular orbits
+    # (e.g. Wertz & Larson, Space Mission Analysis and Design, 3rd ed., 1999, ch. 6)
+    (500.0, 97.40, "tabulated, from memory"),
+    (600.0, 97.79, "tabulated, from memory"),
+    (700.0, 98.19, "tabulated, from memory"),
+    (800.0, 98.60, "tabulated, from memory"),
+    # Landsat 8: 705 km, 98.2 deg (NASA mission facts, from memory)
+    (705.0, 98.2, "Landsat 8"),
+])
+def test_sun_synchronous_inclination_published(altitude_km, inclination_deg, source):
+    a = EARTH_EQUATORIAL_RADIUS_M + altitude_km * 1e3
+    # 0.06 deg: the published values are rounded to 0.01-0.1 deg, and a mission's quoted
+    # altitude may refer to a mean rather than the equatorial radius (+-10 km ~ 0.04 deg)
+    assert math.degrees(sun_synchronous_inclination(a)) == pytest.approx(inclination_deg,
+                                                                          abs=0.06), source
+    orbit = orbit_from_table({"altitude_km": altitude_km, "sun_synchronous": True,
+                              "epoch": EPOCH})
+    assert orbit.inclination == pytest.approx(sun_synchronous_inclination(a), abs=1e-15)
+    # and the J2 node rate it gives is one turn per tropical year (365.2422 d, common practice)
+    rate = j2_secular_rates(a, 0.0, orbit.inclination)[0]
+    assert rate == pytest.approx(2 * math.pi / (365.24219 * 86400.0), rel=1e-12)
+
+
+def test_ltan_matches_input_at_epoch_and_after_one_day():
+    orbit = orbit_from_table({"altitude_km": 700.0, "sun_synchronous": True, "ltan": "10:30",
+                              "j2_drift": True, "epoch": EPOCH})
+    times = np.array([0.0, 86400.0])
+    hours = local_time_of_node(orbit.raan_at(times), ephemeris.times_from_epoch(EPOCH, times))
+    # at epoch: exact inverse, within 0.01 s of time
+    assert abs(hours[0] - 10.5) * 3600.0 < 0.01
+    # after one day: the node and the mean Sun both turn one revolution per tropical year;
+    # within 2 s of time (the sidereal-time and precession rates differ in the 1e-5 of a day)
+    assert abs(hours[1] - 10.5) * 3600.0 < 2.0
+    # without drift the node stays fixed in inertial space and the local time slips
+    # ~3.9 min per day (360 deg / 365.24 d, common practice)
+    fixed = orbit_from_table({"altitude_km": 700.0, "sun_synchronous": True, "ltan": "10:30",
+                              "epoch": EPOCH})
+    slipped = local_time_of_node(fixed.raan_at(times), ephemeris.times_from_epoch(EPOCH, times))
+    assert (10.5 - slipped[1]) * 60.0 == pytest.approx(1440.0 / 365.2422, abs=0.05)
+
+
+def test_ltan_against_sun_right_ascension():
+    # Independent check: the node's hour angle from the apparent Sun is 15 deg/h * (LTAN - 12)
+    # up to the equation of time, which never exceeds 16.5 min (Meeus, Astronomical
+    # Algorithms, 2nd ed., ch. 28, from memory)
+    for epoch in ("2027-03-21T00:00:00Z", "2027-11-03T12:00:00Z", "2028-02-11T06:00:00Z"):
+        for ltan in (6.0, 10.5, 13.75, 22.0):
+            orbit = orbit_from_table({"altitude_km": 600.0, "inclination_deg": 97.8,
+                                      "ltan": ltan, "epoch": epoch})
+            ra, dec, _ = ephemeris.sun_ra_dec([epoch], frame="icrf")
+            hour_angle_h = math.degrees(math.remainder(orbit.raan - ra[0], 2 * math.pi)) / 15.0
+            difference_min = math.remainder((hour_angle_h + 12.0 - ltan) * 60.0, 1440.0)
+            assert abs(difference_min) < 16.5 + 1.6  # + 1.6 min: ICRF vs of-date precession
+
+
+def test_j2_drift_rates_against_published_example():
+    # the formula evaluated by hand, -1.5 n J2 (R/p)^2 cos i (Vallado 2013, ch. 9), and the
+    # common-practice fact that a ~620 km orbit at 98 deg is nearly sun-synchronous
+    # (+0.9856 deg/day)
+    a, e, i = 7000e3, 0.001, math.radians(98.0)
+    n = math.sqrt(EARTH_GM_M3_S2 / a ** 3)
+    p = a * (1 - e * e)
+    hand = -1.5 * n * 1.08262668e-3 * (EARTH_EQUATORIAL_RADIUS_M / p) ** 2 * math.cos(i)
+    rate = j2_secular_rates(a, e, i)[0]
+    assert rate == pytest.approx(hand, rel=1e-12)
+    assert math.degrees(rate) * 86400.0 == pytest.approx(0.98, abs=0.03)
+    # polar orbit: no node drift; critical inclination 63.4349 deg: no perigee drift
+    assert abs(j2_secular_rates(a, e, math.pi / 2)[0]) < 1e-20
+    assert abs(j2_secular_rates(a, e, math.acos(math.sqrt(0.2)))[1]) < 1e-18
+
+
+def test_steps_and_step_s():
+    orbit = circular(orbits=2, steps_per_orbit=90)
+    assert orbit.n_steps == 180 and orbit.step == pytest.approx(orbit.period / 90)
+    orbit = circular(step_s=60.0)
+    assert orbit.step == 60.0 and orbit.n_steps == math.ceil(orbit.period / 60.0)
+    assert orbit.times()[-1] < orbit.period
+
+
+@pytest.mark.parametrize("table, where, value", [
+    ({"altitude_km": 400.0, "inclination_deg": 51.6, "epoch": EPOCH, "altitud": 3},
+     "[orbit] altitud", "3"),
+    ({"altitude_km": -5.0, "inclination_deg": 51.6, "epoch": EPOCH}, "[orbit] altitude_km", "-5.0"),
+    ({"altitude_km": 400.0, "inclination_deg": 200.0, "epoch": EPOCH},
+     "[orbit] inclination_deg", "200.0"),
+    ({"altitude_km": 400.0, "inclination_deg": 51.6, "epoch": "yesterday"},
+     "[orbit] epoch", "yesterday"),
+    ({"altitude_km": 400.0, "inclination_deg": 51.6}, "[orbit] epoch", "required"),
+    ({"altitude_km": 400.0, "inclination_deg": 51.6, "epoch": "2060-01-01T00:00:00Z"},
+     "[orbit] epoch", "2060"),
+    ({"type": "circle", "altitude_km": 400.0}, "[orbit] type", "circle"),
+    ({"altitude_km": 400.0, "inclination_deg": 51.6, "epoch": EPOCH, "ltan": "25:00"},
+     "[orbit] ltan", "25:00"),
+    ({"altitude_km": 400.0, "inclination_deg": 51.6, "epoch": EPOCH, "raan_deg": 3.0,
+      "ltan": "10:00"}, "[orbit] ltan", "10:00"),
+    ({"altitude_km": 400.0, "sun_synchronous": True, "inclination_deg": 97.0,
+      "epoch": EPOCH}, "[orbit] inclination_deg", "97.0"),
+    ({"altitude_km": 9000.0, "sun_synchronous": True, "epoch": EPOCH},
+     "[orbit] sun_synchronous", "sun-synchronous"),
+    ({"type": "elements", "semi_major_axis_km": 7000.0, "eccentricity": 1.2,
+      "inclination_deg": 10.0, "epoch": EPOCH}, "[orbit] eccentricity", "1.2"),
+    ({"type": "elements", "semi_major_axis_km": 7000.0, "eccentricity": 0.2,
+      "inclination_deg": 10.0, "epoch": EPOCH}, "[orbit] semi_major_axis_km", "inside"),
+    ({"type": "elements", "perigee_km": 900.0, "apogee_km": 500.0,
+      "inclination_deg": 10.0, "epoch": EPOCH}, "[orbit] apogee_km", "500.0"),
+    ({"altitude_km": 400.0, "inclination_deg": 51.6, "epoch": EPOCH, "steps_per_orbit": 0},
+     "[orbit] steps_per_orbit", "0"),
+    ({"altitude_km": 400.0, "inclination_deg": 51.6, "epoch": EPOCH, "j2_drift": "yes"},
+     "[orbit] j2_drift", "yes"),
+    ({"altitude_km": 400.0, "inclination_deg": 51.6, "epoch": EPOCH, "shadow": "round"},
+     "[orbit] shadow", "round"),
+    ({"type": "tle", "tle": "1 not a tle\n2 either"}, "[orbit] tle", "not a tle"),
+])
+def test_bad_tables_name_file_key_and_value(table, where, value):
+    with pytest.raises(ModelError) as info:
+        orbit_from_table(table, file="model.toml")
+    message = str(info.value)
+    assert message.startswith("model.toml: ")
+    assert where in message and value in message
