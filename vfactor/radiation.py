@@ -1,12 +1,64 @@
-"""Radiative couplings: Monte Carlo view factors, smoothing, Gebhart factors, exchange areas."""
+"""Radiative couplings: Monte Carlo view factors, smoothing, Gebhart factors, exchange areas.
+
+Pipeline of this module::
+
+    Geometry + Scene --trace_tallies (rounds)--> TallySums --view_factors_from_tallies-->
+    ViewFactors (raw + smoothed) --gebhart_matrix / monte_carlo_gebhart--> Exchange
+
+Columns of every tally and view-factor row
+------------------------------------------
+A row belongs to an emitting node ``i``; its ``n + 2`` columns are the ``n`` nodes, then
+*space* (column ``n``: the ray left the model) and *inert* (column ``n + 1``: the first
+facet side hit belongs to no node, i.e. it is opaque and takes no part in the exchange).
+Raw rows sum to exactly one.
+
+Units of work ("rounds")
+------------------------
+A *round* is one independent randomised replicate: every node of the round emits
+``rays_per_round`` rays, placed with a stratified, randomised quasi-Monte Carlo design
+(see :mod:`vfactor.tracing.vf_kernels`). The tally of round ``r`` for node ``i`` is a pure
+function of ``(geometry, seed, i, r, rays_per_round)``; tallies are integers, so any set of
+rounds summed in any order, on any number of threads or processes, gives identical bits.
+Statistical errors come from the spread between rounds (see :func:`tally_statistics`).
+"""
 
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
-__all__ = ["ViewFactors", "Exchange"]
+__all__ = [
+    "ViewFactors",
+    "Exchange",
+    "TallySums",
+    "TallyStatistics",
+    "SmoothedViewFactors",
+    "GebhartFactors",
+    "MIN_ROUNDS",
+    "SIGNIFICANCE",
+    "SMOOTHING_METHOD",
+    "tally_statistics",
+    "significant_mask",
+    "smooth_view_factors",
+    "gebhart_matrix",
+    "exchange_from_gebhart",
+]
+
+#: Number of independent randomised replicates ("rounds") a computation starts with; the
+#: one-sigma error of every entry is the spread of these replicates (Owen 2013, "Monte
+#: Carlo theory, methods and examples", ch. 17; 8..32 replicates is common practice).
+MIN_ROUNDS = 8
+
+#: An entry of a view-factor row (node or space column) is *significant* when its raw value
+#: is at least this share of the row (the row sums to one): 1 % of the energy the node
+#: emits. Convergence (``target_error``) and ``adjustment_sigma`` look at these entries only.
+SIGNIFICANCE = 1e-2
+
+#: Name of the reciprocity and closure smoothing method (see :func:`smooth_view_factors`).
+SMOOTHING_METHOD = ("variance-weighted least squares with Lagrange multipliers "
+                    "(van Leersum 1989; Taylor & Luck 1995), non-negative active set")
 
 
 @dataclass(frozen=True)
@@ -67,3 +119,450 @@ class Exchange:
     stderr: np.ndarray | None
     method: str
     band: str = "ir"
+
+
+# --------------------------------------------------------------------------------------
+# Tallies and their statistics
+# --------------------------------------------------------------------------------------
+class TallyStatistics(NamedTuple):
+    """Estimates and one-sigma errors from summed round tallies.
+
+    Attributes
+    ----------
+    mean : (n, n + 2) float — hit fractions per row: nodes, space, inert [1]
+    stderr : (n, n + 2) float — one-sigma error of ``mean`` [1]
+    rays : (n,) int64 — rays emitted per row (rounds x rays per round)
+    """
+
+    mean: np.ndarray
+    stderr: np.ndarray
+    rays: np.ndarray
+
+
+@dataclass
+class TallySums:
+    """Running sums of round tallies: the whole state needed to resume or merge work.
+
+    Sums of integers only, so adding rounds in any order (or merging the sums of several
+    workers) gives identical bits.
+
+    Attributes
+    ----------
+    counts : (n, n + 2) int64 — sum over rounds of the hit counts of each row
+    squares : (n, n + 2) int64 — sum over rounds of the squared hit counts
+    rounds : (n,) int64 — number of rounds added per row
+    rays_per_round : int — rays per node in every round (the same for all rounds)
+    """
+
+    counts: np.ndarray
+    squares: np.ndarray
+    rounds: np.ndarray
+    rays_per_round: int
+
+    @classmethod
+    def empty(cls, n_nodes: int, rays_per_round: int) -> "TallySums":
+        """Sums of no rounds for ``n_nodes`` nodes."""
+        n = int(n_nodes)
+        return cls(np.zeros((n, n + 2), np.int64), np.zeros((n, n + 2), np.int64),
+                   np.zeros(n, np.int64), int(rays_per_round))
+
+    def add(self, node_indices, tallies) -> None:
+        """Add one round's tallies of the nodes ``node_indices``.
+
+        Parameters
+        ----------
+        node_indices : (k,) int — rows the tallies belong to (no repeats)
+        tallies : (k, n + 2) int64 — hit counts of one round, as from :func:`trace_tallies`
+        """
+        idx = np.asarray(node_indices, dtype=np.int64)
+        t = np.asarray(tallies)
+        if t.shape != (idx.size, self.counts.shape[1]) or t.dtype.kind not in "iu":
+            raise ValueError(f"TallySums.add: tallies must be integer of shape "
+                             f"({idx.size}, {self.counts.shape[1]}), got {t.dtype} {t.shape}")
+        if np.unique(idx).size != idx.size:
+            raise ValueError("TallySums.add: node_indices has repeats")
+        t = t.astype(np.int64)
+        if np.any(t.sum(axis=1) != self.rays_per_round):
+            raise ValueError(f"TallySums.add: every tally row must sum to rays_per_round = "
+                             f"{self.rays_per_round}")
+        self.counts[idx] += t
+        self.squares[idx] += t * t
+        self.rounds[idx] += 1
+
+    def merge(self, other: "TallySums") -> None:
+        """Add the sums of ``other`` (another worker's rounds, disjoint from ours)."""
+        if other.rays_per_round != self.rays_per_round or other.counts.shape != self.counts.shape:
+            raise ValueError("TallySums.merge: different rays_per_round or node count")
+        self.counts += other.counts
+        self.squares += other.squares
+        self.rounds += other.rounds
+
+
+def tally_statistics(sums: TallySums) -> TallyStatistics:
+    """Hit fractions and their one-sigma errors from summed round tallies.
+
+    Parameters
+    ----------
+    sums : TallySums
+        Every row must have at least one round.
+
+    Returns
+    -------
+    TallyStatistics
+
+    Notes
+    -----
+    With ``K >= 2`` rounds of ``m`` rays, each round gives an independent unbiased estimate
+    ``p_r = c_r / m`` (randomised quasi-Monte Carlo replicates). The estimate is their mean
+    ``p = sum(c) / (K m)`` and its one-sigma error the standard error of the mean of the
+    replicates (Owen 2013, "Monte Carlo theory, methods and examples", ch. 17, eq. 17.3)::
+
+        sigma^2 = (K sum(c^2) - (sum c)^2) / (K^2 (K - 1) m^2)
+
+    computed in exact integer arithmetic before the one division. With a single round no
+    spread exists, and the binomial bound ``sqrt(p (1 - p) / m)`` of independent rays is
+    reported instead (conservative: stratification only lowers the variance).
+    """
+    counts = np.asarray(sums.counts, dtype=np.int64)
+    squares = np.asarray(sums.squares, dtype=np.int64)
+    rounds = np.asarray(sums.rounds, dtype=np.int64)
+    m = int(sums.rays_per_round)
+    if np.any(rounds < 1):
+        bad = np.flatnonzero(rounds < 1)
+        raise ValueError(f"tally_statistics: rows {bad[:10].tolist()} have no rounds")
+    rays = rounds * m
+    mean = counts / rays[:, None].astype(np.float64)
+    k = rounds[:, None]
+    if counts.size and int(counts.max()) < 3_000_000_000:
+        num = k * squares - counts * counts            # exact: < 2**63
+        num = num.astype(np.float64)
+    else:                                              # exact with Python integers
+        num = (k.astype(object) * squares.astype(object)
+               - counts.astype(object) * counts.astype(object)).astype(np.float64)
+    kf = k.astype(np.float64)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        var = np.where(kf > 1, np.maximum(num, 0.0) / (kf * kf * (kf - 1.0) * m * m), 0.0)
+    binomial = mean * (1.0 - mean) / rays[:, None]
+    var = np.where(kf > 1, var, binomial)
+    return TallyStatistics(mean=mean, stderr=np.sqrt(var), rays=rays)
+
+
+def significant_mask(fractions, significance: float = SIGNIFICANCE):
+    """Significant entries of view-factor rows.
+
+    Parameters
+    ----------
+    fractions : (n, n + 2) float — rows of node columns, space, inert [1]
+    significance : float — threshold share of the row [1]
+
+    Returns
+    -------
+    (n, n + 2) bool — True for node and space entries ``>= significance``; the inert column
+        is never significant (it is not a coupling).
+    """
+    f = np.asarray(fractions, dtype=np.float64)
+    mask = f >= significance
+    mask[:, -1] = False
+    return mask
+
+
+# --------------------------------------------------------------------------------------
+# Reciprocity and closure
+# --------------------------------------------------------------------------------------
+class SmoothedViewFactors(NamedTuple):
+    """Result of :func:`smooth_view_factors`.
+
+    Attributes
+    ----------
+    matrix : (n, n) float — view factors obeying A_i F_ij = A_j F_ji [1]
+    space : (n,) float — view factors to space [1]
+    inert : (n,) float — shares lost on inert sides [1]
+    iterations : int — active-set iterations used (1 when no bound was active)
+    """
+
+    matrix: np.ndarray
+    space: np.ndarray
+    inert: np.ndarray
+    iterations: int
+
+
+def smooth_view_factors(raw_matrix, raw_space, raw_inert, variance, variance_space,
+                        variance_inert, area) -> SmoothedViewFactors:
+    """Enforce reciprocity and closure on Monte Carlo view factors by weighted least squares.
+
+    Parameters
+    ----------
+    raw_matrix : (n, n) float — raw view factors, row i from node i [1]
+    raw_space, raw_inert : (n,) float — raw factors to space and to inert sides [1]
+    variance : (n, n) float — variance of each raw entry [1]; must be > 0 where the entry
+        or its reciprocal is non-zero (callers add a floor, see Notes)
+    variance_space, variance_inert : (n,) float — variances of the space and inert entries
+    area : (n,) float — node areas [m2]
+
+    Returns
+    -------
+    SmoothedViewFactors
+
+    Raises
+    ------
+    ValueError
+        On wrong shapes, non-finite values or non-positive areas.
+
+    Notes
+    -----
+    Minimises ``sum (x - x_raw)^2 / var`` over all entries ``x`` (node entries, space,
+    inert) subject to
+
+    - reciprocity ``A_i F_ij = A_j F_ji`` for every pair of nodes,
+    - closure ``sum_j F_ij + F_i,space + F_i,inert = 1`` for every row,
+    - ``x >= 0``,
+
+    which is the least-squares adjustment with Lagrange multipliers of van Leersum (1989)
+    weighted by the inverse statistical variance, the weighting that Taylor & Luck (1995)
+    found best among the reciprocity and closure enforcement methods they compared: well
+    sampled entries move least. Space and inert entries take part in closure; they have no
+    reciprocal row.
+
+    Derivation (ours, standard Lagrange calculus): with one unknown ``g_ij = A_i F_ij =
+    A_j F_ji`` per pair, stationarity gives ``g = g_hat - h (mu_i + mu_j)`` with
+    ``a = w_ij / A_i^2``, ``b = w_ji / A_j^2``, ``g_hat = (w_ij F_ij / A_i + w_ji F_ji /
+    A_j) / (a + b)``, ``h = 1 / (2 (a + b))`` (``w = 1/var``); the diagonal and the space
+    and inert entries follow likewise; the row constraints become one symmetric positive
+    definite ``n x n`` system for the multipliers ``mu``. Non-negativity is kept by a
+    primal active set: entries that come out negative are fixed at zero and the system is
+    solved again; fixed entries whose unconstrained value turns positive are released.
+    Entries that are zero in both directions (never hit) are structural zeros and stay
+    zero.
+
+    References
+    ----------
+    - J. van Leersum (1989), "A method for determining a consistent set of radiation view
+      factors from a set of generated values", Int. J. Heat Mass Transfer 32(2), 289-293.
+    - R. P. Taylor, R. Luck (1995), "Comparison of reciprocity and closure enforcement
+      methods for radiation view factors", J. Thermophys. Heat Transfer 9(4), 660-666.
+    """
+    F = _as_array(raw_matrix, "raw_matrix", ndim=2)
+    n = F.shape[0]
+    if F.shape != (n, n):
+        raise ValueError(f"smooth_view_factors: raw_matrix must be square, got {F.shape}")
+    s_hat = _as_array(raw_space, "raw_space", shape=(n,))
+    l_hat = _as_array(raw_inert, "raw_inert", shape=(n,))
+    V = _as_array(variance, "variance", shape=(n, n))
+    vs = _as_array(variance_space, "variance_space", shape=(n,))
+    vl = _as_array(variance_inert, "variance_inert", shape=(n,))
+    A = _as_array(area, "area", shape=(n,))
+    if np.any(A <= 0):
+        raise ValueError(f"smooth_view_factors: node areas must be > 0, got min {float(A.min())!r}")
+
+    # Free variables: entries hit in at least one direction.
+    pair_free0 = (F > 0) | (F.T > 0)
+    diag_free0 = np.diag(F) > 0
+    s_free0 = s_hat > 0
+    l_free0 = l_hat > 0
+    for name, v, free in (("variance", V, pair_free0), ("variance_space", vs, s_free0),
+                          ("variance_inert", vl, l_free0)):
+        if np.any(v[free] <= 0):
+            raise ValueError(f"smooth_view_factors: {name} must be > 0 where an entry is hit")
+
+    with np.errstate(divide="ignore", invalid="ignore"):
+        W = np.where(V > 0, 1.0 / V, 0.0)
+        a = W / (A[:, None] ** 2)
+        ab = a + a.T
+        c = W * F / A[:, None]
+        cc = c + c.T
+        g_hat = np.where(ab > 0, cc / ab, 0.0)
+        h = np.where(ab > 0, 0.5 / ab, 0.0)
+    np.fill_diagonal(g_hat, 0.0)
+    np.fill_diagonal(h, 0.0)
+    gd_hat = A * np.diag(F)
+    hd = 0.5 * A * A * np.diag(V)
+    hs = 0.5 * A * A * vs
+    hl = 0.5 * A * A * vl
+    As_hat = A * s_hat
+    Al_hat = A * l_hat
+
+    off = ~np.eye(n, dtype=bool)
+    pair_free = pair_free0 & off
+    diag_free = diag_free0.copy()
+    s_free = s_free0.copy()
+    l_free = l_free0.copy()
+    iterations = 0
+    for iterations in range(1, 4 * n + 20):
+        Hf = np.where(pair_free, h, 0.0)
+        diag = Hf.sum(axis=1) + hd * diag_free + hs * s_free + hl * l_free
+        M = Hf + np.diag(diag)
+        r = (np.where(pair_free, g_hat, 0.0).sum(axis=1) + gd_hat * diag_free
+             + As_hat * s_free + Al_hat * l_free - A)
+        empty = diag <= 0
+        if np.any(empty):                  # row with nothing left to adjust
+            M[empty, :] = 0.0
+            M[:, empty] = 0.0
+            M[empty, empty] = 1.0
+            r = np.where(empty, 0.0, r)
+        mu = np.linalg.solve(M, r)
+        G = g_hat - h * (mu[:, None] + mu[None, :])
+        gd = gd_hat - hd * mu
+        As = As_hat - hs * mu
+        Al = Al_hat - hl * mu
+        neg_pair = pair_free & (G < 0)
+        neg_d = diag_free & (gd < 0)
+        neg_s = s_free & (As < 0)
+        neg_l = l_free & (Al < 0)
+        if neg_pair.any() or neg_d.any() or neg_s.any() or neg_l.any():
+            pair_free &= ~neg_pair
+            diag_free &= ~neg_d
+            s_free &= ~neg_s
+            l_free &= ~neg_l
+            continue
+        # Release fixed entries whose unconstrained value at these multipliers is positive.
+        rel_pair = pair_free0 & off & ~pair_free & (G > 0)
+        rel_d = diag_free0 & ~diag_free & (gd > 0)
+        rel_s = s_free0 & ~s_free & (As > 0)
+        rel_l = l_free0 & ~l_free & (Al > 0)
+        if rel_pair.any() or rel_d.any() or rel_s.any() or rel_l.any():
+            pair_free |= rel_pair
+            diag_free |= rel_d
+            s_free |= rel_s
+            l_free |= rel_l
+            continue
+        break
+    G = np.where(pair_free, G, 0.0)
+    G = 0.5 * (G + G.T)
+    gd = np.where(diag_free, gd, 0.0)
+    matrix = G / A[:, None]
+    matrix[np.diag_indices(n)] = gd / A
+    space = np.where(s_free, As, 0.0) / A
+    inert = np.where(l_free, Al, 0.0) / A
+    return SmoothedViewFactors(matrix=matrix, space=space, inert=inert, iterations=iterations)
+
+
+# --------------------------------------------------------------------------------------
+# Gebhart factors
+# --------------------------------------------------------------------------------------
+class GebhartFactors(NamedTuple):
+    """Result of :func:`gebhart_matrix` (unpacks as ``B, B_space``).
+
+    Attributes
+    ----------
+    gebhart : (n, n) float — B_ij, share of the energy emitted by i absorbed by j [1]
+    space : (n,) float — share of the energy emitted by i that escapes to space [1]
+
+    The rest of each row, ``1 - sum_j B_ij - B_i,space``, is absorbed on inert sides
+    (lost); it is zero when no ray meets an inert side.
+    """
+
+    gebhart: np.ndarray
+    space: np.ndarray
+
+
+def gebhart_matrix(view_factors_matrix, space, inert, emissivity) -> GebhartFactors:
+    """Gebhart factors of diffuse grey surfaces by the linear solve.
+
+    Band-agnostic: pass infrared emissivities for the infrared band, solar absorptivities
+    for the redistribution of reflected sunlight.
+
+    Parameters
+    ----------
+    view_factors_matrix : (n, n) float — F_ij, row i from node i [1]
+    space : (n,) float — F_i,space [1]
+    inert : (n,) float — F_i,inert, share that meets inert sides [1]
+    emissivity : (n,) float — emissivity (or absorptivity) of each node in the band, 0..1
+
+    Returns
+    -------
+    GebhartFactors
+        ``(B, B_space)``; rows of B plus B_space plus the share lost on inert sides sum to
+        one when the view-factor rows (with space and inert) do.
+
+    Raises
+    ------
+    ValueError
+        On wrong shapes, non-finite values, emissivity outside [0, 1], or a singular system
+        (a closed set of perfectly reflecting nodes that never lets energy out).
+
+    Notes
+    -----
+    Diffuse grey enclosure theory of Gebhart (1961), in matrix form (Siegel & Howell,
+    "Thermal Radiation Heat Transfer", chapter on radiation exchange in enclosures of
+    diffuse grey surfaces; section from memory)::
+
+        B_ij = F_ij eps_j + sum_k F_ik (1 - eps_k) B_kj
+        (I - F diag(1 - eps)) B = F diag(eps)
+        (I - F diag(1 - eps)) B_space = F_space
+
+    Space absorbs everything that escapes (a black sink). Inert sides are opaque and take
+    no part: what reaches them is treated as absorbed there and lost,
+    ``(I - F diag(1 - eps)) B_inert = F_inert``; that share is not returned.
+
+    References
+    ----------
+    B. Gebhart (1961), "Surface temperature calculations in radiant surroundings of
+    arbitrary complexity - for gray, diffuse radiation", Int. J. Heat Mass Transfer 3,
+    341-346.
+    """
+    F = _as_array(view_factors_matrix, "view_factors_matrix", ndim=2)
+    n = F.shape[0]
+    if F.shape != (n, n):
+        raise ValueError(f"gebhart_matrix: view_factors_matrix must be square, got {F.shape}")
+    fs = _as_array(space, "space", shape=(n,))
+    _as_array(inert, "inert", shape=(n,))
+    eps = _as_array(emissivity, "emissivity", shape=(n,))
+    if np.any((eps < 0) | (eps > 1)):
+        bad = int(np.flatnonzero((eps < 0) | (eps > 1))[0])
+        raise ValueError(f"gebhart_matrix: emissivity must be in [0, 1], node {bad} has "
+                         f"{float(eps[bad])!r}")
+    system = np.eye(n) - F * (1.0 - eps)[None, :]
+    rhs = np.empty((n, n + 1))
+    rhs[:, :n] = F * eps[None, :]
+    rhs[:, n] = fs
+    try:
+        sol = np.linalg.solve(system, rhs)
+    except np.linalg.LinAlgError:
+        raise ValueError("gebhart_matrix: singular system (I - F diag(1 - eps)); some nodes "
+                         "reflect everything and never let energy out") from None
+    return GebhartFactors(gebhart=sol[:, :n], space=sol[:, n])
+
+
+def exchange_from_gebhart(gebhart, gebhart_space, emissivity, area, *, stderr=None,
+                          method="matrix", band="ir") -> Exchange:
+    """Exchange areas ``eps_i A_i B_ij`` and to space, packed as :class:`Exchange`.
+
+    Parameters
+    ----------
+    gebhart : (n, n) float — B_ij [1]
+    gebhart_space : (n,) float — B_i,space [1]
+    emissivity : (n,) float — emissivity (absorptivity in the solar band) [1]
+    area : (n,) float — node areas [m2]
+    stderr : (n, n) float or None — one-sigma error of ``gebhart`` [1]
+    method, band : str — recorded in the result
+
+    Returns
+    -------
+    Exchange
+        ``area = eps_i A_i B_ij`` [m2]; the radiative conductance is ``sigma * area``
+        [W K-4]: the net exchange between nodes i and j is ``sigma area_ij (T_i^4 -
+        T_j^4)`` (Gebhart 1961).
+    """
+    B = _as_array(gebhart, "gebhart", ndim=2)
+    n = B.shape[0]
+    bs = _as_array(gebhart_space, "gebhart_space", shape=(n,))
+    eps = _as_array(emissivity, "emissivity", shape=(n,))
+    A = _as_array(area, "area", shape=(n,))
+    ea = eps * A
+    return Exchange(gebhart=B, gebhart_space=bs, area=ea[:, None] * B, area_space=ea * bs,
+                    stderr=None if stderr is None else _as_array(stderr, "stderr", shape=(n, n)),
+                    method=method, band=band)
+
+
+# --------------------------------------------------------------------------------------
+# helpers
+# --------------------------------------------------------------------------------------
+def _as_array(value, name, ndim=None, shape=None):
+    arr = np.ascontiguousarray(value, dtype=np.float64)
+    if ndim is not None and arr.ndim != ndim:
+        raise ValueError(f"{name} must be {ndim}-D, got shape {arr.shape}")
+    if shape is not None and arr.shape != shape:
+        raise ValueError(f"{name} must have shape {shape}, got {arr.shape}")
+    if not np.all(np.isfinite(arr)):
+        raise ValueError(f"{name} has non-finite values")
+    return arr
