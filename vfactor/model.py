@@ -639,8 +639,8 @@ def _read_part(tab, pname, shape, index, where, reader, coatings, scale, base) -
     if shape in ("disk", "cylinder", "cone", "sphere", "dish"):
         params["segments"] = reader.integer(tab.get("segments", DEFAULT_SEGMENTS),
                                             f"{where} segments", 3)
-        if params["segments"] > 100_000:
-            reader.error(f"{where} segments", f"must be <= 100000, got {params['segments']}")
+        if params["segments"] > 4096:
+            reader.error(f"{where} segments", f"must be <= 4096, got {params['segments']}")
     if shape == "mesh":
         fname = reader.string(tab["file"], f"{where} file")
         params["file_as_written"] = fname

@@ -52,7 +52,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from vfactor.errors import MeshError
+from vfactor.errors import MeshError, ModelError
 
 __all__ = ["Tessellation", "tessellate", "exact_area", "read_mesh", "triangle_areas",
            "max_edge_length"]
@@ -67,6 +67,9 @@ FACE_LABELS = {
     "dish": ("face",),
 }
 CURVED_SHAPES = ("disk", "cylinder", "cone", "sphere", "dish")
+MAX_FACETS_PER_PART = 2_000_000
+"""A part whose refinement would exceed this many facets is refused (ModelError): such a
+request is nearly always a ``max_edge`` typed in the wrong unit."""
 
 
 @dataclass(frozen=True)
@@ -168,21 +171,22 @@ def _ring_counts(radii, hc: float, segments: int, rmax: float) -> list:
 def _revolve(radii, heights, counts):
     """Surface of revolution through rings (radii[k], heights[k]) with counts[k] points.
 
-    Returns vertices (v,3) and triangles (f,3) oriented so that their normal is the
-    profile direction (d rho, d z) rotated by -90 degrees in the (rho, z) half plane,
-    i.e. (dz, -drho): outward for a profile running from bottom to top on the outside.
-    Rings are zipped by angle so that neighbouring rings may have different counts.
+    Returns vertices (v,3) and triangles (f,3), not yet oriented (see ``_orient``).
+    Rings are zipped by angle so that neighbouring rings may have different counts; a
+    ring of count 1 is a pole (a point on the axis).
     """
-    verts = []
+    rings = []
     starts = []
+    total = 0
     for r, z, n in zip(radii, heights, counts):
-        starts.append(len(verts))
+        starts.append(total)
+        total += n
         if n == 1:
-            verts.append((0.0, 0.0, z))
+            rings.append(np.array([[0.0, 0.0, z]]))
         else:
-            th = 2.0 * math.pi * np.arange(n) / n
-            for t in th:
-                verts.append((r * math.cos(t), r * math.sin(t), z))
+            th = 2.0 * np.pi * np.arange(n) / n
+            rings.append(np.stack([r * np.cos(th), r * np.sin(th), np.full(n, z)], axis=1))
+    verts = np.concatenate(rings) if rings else np.zeros((0, 3))
     tris = []
     for k in range(len(radii) - 1):
         na, nb = counts[k], counts[k + 1]
@@ -197,20 +201,22 @@ def _revolve(radii, heights, counts):
             for i in range(na):
                 tris.append((sa + i, sa + (i + 1) % na, sb))
             continue
-        i = j = 0
-        while i < na or j < nb:
-            ta = (i + 1) / na
-            tb = (j + 1) / nb
-            if j >= nb or (i < na and ta <= tb):
-                tris.append((sa + i % na, sa + (i + 1) % na, sb + j % nb))
-                i += 1
-            else:
-                tris.append((sa + i % na, sb + (j + 1) % nb, sb + j % nb))
-                j += 1
-    v = np.asarray(verts, dtype=np.float64).reshape(-1, 3)
+        # merge the two rings by angle: event (i+1)/na for ring a, (j+1)/nb for ring b,
+        # compared exactly on the common denominator na*nb; ring a first on ties
+        key = np.concatenate([np.arange(1, na + 1) * nb, np.arange(1, nb + 1) * na])
+        kind = np.concatenate([np.zeros(na, np.int64), np.ones(nb, np.int64)])
+        order = np.lexsort((kind, key))
+        kind = kind[order]
+        i = np.cumsum(kind == 0) - (kind == 0)   # a-events before each event
+        j = np.cumsum(kind == 1) - (kind == 1)
+        is_a = kind == 0
+        t0 = sa + i % na
+        t1 = np.where(is_a, sa + (i + 1) % na, sb + (j + 1) % nb)
+        t2 = sb + j % nb
+        tris.extend(zip(t0.tolist(), t1.tolist(), t2.tolist()))
+    v = np.ascontiguousarray(verts, dtype=np.float64).reshape(-1, 3)
     t = np.asarray(tris, dtype=np.int64).reshape(-1, 3)
-    # Orientation: the zipper above is counter-clockwise seen from the (dz, -drho) side
-    # for rings stepping up in z; make it so for any profile by checking each strip.
+    # Orientation is set afterwards by _orient against the analytic normal.
     return v, t
 
 
@@ -415,6 +421,11 @@ def tessellate(part) -> Tessellation:
                          where=part.where, shown_name=p.get("file_as_written", p["file"]))
     build = _BUILDERS[part.shape]
     h = part.max_edge
+    estimate = estimated_facets(part)
+    if estimate > MAX_FACETS_PER_PART:
+        raise ModelError(f"max_edge {h} m / segments {part.parameters.get('segments')} would "
+                         f"make about {estimate:.3g} facets (limit {MAX_FACETS_PER_PART}); "
+                         f"use a larger max_edge", where=part.where)
     tess = build(part.parameters, h)
     # Refine until the bound holds (the analytic counts above nearly always suffice).
     shrink = 1.0
@@ -424,6 +435,19 @@ def tessellate(part) -> Tessellation:
         shrink *= 0.85
         tess = build(part.parameters, h * shrink)
     return tess
+
+
+def estimated_facets(part) -> float:
+    """Rough (generous) facet count of a primitive before tessellating it: 8 area / h^2."""
+    p = part.parameters
+    area = exact_area(part) or 0.0
+    h = part.max_edge if part.max_edge is not None else math.inf
+    if part.shape in CURVED_SHAPES:
+        rmax = max(p.get("radius", 0.0), p.get("top_radius", 0.0))
+        h = min(h, 2.0 * math.pi * rmax / p["segments"])
+    if not math.isfinite(h):
+        return 12.0
+    return 8.0 * area / (h * h)
 
 
 def exact_area(part) -> float | None:
@@ -496,28 +520,29 @@ def read_mesh(path, scale: float = 1.0, max_edge: float | None = None,
     name = shown_name or str(path)
     if not os.path.isfile(path):
         raise MeshError(f"mesh file {name!r} not found (looked for {path})", where=where)
+    options = {}
+    if str(path).lower().endswith(".obj"):
+        options = dict(split_objects=True, split_groups=True, group_material=False)
     try:
-        loaded = trimesh.load(path, process=False)
+        loaded = trimesh.load_scene(path, process=False, **options)
     # trimesh's format loaders raise many unrelated exception types on a damaged file
     # (ValueError, KeyError, IndexError, struct.error, ...); each becomes a MeshError.
     except Exception as exc:  # noqa: BLE001
         raise MeshError(f"cannot read mesh file {name!r}: {type(exc).__name__}: {exc}",
                         where=where) from None
-    pieces = []   # (label, vertices, faces)
-    if isinstance(loaded, trimesh.Scene):
-        for node in loaded.graph.nodes_geometry:
-            transform, gname = loaded.graph[node]
-            geom = loaded.geometry.get(gname)
-            if not isinstance(geom, trimesh.Trimesh):
-                continue
-            v = trimesh.transform_points(np.asarray(geom.vertices, float), transform)
-            pieces.append((str(node), v, np.asarray(geom.faces, np.int64)))
-    elif isinstance(loaded, trimesh.Trimesh):
-        pieces.append((None, np.asarray(loaded.vertices, float),
-                       np.asarray(loaded.faces, np.int64)))
-    else:
+    pieces = []   # (label, vertices, faces), in order of the geometry names
+    others = set()
+    for node in sorted(loaded.graph.nodes_geometry):
+        transform, gname = loaded.graph[node]
+        geom = loaded.geometry.get(gname)
+        if not isinstance(geom, trimesh.Trimesh):
+            others.add(type(geom).__name__)
+            continue
+        v = trimesh.transform_points(np.asarray(geom.vertices, float), transform)
+        pieces.append((str(node), v, np.asarray(geom.faces, np.int64)))
+    if not pieces and others:
         raise MeshError(f"mesh file {name!r} holds no triangles (found "
-                        f"{type(loaded).__name__})", where=where)
+                        f"{', '.join(sorted(others))})", where=where)
     pieces = [p for p in pieces if len(p[2]) > 0]
     if not pieces:
         raise MeshError(f"mesh file {name!r} is empty (no triangles)", where=where)
@@ -549,6 +574,11 @@ def read_mesh(path, scale: float = 1.0, max_edge: float | None = None,
     watertight = bool(merged.is_watertight) if len(merged.faces) == len(tris) else False
     is_closed = watertight if closed is None else bool(closed)
     if max_edge is not None:
+        estimate = 8.0 * float(triangle_areas(verts, tris).sum()) / max_edge ** 2
+        if estimate > MAX_FACETS_PER_PART:
+            raise ModelError(f"max_edge {max_edge} m would make about {estimate:.3g} facets "
+                             f"(limit {MAX_FACETS_PER_PART}); use a larger max_edge",
+                             where=where)
         verts, tris, face = _subdivide(verts, tris, face, max_edge)
     return Tessellation(np.ascontiguousarray(verts, np.float64), tris.astype(np.int64),
                         tuple(labels), face.astype(np.int64), closed=is_closed,
