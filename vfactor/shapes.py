@@ -282,10 +282,12 @@ def _box(size, h):
                         np.concatenate(face_all), closed=True)
 
 
-def _disk_rings(r_in, r_out, z, h, segments, hc, rmax):
+def _disk_rings(r_in, r_out, z, h, segments, hc, rmax, rim_count=None):
     n = _profile_samples(r_out - r_in, h, straight=True, default_h=hc)
     radii = list(np.linspace(r_in, r_out, n + 1))
     counts = _ring_counts(radii, hc, segments, rmax)
+    if rim_count is not None:   # match the rim of an adjoining surface (watertight)
+        counts = [min(c, rim_count) for c in counts[:-1]] + [rim_count]
     return _revolve(radii, [z] * len(radii), counts)
 
 
@@ -319,7 +321,12 @@ def _cone_like(params, h, shape):
     s = np.linspace(0.0, 1.0, n + 1)
     radii = list(R + (Rt - R) * s)
     heights = list(-L / 2 + L * s)
-    counts = _ring_counts(radii, hc, seg, rmax)
+    radii[0], radii[-1] = R, Rt           # exact rims, shared bit for bit with the caps
+    heights[0], heights[-1] = -L / 2, L / 2
+    # One count on every ring of the lateral surface (its normal varies only with the
+    # angle, so a tip fan with few points would tilt the facets); apex: a single point.
+    n_around = max(_ring_counts([rmax], hc, seg, rmax))
+    counts = [n_around if r > 0.0 else 1 for r in radii]
     parts_v, parts_t, parts_f = [], [], []
     v, t = _revolve(radii, heights, counts)
     # outward normal of the lateral surface: (L cos, L sin, R - Rt) / norm
@@ -332,7 +339,7 @@ def _cone_like(params, h, shape):
         for z, r, label, sign in ((L / 2, Rt, 1, 1.0), (-L / 2, R, 2, -1.0)):
             if r <= 0.0:
                 continue
-            vc, tc = _disk_rings(0.0, r, z, h, seg, hc, rmax)
+            vc, tc = _disk_rings(0.0, r, z, h, seg, hc, rmax, rim_count=n_around)
             tc = _orient(vc, tc, lambda c, s_=sign: np.tile([0.0, 0.0, s_], (len(c), 1)))
             parts_v.append(vc); parts_t.append(tc); parts_f.append(np.full(len(tc), label))
     offs = np.cumsum([0] + [len(x) for x in parts_v])
