@@ -96,3 +96,108 @@ def test_trajectory_from_model():
     assert np.max(np.abs(tr.nadir_body - [0.0, 0.0, 1.0])) < 1e-9
     model.orbit_table = dict(model.orbit_table, shadow="cylindrical")
     assert set(np.unique(trajectory_from_model(model).sun_fraction)) <= {0.0, 1.0}
+
+
+# --- orbit facts -----------------------------------------------------------------------
+from vfactor.constants import SUN_RADIUS_M  # noqa: E402
+from vfactor.trajectory import orbit_facts  # noqa: E402
+
+
+def polar_orbit_at_beta(altitude_km, beta_deg, shadow, steps_per_orbit=72, **extra):
+    """Polar orbit whose plane is beta_deg from the Sun at the epoch (Sun near the equator:
+    Omega = RA_sun + beta gives sin beta' = cos(dec) sin(beta))."""
+    ra, _, _ = ephemeris.sun_ra_dec([EPOCH])
+    table = {"altitude_km": altitude_km, "inclination_deg": 90.0,
+             "raan_deg": math.degrees(ra[0]) + beta_deg, "epoch": EPOCH,
+             "steps_per_orbit": steps_per_orbit, "shadow": shadow}
+    table.update(extra)
+    orbit = orbit_from_table(table)
+    return orbit, compute_trajectory(orbit, attitude_from_table(None), shadow=shadow)
+
+
+def beta_at(tr, time_s):
+    return float(np.interp(time_s, tr.time, tr.beta))
+
+
+@pytest.mark.parametrize("altitude_km", [400.0, 600.0, 800.0])
+def test_penumbra_duration_from_geometry(altitude_km):
+    orbit, tr = polar_orbit_at_beta(altitude_km, 0.0, "conical")
+    facts = orbit_facts(tr)
+    assert len(facts.eclipses) == 1 and facts.eclipses[0].complete
+    # Derived from the geometry: at beta = 0 on a circular orbit the direction to the
+    # planet centre turns at the orbital rate n, so the separation c of the two disk
+    # centres sweeps the penumbra band b - a < c < a + b (width 2a, a = asin(R_sun/d),
+    # Montenbruck & Gill 2000 §3.4.2) in 2a/n, at entry and at exit.
+    n = 2 * math.pi / orbit.period
+    a = math.asin(SUN_RADIUS_M / float(np.mean(tr.sun_distance)))
+    expected = 2 * (2 * a / n)
+    # 0.1 s: the Sun's motion (1 deg/day) and the residual beta (< 0.1 deg) change the
+    # sweep rate by under 0.5 %
+    assert facts.penumbra_s == pytest.approx(expected, abs=0.1)
+    # common practice: "a few seconds" per crossing in LEO, about 8-10 s at these heights
+    assert 8.0 < facts.penumbra_s / 2 < 10.0
+
+
+@pytest.mark.parametrize("altitude_km, beta_deg", [(400.0, 0.0), (500.0, 30.0),
+                                                   (800.0, 55.0), (1200.0, 40.0)])
+def test_cylindrical_eclipse_duration_against_gilmore(altitude_km, beta_deg):
+    orbit, tr = polar_orbit_at_beta(altitude_km, beta_deg, "cylindrical")
+    facts = orbit_facts(tr)
+    (passage,) = facts.eclipses
+    h = altitude_km * 1e3
+    beta = beta_at(tr, 0.5 * (passage.start_s + passage.end_s))
+    # Gilmore, Spacecraft Thermal Control Handbook, Vol. I, 2nd ed., 2002, ch. 2:
+    # f_E = (1/180 deg) acos(sqrt(h^2 + 2 R h) / ((R + h) cos beta))
+    r = EARTH_EQUATORIAL_RADIUS_M
+    f_e = math.degrees(math.acos(math.sqrt(h * h + 2 * r * h) / ((r + h) * math.cos(beta)))) / 180
+    # 1 s: the closed form holds beta fixed; here it drifts by < 0.1 deg over the passage
+    assert passage.duration_s == pytest.approx(f_e * orbit.period, abs=1.0)
+    assert passage.penumbra_s == 0.0 and passage.umbra_s == passage.duration_s
+    assert facts.eclipse_share == pytest.approx(f_e, abs=1.0 / orbit.period)
+
+
+def test_conical_umbra_shorter_than_cylindrical_shadow():
+    _, conical = polar_orbit_at_beta(600.0, 20.0, "conical")
+    _, cylindrical = polar_orbit_at_beta(600.0, 20.0, "cylindrical")
+    cone, cyl = orbit_facts(conical).eclipses[0], orbit_facts(cylindrical).eclipses[0]
+    assert cone.umbra_s < cyl.duration_s < cone.duration_s
+
+
+def test_no_eclipse_above_critical_beta():
+    # beta* = asin(R / (R + h)) = 64.2 deg at 800 km (Gilmore 2002, ch. 2)
+    _, tr = polar_orbit_at_beta(800.0, 66.0, "conical")
+    facts = orbit_facts(tr)
+    assert facts.eclipses == () and facts.eclipse_share == 0.0 and facts.longest_eclipse_s == 0.0
+
+
+def test_eclipse_cut_by_the_span_is_joined_on_a_whole_orbit():
+    # start in the middle of the shadow: the passage wraps around the end of the span
+    _, reference = polar_orbit_at_beta(500.0, 10.0, "conical")
+    ref = orbit_facts(reference).eclipses[0]
+    middle = 0.5 * (ref.start_s + ref.end_s)
+    u0 = 360.0 * middle / reference.period
+    _, wrapped = polar_orbit_at_beta(500.0, 10.0, "conical", argument_of_latitude_deg=u0)
+    facts = orbit_facts(wrapped)
+    (passage,) = facts.eclipses
+    assert passage.complete and passage.start_s < facts.span_s < passage.end_s
+    # same passage, within 0.5 s (the Sun moved by half an orbit between the two cases)
+    assert passage.duration_s == pytest.approx(ref.duration_s, abs=0.5)
+    assert passage.penumbra_s == pytest.approx(ref.penumbra_s, abs=0.05)
+
+
+def test_facts_ranges_on_an_elliptic_orbit():
+    orbit = orbit_from_table({"type": "elements", "perigee_km": 350.0, "apogee_km": 1400.0,
+                              "inclination_deg": 30.0, "raan_deg": 10.0, "epoch": EPOCH,
+                              "steps_per_orbit": 360, "orbits": 3})
+    tr = compute_trajectory(orbit, attitude_from_table(None))
+    facts = orbit_facts(tr)
+    # 360 samples per orbit: extremes sampled within 1 degree of anomaly (< 1 km)
+    assert facts.altitude_min_km == pytest.approx(350.0, abs=1.0)
+    assert facts.altitude_max_km == pytest.approx(1400.0, abs=1.0)
+    assert facts.period_s == orbit.period and facts.span_s == pytest.approx(3 * orbit.period)
+    assert facts.beta_min_deg <= facts.beta_max_deg
+    assert len(facts.eclipses) == 3
+    # the share from the located contacts agrees with the share of sampled steps in shadow
+    # within two steps per passage
+    sampled = float(np.mean(tr.sun_fraction < 1.0))
+    assert facts.eclipse_share == pytest.approx(sampled, abs=2 * 3 / orbit.n_steps)
