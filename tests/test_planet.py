@@ -31,3 +31,11 @@ def test_planet_is_frozen_and_validated():
     mars = Planet("Mars", radius=3_396_200.0, gm=4.282837e13, j2=1.96045e-3,
                   rotation_rate=7.088218e-5)  # from memory (Mars GM and J2: JPL, rounded)
     assert mars != EARTH
+
+
+def test_planet_by_name():
+    from vfactor.planet import planet_by_name
+
+    assert planet_by_name("earth") is EARTH and planet_by_name(EARTH) is EARTH
+    with pytest.raises(ValueError, match="'Vulcan'"):
+        planet_by_name("Vulcan")

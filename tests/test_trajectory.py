@@ -201,3 +201,15 @@ def test_facts_ranges_on_an_elliptic_orbit():
     # within two steps per passage
     sampled = float(np.mean(tr.sun_fraction < 1.0))
     assert facts.eclipse_share == pytest.approx(sampled, abs=2 * 3 / orbit.n_steps)
+
+
+def test_facts_of_a_trajectory_read_back_from_a_results_file():
+    # h5io stores the planet by name and positions in km; the facts must not change
+    # beyond the float round trip (1 ms)
+    import dataclasses
+
+    _, tr = polar_orbit_at_beta(500.0, 25.0, "conical")
+    by_name = dataclasses.replace(tr, planet="Earth")
+    a, b = orbit_facts(tr), orbit_facts(by_name)
+    assert b.longest_eclipse_s == pytest.approx(a.longest_eclipse_s, abs=1e-3)
+    assert b.penumbra_s == pytest.approx(a.penumbra_s, abs=1e-3)

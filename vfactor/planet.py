@@ -17,7 +17,7 @@ from vfactor.constants import (
     EARTH_ROTATION_RATE_RAD_S,
 )
 
-__all__ = ["Planet", "EARTH"]
+__all__ = ["Planet", "EARTH", "planet_by_name"]
 
 
 @dataclass(frozen=True)
@@ -68,3 +68,25 @@ EARTH = Planet(
     rotation_rate=EARTH_ROTATION_RATE_RAD_S,
 )
 """Earth with WGS 84 radius, GM and rotation rate and the EGM96 J2 (see vfactor.constants)."""
+
+
+_KNOWN = {EARTH.name.lower(): EARTH}
+
+
+def planet_by_name(name) -> Planet:
+    """The built-in :class:`Planet` of that name (case-insensitive), or ``name`` itself if it
+    already is a Planet. Used where a trajectory was read back from a results file, which
+    stores the planet by name.
+
+    Raises
+    ------
+    ValueError
+        When the name is not a built-in planet.
+    """
+    if isinstance(name, Planet):
+        return name
+    key = str(name).strip().lower()
+    if key not in _KNOWN:
+        raise ValueError(f"unknown planet {name!r}; built in: "
+                         f"{', '.join(p.name for p in _KNOWN.values())}")
+    return _KNOWN[key]

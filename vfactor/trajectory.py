@@ -14,7 +14,7 @@ import numpy as np
 from vfactor import eclipse, ephemeris
 from vfactor.attitude import attitude_from_table
 from vfactor.orbit import orbit_from_table
-from vfactor.planet import EARTH, Planet
+from vfactor.planet import EARTH, Planet, planet_by_name
 
 __all__ = ["Trajectory", "compute_trajectory", "trajectory_from_model", "orbit_facts",
            "OrbitFacts", "Eclipse"]
@@ -298,6 +298,7 @@ def orbit_facts(trajectory: Trajectory) -> OrbitFacts:
     Parameters
     ----------
     trajectory : Trajectory
+        As computed, or as read back from a results file (``planet`` given by name).
 
     Returns
     -------
@@ -305,7 +306,7 @@ def orbit_facts(trajectory: Trajectory) -> OrbitFacts:
         See its Notes for how shadow contacts are found between samples.
     """
     tr = trajectory
-    planet = tr.planet
+    planet = planet_by_name(tr.planet)
     model = tr.shadow_model
     altitude_km = (tr.planet_distance - planet.radius) / 1e3
     beta_deg = np.degrees(tr.beta)
