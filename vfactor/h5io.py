@@ -86,22 +86,26 @@ def _put(group, name, data, units, description, *, compress=False):
 
 
 def _time_weights(time: np.ndarray) -> np.ndarray:
-    """Duration each sample stands for [s]: the interval to the next sample (the last sample
-    takes the previous interval). For evenly spaced steps over whole orbits this makes the
-    weighted mean the plain mean of the steps (rectangle rule of a periodic signal)."""
+    """Duration each step stands for [s]: from the midpoint to the previous step to the
+    midpoint to the next (the first and last steps take their one neighbouring interval),
+    as :func:`vfactor.heating.step_weights`. Evenly spaced steps weigh the same, so the
+    average over a whole orbit sampled at even steps is the plain mean of the steps."""
     t = np.asarray(time, dtype=float)
     if t.size == 0:
         return t
     if t.size == 1:
         return np.ones(1)
     dt = np.diff(t)
-    return np.append(dt, dt[-1])
+    w = np.empty_like(t)
+    w[0], w[-1] = dt[0], dt[-1]
+    w[1:-1] = 0.5 * (dt[:-1] + dt[1:])
+    return w
 
 
 def node_averages(values: np.ndarray, time: np.ndarray) -> np.ndarray:
     """Time-weighted average over the steps of ``values`` (t, k) -> (k,).
 
-    Uses :func:`_time_weights` (rectangle rule; the plain mean for even steps).
+    Uses :func:`_time_weights` (midpoint weights; the plain mean for even steps).
     """
     w = _time_weights(time)
     return (np.asarray(values, dtype=float) * w[:, None]).sum(axis=0) / w.sum()
@@ -219,6 +223,8 @@ def _write_trajectory(root, tr: Trajectory):
     radius = getattr(planet, "radius", None)
     if radius is not None:
         g.attrs["planet_radius_m"] = float(radius)
+    g.attrs["shadow_model"] = str(getattr(tr, "shadow_model", ""))
+    g.attrs["attitude_note"] = str(getattr(tr, "attitude_note", ""))
     _put(g, "time", tr.time, "s", f"time since the epoch {tr.epoch_utc}")
     _put(g, "position", np.asarray(tr.position) / 1e3, "km",
          "vehicle position, planet-centred inertial (ICRF axes)")
@@ -250,6 +256,22 @@ def _write_heating(root, heat: Heating, time):
         _put(g, f"incident_{src}", getattr(heat, f"incident_{src}"), "W",
              f"incident {names[src]} power per step and node, before absorption")
     _put(g, "solar_constant", heat.solar_constant, "W m-2", "solar irradiance used at each step")
+    for src in _SOURCES:
+        value = getattr(heat, f"node_{src}_stderr", None)
+        if value is not None:
+            _put(g, f"{src}_stderr", value, "W",
+                 f"one-sigma Monte Carlo error of the directly absorbed {names[src]} per node")
+        value = getattr(heat, f"escaped_{src}", None)
+        if value is not None:
+            _put(g, f"escaped_{src}", value, "W",
+                 f"{names[src]} power reflected by the vehicle that left it, per step")
+        value = getattr(heat, f"inert_{src}", None)
+        if value is not None:
+            _put(g, f"inert_{src}", value, "W",
+                 f"reflected {names[src]} power that ended on inert sides, per step")
+    for key in ("rays_per_facet", "sun_samples", "seed"):
+        if hasattr(heat, key):
+            g.attrs[key] = int(getattr(heat, key))
     f = g.create_group("facet")
     for src in _SOURCES:
         _put(f, src, getattr(heat, f"facet_{src}"), "W m-2",
@@ -473,7 +495,12 @@ def _read_exchange(g) -> Exchange:
 
 
 def _read_trajectory(g) -> Trajectory:
-    return Trajectory(
+    import dataclasses
+
+    known = {x.name for x in dataclasses.fields(Trajectory)}
+    extra = {k: _attr(g.attrs[k]) for k in ("shadow_model", "attitude_note")
+             if k in known and k in g.attrs}
+    return Trajectory(**extra,
         epoch_utc=_attr(g.attrs["epoch"]), time=g["time"][()],
         position=g["position"][()] * 1e3, velocity=g["velocity"][()] * 1e3,
         sun_inertial=g["sun_inertial"][()], sun_distance=g["sun_distance"][()] * 1e3,
@@ -483,9 +510,23 @@ def _read_trajectory(g) -> Trajectory:
         period=float(g.attrs["period_s"]), planet=_attr(g.attrs["planet"]))
 
 
-def _read_heating(g) -> Heating:
+def _read_heating(g, time) -> Heating:
+    import dataclasses
+
     f = g["facet"]
-    return Heating(
+    known = {x.name for x in dataclasses.fields(Heating)}
+    extra = {}
+    for src in _SOURCES:
+        for ds, name in ((f"{src}_stderr", f"node_{src}_stderr"),
+                         (f"escaped_{src}", f"escaped_{src}"), (f"inert_{src}", f"inert_{src}")):
+            if ds in g and name in known:
+                extra[name] = g[ds][()]
+    for key in ("rays_per_facet", "sun_samples", "seed"):
+        if key in g.attrs and key in known:
+            extra[key] = int(g.attrs[key])
+    if "time" in known and time is not None:
+        extra["time"] = time
+    return Heating(**extra,
         node_solar=g["solar"][()], node_albedo=g["albedo"][()],
         node_planet_ir=g["planet_ir"][()], facet_solar=f["solar"][()],
         facet_albedo=f["albedo"][()], facet_planet_ir=f["planet_ir"][()],
@@ -538,7 +579,8 @@ def read_results(path) -> Results:
             vf = _read_view_factors(h["view_factors"]) if "view_factors" in h else None
             ex = _read_exchange(h["exchange"]) if "exchange" in h else None
             tr = _read_trajectory(h["orbit"]) if "orbit" in h else None
-            heat = _read_heating(h["heating"]) if "heating" in h else None
+            heat = (_read_heating(h["heating"], None if tr is None else tr.time)
+                    if "heating" in h else None)
             orbit_attrs = {k: _attr(v) for k, v in h["orbit"].attrs.items()} if "orbit" in h else {}
             node_avg = facet_avg = None
             if "heating" in h and "average" in h["heating"]:

@@ -16,7 +16,7 @@ from __future__ import annotations
 import sys
 from contextlib import contextmanager
 
-__all__ = ["Reporter", "NullReporter", "RichReporter", "make_reporter"]
+__all__ = ["Reporter", "NullReporter", "RichReporter", "LineReporter", "make_reporter"]
 
 
 class _NullBar:
@@ -99,10 +99,53 @@ def _si(value: float) -> str:
     return f"{value:.0f}"
 
 
-def make_reporter(quiet: bool = False, stream=None) -> Reporter:
+class _CountBar:
+    def __init__(self):
+        self.done = 0
+        self.total = 0
+
+    def advance(self, n: int = 1) -> None:
+        self.done += int(n)
+
+    def set_total(self, total: int) -> None:
+        self.total = int(total)
+
+
+class LineReporter(Reporter):
+    """Plain lines on a stream (no terminal needed): one when a stage starts, one when it
+    ends with the work done, the time taken and the rate; messages as they come. Used for
+    ``--verbose`` when standard error is not a terminal (logs, CI)."""
+
+    def __init__(self, stream=None):
+        self._stream = stream or sys.stderr
+
+    @contextmanager
+    def stage(self, description: str, total: int, unit: str = "items"):
+        import time
+
+        bar = _CountBar()
+        bar.total = int(total)
+        print(f"{description}: {int(total):,} {unit} ...", file=self._stream, flush=True)
+        start = time.perf_counter()
+        yield bar
+        seconds = time.perf_counter() - start
+        rate = f", {_si(bar.done / seconds)} {unit}/s" if seconds > 0 and bar.done else ""
+        print(f"{description}: done, {bar.done:,} {unit} in {seconds:.1f} s{rate}",
+              file=self._stream, flush=True)
+
+    def message(self, text: str) -> None:
+        print(text, file=self._stream, flush=True)
+
+
+def make_reporter(quiet: bool = False, stream=None, verbose: bool = False) -> Reporter:
     """A rich progress bar when ``stream`` (default standard error) is a terminal and
-    ``quiet`` is false; a silent reporter otherwise."""
+    ``quiet`` is false; plain stage lines when ``verbose`` and not a terminal; a silent
+    reporter otherwise."""
     stream = stream or sys.stderr
-    if quiet or not getattr(stream, "isatty", lambda: False)():
+    if quiet:
         return NullReporter()
-    return RichReporter(stream)
+    if getattr(stream, "isatty", lambda: False)():
+        return RichReporter(stream)
+    if verbose:
+        return LineReporter(stream)
+    return NullReporter()

@@ -1,0 +1,322 @@
+"""The ``vfactor`` command line (ARCHITECTURE section 5): argparse only, no physics.
+
+Exit codes: 0 success; 1 runtime failure (an internal error: one line, the traceback only
+with ``--verbose``); 2 bad input (a model, mesh, results file or argument that cannot be
+used: one line ``vfactor: error: <message>`` on standard error, never a traceback).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import traceback
+from pathlib import Path
+
+from .errors import VfactorError
+
+__all__ = ["main", "build_parser"]
+
+PROG = "vfactor"
+
+
+def _version() -> str:
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        return version("vfactor")
+    except PackageNotFoundError:  # pragma: no cover - uninstalled source tree
+        return "0+unknown"
+
+
+class _Formatter(argparse.RawDescriptionHelpFormatter):
+    """Keeps the line breaks of descriptions and examples."""
+
+
+def _common() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(add_help=False)
+    g = p.add_argument_group("output")
+    g.add_argument("-q", "--quiet", action="store_true", default=argparse.SUPPRESS,
+                   help="print nothing but errors (no progress bar, no summary lines)")
+    g.add_argument("-v", "--verbose", action="store_true", default=argparse.SUPPRESS,
+                   help="report each stage on standard error; full traceback on internal errors")
+    return p
+
+
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text.replace("_", ""))
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be at least 1, got {value}")
+    return value
+
+
+def _seed(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if not 0 <= value < 2 ** 63:
+        raise argparse.ArgumentTypeError(f"must be between 0 and 2**63 - 1, got {value}")
+    return value
+
+
+def _threshold(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+    if not value >= 0:
+        raise argparse.ArgumentTypeError(f"must be >= 0, got {text}")
+    return value
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of the ``vfactor`` command."""
+    common = _common()
+    parser = argparse.ArgumentParser(
+        prog=PROG, formatter_class=_Formatter,
+        description="Monte Carlo radiative couplings (view factors, Gebhart factors, exchange "
+                    "areas)\nand orbital heat loads (solar, albedo, planet IR) of a "
+                    "spacecraft, from a\ntriangulated model, into one HDF5 file for a thermal "
+                    "network solver.",
+        epilog="examples:\n"
+               "  vfactor demo                         # copy and run the invented demo model\n"
+               "  vfactor check sat.toml\n"
+               "  vfactor run sat.toml -o sat.h5 --workers 2\n"
+               "  vfactor summary sat.h5\n"
+               "  vfactor plot sat.h5 -o figures\n"
+               "  vfactor export sat.h5 --format csv -o tables\n\n"
+               "exit codes: 0 success, 1 runtime failure, 2 bad input (model, mesh, "
+               "arguments).\nRun `vfactor COMMAND --help` for the options of a command.")
+    parser.add_argument("--version", action="version", version=f"%(prog)s {_version()}")
+    parser.add_argument("-q", "--quiet", action="store_true", default=False,
+                        help="print nothing but errors")
+    parser.add_argument("-v", "--verbose", action="store_true", default=False,
+                        help="report each stage; full traceback on internal errors")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", title="commands")
+
+    p = sub.add_parser(
+        "check", parents=[common], formatter_class=_Formatter,
+        help="validate a model file and its geometry, list problems",
+        description="Read MODEL, build its geometry and list every problem found.\n"
+                    "Exit 0 when the model can be run (warnings allowed), 2 when it cannot.",
+        epilog="examples:\n  vfactor check meshes/demo.toml\n  vfactor check sat.toml || echo 'fix the model first'")
+    p.add_argument("model", metavar="MODEL", help="model file (TOML)")
+    p.set_defaults(func=_cmd_check)
+
+    p = sub.add_parser(
+        "run", parents=[common], formatter_class=_Formatter,
+        help="compute couplings (and heat loads when the model has an orbit)",
+        description="Compute view factors, Gebhart factors and exchange areas of MODEL, and,\n"
+                    "when the model has an [orbit], the trajectory and the absorbed solar, "
+                    "albedo\nand planet-IR heat loads; write everything to one HDF5 file.\n"
+                    "The file is written under a temporary name and renamed when complete.",
+        epilog="examples:\n"
+               "  vfactor run sat.toml -o sat.h5\n"
+               "  vfactor run sat.toml -o sat.h5 --rays 1000000 --seed 7\n"
+               "  vfactor run sat.toml -o sat.h5 --workers 2 --resume\n"
+               "  vfactor run sat.toml -o sat.h5 --scheduler tcp://10.0.0.5:8786   # needs the dask extra\n\n"
+               "Results are bit-identical for any --workers, --scheduler or --resume at a "
+               "given seed.")
+    p.add_argument("model", metavar="MODEL", help="model file (TOML)")
+    p.add_argument("-o", "--output", metavar="OUT.h5", required=True, help="results file to write")
+    p.add_argument("--rays", metavar="N", type=_positive_int,
+                   help="rays emitted per node (default: [radiation] rays_per_node of the model)")
+    p.add_argument("--seed", metavar="S", type=_seed,
+                   help="random seed (default: [radiation] seed of the model)")
+    par = p.add_mutually_exclusive_group()
+    par.add_argument("--workers", metavar="N", type=_positive_int, default=1,
+                     help="processes on this machine that share the ray tracing (default 1)")
+    par.add_argument("--scheduler", metavar="ADDRESS",
+                     help="dask.distributed scheduler to share the ray tracing with "
+                          "(pip install 'vfactor[dask]')")
+    p.add_argument("--resume", action="store_true",
+                   help="keep finished work in OUT.h5.partial and continue from it on a rerun")
+    p.add_argument("--facet-factors", action="store_true",
+                   help="also store facet-to-node view factors (sparse) in the results")
+    p.set_defaults(func=_cmd_run)
+
+    p = sub.add_parser(
+        "summary", parents=[common], formatter_class=_Formatter,
+        help="print tables of nodes, couplings and orbit heat loads",
+        description="Print the provenance of a run, the node table, the strongest couplings\n"
+                    "with their statistical error, couplings to space, orbit facts, the "
+                    "per-node\nheat loads and the cautions that go with them.",
+        epilog="examples:\n  vfactor summary sat.h5\n  vfactor summary sat.h5 --top 40\n"
+               "  vfactor summary sat.h5 --json > sat-summary.json")
+    p.add_argument("results", metavar="OUT.h5", help="results file of `vfactor run`")
+    p.add_argument("--json", action="store_true", help="machine-readable JSON instead of text")
+    p.add_argument("--top", metavar="N", type=_positive_int, default=15,
+                   help="number of strongest node-pair couplings to list (default 15)")
+    p.set_defaults(func=_cmd_summary)
+
+    p = sub.add_parser(
+        "plot", parents=[common], formatter_class=_Formatter,
+        help="write PNG figures of a run",
+        description="Write PNG figures: absorbed heat per node along the orbit, the "
+                    "time-averaged\nabsorbed flux on the geometry, the coupling matrix and "
+                    "the orbit geometry.",
+        epilog="examples:\n  vfactor plot sat.h5 -o figures")
+    p.add_argument("results", metavar="OUT.h5", help="results file of `vfactor run`")
+    p.add_argument("-o", "--output", metavar="DIR", required=True,
+                   help="folder for the figures (created if missing)")
+    p.set_defaults(func=_cmd_plot)
+
+    p = sub.add_parser(
+        "export", parents=[common], formatter_class=_Formatter,
+        help="export CSV tables, or per-facet results as VTK / glTF",
+        description="csv : nodes.csv, couplings.csv, heat_loads.csv in folder PATH (units in "
+                    "the header)\nvtk : PATH.vtu, facets with per-facet results as cell data "
+                    "(ParaView)\ngltf: PATH.glb, facets coloured by the time-averaged absorbed "
+                    "flux",
+        epilog="examples:\n  vfactor export sat.h5 --format csv -o tables\n"
+               "  vfactor export sat.h5 --format csv -o tables --threshold 1e-3\n"
+               "  vfactor export sat.h5 --format vtk -o sat.vtu\n"
+               "  vfactor export sat.h5 --format gltf -o sat.glb")
+    p.add_argument("results", metavar="OUT.h5", help="results file of `vfactor run`")
+    p.add_argument("--format", required=True, choices=("csv", "vtk", "gltf"),
+                   help="output format")
+    p.add_argument("-o", "--output", metavar="PATH", required=True,
+                   help="folder (csv) or file (vtk, gltf)")
+    p.add_argument("--threshold", metavar="X", type=_threshold, default=None,
+                   help="csv: smallest view factor or Gebhart factor listed in couplings.csv "
+                        "(default 1e-4)")
+    p.set_defaults(func=_cmd_export)
+
+    p = sub.add_parser(
+        "demo", parents=[common], formatter_class=_Formatter,
+        help="copy the invented demo model to DIR and run it",
+        description="Copy the demo model (an invented small satellite) into DIR and run "
+                    "check,\nrun, summary and plot on it; print where the outputs are.",
+        epilog="examples:\n  vfactor demo\n  vfactor demo my-demo --rays 20000")
+    p.add_argument("folder", metavar="DIR", nargs="?", default="vfactor-demo",
+                   help="folder to create or reuse (default vfactor-demo)")
+    p.add_argument("--rays", metavar="N", type=_positive_int,
+                   help="rays per node (default: the demo model's own setting)")
+    p.add_argument("--workers", metavar="N", type=_positive_int, default=1,
+                   help="processes sharing the ray tracing (default 1)")
+    p.set_defaults(func=_cmd_demo)
+    return parser
+
+
+# ---------------------------------------------------------------------------------------
+# Commands
+# ---------------------------------------------------------------------------------------
+def _say(args, text: str) -> None:
+    if not args.quiet:
+        print(text, flush=True)
+
+
+def _reporter(args):
+    from .progress import make_reporter
+
+    return make_reporter(quiet=args.quiet, verbose=args.verbose)
+
+
+def _cmd_check(args) -> int:
+    from .checks import check_model, format_check_report
+
+    report = check_model(args.model)
+    text = format_check_report(report)
+    if report.ok:
+        _say(args, text.rstrip("\n"))
+        return 0
+    print(text.rstrip("\n"), flush=True)
+    return 2
+
+
+def _cmd_run(args) -> int:
+    from .pipeline import run
+
+    result = run(args.model, args.output, rays=args.rays, seed=args.seed, workers=args.workers,
+                 scheduler=args.scheduler, resume=args.resume, facet_factors=args.facet_factors,
+                 reporter=_reporter(args))
+    _say(args, result.describe())
+    return 0
+
+
+def _cmd_summary(args) -> int:
+    from .h5io import read_results
+    from .summary import format_summary, summarize, to_json
+
+    results = read_results(args.results)
+    if args.json:
+        print(to_json(summarize(results, top=args.top)))
+    else:
+        print(format_summary(results, top=args.top), end="")
+    return 0
+
+
+def _cmd_plot(args) -> int:
+    from .h5io import read_results
+    from .plots import plot_all
+
+    files = plot_all(read_results(args.results), args.output)
+    for f in files:
+        _say(args, f"wrote {f}")
+    return 0
+
+
+def _cmd_export(args) -> int:
+    from .export import DEFAULT_THRESHOLD, export
+    from .h5io import read_results
+
+    threshold = DEFAULT_THRESHOLD if args.threshold is None else args.threshold
+    files = export(read_results(args.results), args.format, args.output, threshold=threshold)
+    for f in files:
+        _say(args, f"wrote {f}")
+    return 0
+
+
+def _cmd_demo(args) -> int:
+    from .demo import run_demo
+
+    return run_demo(Path(args.folder), rays=args.rays, workers=args.workers, quiet=args.quiet,
+                    verbose=args.verbose)
+
+
+# ---------------------------------------------------------------------------------------
+# Entry point
+# ---------------------------------------------------------------------------------------
+def _one_line(text: str) -> str:
+    return " ".join(str(text).split())
+
+
+def main(argv=None) -> int:
+    """Run the command line with ``argv`` (default ``sys.argv[1:]``); return the exit code."""
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # --help, --version (0) and bad arguments (2)
+        return int(exc.code) if isinstance(exc.code, int) else (0 if exc.code is None else 2)
+    for flag in ("quiet", "verbose"):
+        if not hasattr(args, flag):
+            setattr(args, flag, False)
+    if args.command is None:
+        parser.print_help(sys.stderr)
+        return 2
+    try:
+        return int(args.func(args))
+    except VfactorError as exc:
+        if args.verbose:
+            traceback.print_exc()
+        print(f"{PROG}: error: {_one_line(exc)}", file=sys.stderr, flush=True)
+        return 2
+    except KeyboardInterrupt:
+        print(f"{PROG}: interrupted", file=sys.stderr, flush=True)
+        return 1
+    except Exception as exc:  # noqa: BLE001 - the one place every other failure is reported
+        if args.verbose:
+            traceback.print_exc()
+            print(f"{PROG}: internal error: {type(exc).__name__}: {_one_line(exc)}",
+                  file=sys.stderr, flush=True)
+        else:
+            print(f"{PROG}: internal error: {type(exc).__name__}: {_one_line(exc)} "
+                  "(run with --verbose for the traceback)", file=sys.stderr, flush=True)
+        return 1
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,127 @@
+"""``vfactor demo [DIR]``: copy the invented demo satellite and run the whole chain on it.
+
+Where the demo model comes from
+-------------------------------
+The demo model lives in the source tree as ``meshes/demo.toml`` with its mesh files
+(``meshes/camera.stl``). :func:`demo_source` looks for it, in this order:
+
+1. ``vfactor/data/demo/`` inside the installed package (package data; a wheel built from
+   the source tree carries it because ``vfactor/data/demo`` is a link to ``meshes/``);
+2. ``meshes/`` beside the ``vfactor`` package folder, i.e. the source tree of an editable
+   install (``pip install -e .``, what ``make demo`` does).
+
+The copy goes to ``DIR`` (default ``vfactor-demo``); a ``demo.toml`` already in ``DIR`` that
+differs from the shipped one is kept (it is the user's), and said so.
+"""
+
+from __future__ import annotations
+
+import filecmp
+import shutil
+import sys
+import time
+import tomllib
+from pathlib import Path
+
+from .errors import VfactorError
+
+__all__ = ["DEMO_MODEL", "demo_source", "copy_demo", "run_demo"]
+
+DEMO_MODEL = "demo.toml"
+
+
+def demo_source() -> Path:
+    """Folder holding ``demo.toml`` and its mesh files (see the module notes)."""
+    here = Path(__file__).resolve().parent
+    for folder in (here / "data" / "demo", here.parent / "meshes"):
+        if (folder / DEMO_MODEL).is_file():
+            return folder
+    raise VfactorError(f"the demo model {DEMO_MODEL} is not installed (looked in "
+                       f"{here / 'data' / 'demo'} and {here.parent / 'meshes'})")
+
+
+def _mesh_files(model_file: Path) -> list:
+    doc = tomllib.loads(model_file.read_text(encoding="utf-8"))
+    return [p["file"] for p in doc.get("parts", []) if isinstance(p, dict) and "file" in p]
+
+
+def copy_demo(folder) -> tuple:
+    """Copy the demo model and its meshes into ``folder``.
+
+    Returns
+    -------
+    (pathlib.Path, list of str)
+        The model file in ``folder`` and notes for the user (files kept as they were).
+    """
+    folder = Path(folder)
+    if folder.exists() and not folder.is_dir():
+        raise VfactorError(f"{folder}: exists and is not a folder; give another DIR")
+    folder.mkdir(parents=True, exist_ok=True)
+    src = demo_source()
+    notes = []
+    for name in [DEMO_MODEL] + _mesh_files(src / DEMO_MODEL):
+        s, d = src / name, folder / name
+        d.parent.mkdir(parents=True, exist_ok=True)
+        if d.exists() and not filecmp.cmp(s, d, shallow=False):
+            notes.append(f"kept your own {d} (differs from the shipped demo file)")
+            continue
+        if not d.exists():
+            shutil.copyfile(s, d)
+    return folder / DEMO_MODEL, notes
+
+
+def run_demo(folder, *, rays=None, workers=1, quiet=False, verbose=False) -> int:
+    """Copy the demo model into ``folder`` and run check, run, summary, plot and export.
+
+    Returns the exit code (0, or 2 when the check finds errors).
+    """
+    from .checks import check_model, format_check_report
+    from .export import export
+    from .h5io import read_results
+    from .pipeline import run
+    from .plots import plot_all
+    from .progress import make_reporter
+    from .summary import format_summary
+
+    def say(text=""):
+        if not quiet:
+            print(text, flush=True)
+
+    folder = Path(folder)
+    start = time.perf_counter()
+    model_file, notes = copy_demo(folder)
+    say(f"== vfactor demo: the invented satellite 'Kestrel-1' in {folder}/")
+    for n in notes:
+        say(f"   note: {n}")
+    say(f"\n== 1/5 check {model_file}")
+    report = check_model(model_file)
+    say(format_check_report(report).rstrip("\n"))
+    if not report.ok:
+        print(format_check_report(report).rstrip("\n") if quiet else "", end="", file=sys.stderr)
+        return 2
+    out = folder / "demo.h5"
+    say(f"\n== 2/5 run {model_file} -o {out}")
+    result = run(model_file, out, rays=rays, workers=workers,
+                 reporter=make_reporter(quiet=quiet, verbose=verbose))
+    say(result.describe())
+    results = read_results(out)
+    say(f"\n== 3/5 summary {out}")
+    say(format_summary(results).rstrip("\n"))
+    say(f"\n== 4/5 plot {out} -o {folder / 'figures'}")
+    figures = plot_all(results, folder / "figures")
+    for f in figures:
+        say(f"wrote {f}")
+    say(f"\n== 5/5 export {out} (csv, vtk, gltf)")
+    exported = export(results, "csv", folder / "tables")
+    exported += export(results, "vtk", folder / "demo.vtu")
+    exported += export(results, "gltf", folder / "demo.glb")
+    for f in exported:
+        say(f"wrote {f}")
+    say(f"\n== done in {time.perf_counter() - start:.0f} s. Outputs in {folder}/:")
+    say(f"   model       {model_file}  (edit it and rerun: vfactor run {model_file} -o {out})")
+    say(f"   results     {out}  (HDF5; `vfactor summary {out}`)")
+    say(f"   figures     {folder / 'figures'}/  ({', '.join(f.name for f in figures)})")
+    say(f"   CSV tables  {folder / 'tables'}/  (nodes.csv, couplings.csv"
+        + (", heat_loads.csv)" if results.heating is not None else ")"))
+    say(f"   meshes      {folder / 'demo.vtu'} (ParaView), {folder / 'demo.glb'} (glTF viewers)")
+    return 0

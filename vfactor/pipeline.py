@@ -1,0 +1,528 @@
+"""The one pipeline the command line calls: model -> geometry -> couplings -> heating -> file.
+
+:func:`run` loads the model, builds its geometry and ray-tracing scene, computes the view
+factors and the infrared exchange factors, and, when the model has an ``[orbit]``, the
+trajectory and the absorbed heat loads; then writes everything to one HDF5 file
+(:func:`vfactor.h5io.write_results`, atomic).
+
+Sharing the ray tracing
+-----------------------
+The view factors are summed from integer tallies of independent *rounds*
+(:func:`vfactor.radiation.trace_tallies`): one round of one node is a pure function of
+(geometry, seed, node, round, rays per round). The pipeline cuts the work into
+(round, block of nodes) jobs and sends them to
+
+* this process (``workers=1``),
+* ``workers`` processes on this machine (:class:`concurrent.futures.ProcessPoolExecutor`,
+  ``spawn`` start method; each process builds the scene once), or
+* a dask.distributed cluster (``scheduler="tcp://host:port"``; the optional ``dask``
+  extra), the geometry sent once to every worker.
+
+Integer sums do not depend on the order of addition, so the results are bit-identical for
+any of these and any number of workers.
+
+Resuming
+--------
+With ``resume=True`` finished jobs are kept in a checkpoint file beside the output
+(``OUT.h5.partial``, NumPy ``.npz`` content), written atomically every few seconds. A rerun
+with ``resume=True`` skips the jobs it holds and gives identical bits. The checkpoint
+records the model hash, seed, rays per round and node count; one from another model or
+seed is refused with a one-line error. It is removed when the results file is written.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .errors import ArgumentError, VfactorError
+from .progress import NullReporter
+
+__all__ = ["RunResult", "run", "checkpoint_path", "CHECKPOINT_SUFFIX"]
+
+CHECKPOINT_SUFFIX = ".partial"
+_CHECKPOINT_KIND = "vfactor-checkpoint-1"
+_CHECKPOINT_EVERY_S = 5.0
+
+
+@dataclass(frozen=True)
+class RunResult:
+    """What :func:`run` did.
+
+    Attributes
+    ----------
+    output : pathlib.Path — results file written
+    model : vfactor.model.Model
+    geometry : vfactor.geometry.Geometry
+    view_factors, exchange, trajectory, heating : results of each stage (None if not run)
+    seed : int
+    rays_per_node : int
+    workers : int — processes used for the ray tracing (1 in this process; 0 for dask)
+    elapsed_s : dict — stage name -> seconds
+    resumed_jobs : int — (round, node block) jobs taken from a checkpoint
+    notes : tuple of str — stages skipped and why
+    """
+
+    output: Path
+    model: object
+    geometry: object
+    view_factors: object = None
+    exchange: object = None
+    trajectory: object = None
+    heating: object = None
+    seed: int = 0
+    rays_per_node: int = 0
+    workers: int = 1
+    elapsed_s: dict = field(default_factory=dict)
+    resumed_jobs: int = 0
+    notes: tuple = ()
+
+    def describe(self) -> str:
+        """A few lines for the command line: what was written and how long it took."""
+        g = self.geometry
+        done = ["geometry"]
+        if self.view_factors is not None:
+            done.append("view factors")
+        if self.exchange is not None:
+            done.append("Gebhart factors")
+        if self.trajectory is not None:
+            done.append(f"orbit ({self.trajectory.n_steps} steps)")
+        if self.heating is not None:
+            done.append("heat loads")
+        size = self.output.stat().st_size / 1e6 if self.output.exists() else 0.0
+        lines = [f"wrote {self.output} ({size:.1f} MB): {', '.join(done)}",
+                 f"  {g.n_nodes} nodes, {g.n_facets} facets, {self.rays_per_node:,} rays per "
+                 f"node, seed {self.seed}, {self.elapsed_s.get('total', 0.0):.1f} s"]
+        if self.resumed_jobs:
+            lines.append(f"  {self.resumed_jobs} jobs taken from the checkpoint")
+        for n in self.notes:
+            lines.append(f"  note: {n}")
+        return "\n".join(lines)
+
+
+def checkpoint_path(output_path) -> Path:
+    """The checkpoint file of ``output_path``: the same name plus ``.partial``."""
+    p = Path(output_path)
+    return p.with_name(p.name + CHECKPOINT_SUFFIX)
+
+
+# ---------------------------------------------------------------------------------------
+# Argument checks
+# ---------------------------------------------------------------------------------------
+def _check_arguments(output_path, rays, seed, workers, scheduler):
+    if rays is not None and (not isinstance(rays, (int, np.integer)) or rays < 1):
+        raise ArgumentError(f"--rays must be a whole number >= 1, got {rays!r}")
+    if seed is not None and (not isinstance(seed, (int, np.integer)) or not 0 <= seed < 2 ** 63):
+        raise ArgumentError(f"--seed must be a whole number in [0, 2**63), got {seed!r}")
+    if not isinstance(workers, (int, np.integer)) or workers < 1:
+        raise ArgumentError(f"--workers must be a whole number >= 1, got {workers!r}")
+    if scheduler is not None and workers != 1:
+        raise ArgumentError("give either --workers or --scheduler, not both")
+    out = Path(output_path)
+    if out.is_dir():
+        raise ArgumentError(f"{out}: is a folder; give the results file name (e.g. {out}/run.h5)")
+    folder = out.parent if str(out.parent) else Path(".")
+    if not folder.is_dir():
+        raise ArgumentError(f"{out}: folder {folder} does not exist")
+    if not os.access(folder, os.W_OK):
+        raise ArgumentError(f"{out}: folder {folder} is not writable")
+    return out
+
+
+# ---------------------------------------------------------------------------------------
+# Jobs: (round, block of nodes) -> integer tallies
+# ---------------------------------------------------------------------------------------
+_WORKER_STATE: dict = {}
+
+
+def _node_blocks(n_nodes: int, parallel: int) -> list:
+    """Contiguous blocks of node indices; several per worker so that the load balances."""
+    if n_nodes == 0:
+        return []
+    count = min(n_nodes, max(1, 4 * parallel)) if parallel > 1 else 1
+    return [b for b in np.array_split(np.arange(n_nodes, dtype=np.int64), count) if b.size]
+
+
+def _init_worker(geometry, key):
+    """Process-pool initializer: keep the geometry and build its scene once per process."""
+    from .tracing.scene import Scene
+
+    _WORKER_STATE.clear()
+    _WORKER_STATE["key"] = key
+    _WORKER_STATE["geometry"] = geometry
+    _WORKER_STATE["scene"] = Scene.build(geometry.vertices, geometry.triangles)
+
+
+def _job_in_worker(nodes, seed, rays_per_round, round_index):
+    from .radiation import trace_tallies
+
+    return trace_tallies(_WORKER_STATE["geometry"], _WORKER_STATE["scene"], nodes, seed,
+                         rays_per_round, round_index)
+
+
+def _job_on_dask(geometry, key, nodes, seed, rays_per_round, round_index):
+    """Run one job on a dask worker, building the scene once per worker process."""
+    if _WORKER_STATE.get("key") != key:
+        _init_worker(geometry, key)
+    return _job_in_worker(nodes, seed, rays_per_round, round_index)
+
+
+class _SerialRunner:
+    workers = 1
+
+    def __init__(self, geometry, scene):
+        self.geometry, self.scene = geometry, scene
+
+    def map(self, jobs, seed, rays_per_round):
+        from .radiation import trace_tallies
+
+        for job in jobs:
+            nodes, r = job
+            yield job, trace_tallies(self.geometry, self.scene, nodes, seed, rays_per_round, r)
+
+    def close(self):
+        pass
+
+
+class _ProcessRunner:
+    def __init__(self, geometry, key, workers):
+        import multiprocessing
+        from concurrent.futures import ProcessPoolExecutor
+
+        self.workers = workers
+        self._pool = ProcessPoolExecutor(max_workers=workers,
+                                         mp_context=multiprocessing.get_context("spawn"),
+                                         initializer=_init_worker, initargs=(geometry, key))
+
+    def map(self, jobs, seed, rays_per_round):
+        from concurrent.futures import as_completed
+
+        futures = {self._pool.submit(_job_in_worker, nodes, seed, rays_per_round, r): (nodes, r)
+                   for nodes, r in jobs}
+        for fut in as_completed(futures):
+            yield futures[fut], fut.result()
+
+    def close(self):
+        self._pool.shutdown(wait=True, cancel_futures=True)
+
+
+class _DaskRunner:
+    workers = 0
+
+    def __init__(self, geometry, key, address):
+        try:
+            from distributed import Client
+        except ImportError:
+            raise ArgumentError("--scheduler needs dask.distributed: pip install "
+                                "'vfactor[dask]'") from None
+        try:
+            self._client = Client(address, timeout=30, set_as_default=False)
+        except (OSError, TimeoutError, ValueError) as exc:
+            raise ArgumentError(f"--scheduler {address}: cannot connect ({exc})") from None
+        self._geometry = self._client.scatter(geometry, broadcast=True)
+        self._key = key
+
+    def map(self, jobs, seed, rays_per_round):
+        from distributed import as_completed
+
+        futures = {}
+        for nodes, r in jobs:
+            fut = self._client.submit(_job_on_dask, self._geometry, self._key, nodes, seed,
+                                      rays_per_round, r, pure=False)
+            futures[fut] = (nodes, r)
+        for fut in as_completed(list(futures)):
+            yield futures[fut], fut.result()
+
+    def close(self):
+        self._client.close()
+
+
+# ---------------------------------------------------------------------------------------
+# Checkpoint
+# ---------------------------------------------------------------------------------------
+class _Checkpoint:
+    """Finished (round, node) tallies of one computation, kept beside the output file."""
+
+    def __init__(self, path: Path, *, model_sha256, seed, rays_per_round, n_nodes):
+        self.path = path
+        self.identity = {"model_sha256": str(model_sha256), "seed": int(seed),
+                         "rays_per_round": int(rays_per_round), "n_nodes": int(n_nodes)}
+        self.tallies: dict = {}   # (round, node) -> (n + 2,) int64
+        self._last = time.monotonic()
+
+    def load(self) -> int:
+        """Read an existing checkpoint; return how many (round, node) tallies it held."""
+        if not self.path.exists():
+            return 0
+        try:
+            with np.load(self.path, allow_pickle=False) as z:
+                kind = str(z["kind"])
+                ident = {"model_sha256": str(z["model_sha256"]), "seed": int(z["seed"]),
+                         "rays_per_round": int(z["rays_per_round"]),
+                         "n_nodes": int(z["n_nodes"])}
+                keys, rows = z["keys"], z["rows"]
+        except (OSError, KeyError, ValueError) as exc:
+            raise VfactorError(f"{self.path}: unreadable checkpoint ({exc}); delete it or run "
+                               "without --resume") from None
+        if kind != _CHECKPOINT_KIND:
+            raise VfactorError(f"{self.path}: not a vfactor checkpoint (kind {kind!r})")
+        for name, value in ident.items():
+            if value != self.identity[name]:
+                raise VfactorError(
+                    f"{self.path}: checkpoint belongs to another computation ({name} "
+                    f"{value!r}, this run {self.identity[name]!r}); delete it or run without "
+                    "--resume")
+        for (r, i), row in zip(keys, rows):
+            self.tallies[(int(r), int(i))] = row.astype(np.int64)
+        return len(self.tallies)
+
+    def add(self, round_index, nodes, tallies, force=False):
+        for i, row in zip(nodes, tallies):
+            self.tallies[(int(round_index), int(i))] = np.asarray(row, dtype=np.int64)
+        if force or time.monotonic() - self._last >= _CHECKPOINT_EVERY_S:
+            self.save()
+
+    def save(self):
+        keys = np.array(sorted(self.tallies), dtype=np.int64).reshape(-1, 2)
+        rows = (np.stack([self.tallies[tuple(k)] for k in keys]) if len(keys)
+                else np.zeros((0, self.identity["n_nodes"] + 2), np.int64))
+        fd, tmp = tempfile.mkstemp(prefix=f".{self.path.name}.", suffix=".tmp",
+                                   dir=self.path.parent)
+        try:
+            with os.fdopen(fd, "wb") as fh:
+                np.savez(fh, kind=_CHECKPOINT_KIND, keys=keys, rows=rows, **self.identity)
+            os.replace(tmp, self.path)
+        except BaseException:
+            if os.path.exists(tmp):
+                os.unlink(tmp)
+            raise
+        self._last = time.monotonic()
+
+    def remove(self):
+        if self.path.exists():
+            self.path.unlink()
+
+
+# ---------------------------------------------------------------------------------------
+# View factors over a runner
+# ---------------------------------------------------------------------------------------
+def _view_factors(radiation, model, geometry, scene, *, rays_per_node, seed, workers,
+                  scheduler, resume, facet_factors, checkpoint, reporter):
+    """View factors in this process, or by (round, node block) jobs over a runner.
+
+    The jobs are exactly the (node, round) pairs that
+    :func:`vfactor.radiation.compute_view_factors` traces, convergence rounds included, so
+    both routes give the same integer sums and hence the same bits.
+    """
+    settings = model.radiation
+    target = settings.target_error
+    max_rays = getattr(settings, "max_rays_per_node", None)
+    distributed = workers > 1 or scheduler is not None
+    if not distributed and not resume or facet_factors:
+        # facet-level factors need the per-ray record of the in-process kernel
+        vf = radiation.compute_view_factors(geometry, scene, rays_per_node=rays_per_node,
+                                            seed=seed, target_error=target,
+                                            max_rays_per_node=max_rays,
+                                            facet_factors=facet_factors, reporter=reporter)
+        return vf, 0
+    from .tracing.vf_kernels import MAX_ROUNDS
+
+    n = geometry.n_nodes
+    min_rounds = radiation.MIN_ROUNDS
+    m = -(-rays_per_node // min_rounds)
+    budget = 100 * rays_per_node if max_rays is None else int(max_rays)
+    max_rounds = min(MAX_ROUNDS, max(min_rounds, budget // m))
+    sums = radiation.TallySums.empty(n, m)
+    ckpt = None
+    resumed = 0
+    if resume:
+        ckpt = _Checkpoint(checkpoint, model_sha256=model.sha256, seed=seed,
+                           rays_per_round=m, n_nodes=n)
+        resumed_pairs = ckpt.load()
+        if resumed_pairs:
+            reporter.message(f"resuming: {resumed_pairs} (node, round) tallies from {checkpoint}")
+    key = f"{model.sha256}:{geometry.n_facets}"
+    if scheduler is not None:
+        runner = _DaskRunner(geometry, key, scheduler)
+    elif workers > 1:
+        runner = _ProcessRunner(geometry, key, workers)
+    else:
+        runner = _SerialRunner(geometry, scene)
+    try:
+        with reporter.stage("view factors", total=n * min_rounds * m, unit="rays") as bar:
+            pairs = [(r, i) for r in range(min_rounds) for i in range(n)]
+            resumed += _run_pairs(runner, pairs, sums, ckpt, seed, m, bar)
+            converged = True
+            if target is not None:
+                total = n * min_rounds * m
+                for _ in range(50):
+                    stats = radiation.tally_statistics(sums)
+                    ratio = radiation._row_error_ratio(stats, target, radiation.SIGNIFICANCE)
+                    want = np.ceil(sums.rounds * ratio ** 2 * 1.1).astype(np.int64)
+                    want = np.minimum(np.maximum(want, sums.rounds + 1), max_rounds)
+                    need = (ratio > 1.0) & (sums.rounds < max_rounds)
+                    if not need.any():
+                        break
+                    pairs = [(r, int(i)) for i in np.flatnonzero(need)
+                             for r in range(int(sums.rounds[i]), int(want[i]))]
+                    total += len(pairs) * m
+                    bar.set_total(total)
+                    resumed += _run_pairs(runner, pairs, sums, ckpt, seed, m, bar)
+                stats = radiation.tally_statistics(sums)
+                converged = bool(np.all(radiation._row_error_ratio(
+                    stats, target, radiation.SIGNIFICANCE) <= 1))
+    finally:
+        runner.close()
+        if ckpt is not None:
+            ckpt.save()
+    vf = radiation.view_factors_from_tallies(geometry, sums, target_error=target,
+                                             converged=converged)
+    return vf, resumed
+
+
+def _run_pairs(runner, pairs, sums, ckpt, seed, m, bar) -> int:
+    """Trace the (round, node) pairs not in the checkpoint; add all of them to ``sums``.
+
+    Returns the number of pairs taken from the checkpoint.
+    """
+    by_round: dict = {}
+    from_ckpt = 0
+    for r, i in pairs:
+        if ckpt is not None and (r, i) in ckpt.tallies:
+            sums.add([i], ckpt.tallies[(r, i)][None, :])
+            bar.advance(m)
+            from_ckpt += 1
+        else:
+            by_round.setdefault(r, []).append(i)
+    parallel = max(1, getattr(runner, "workers", 1) or 4)
+    jobs = []
+    for r, nodes in sorted(by_round.items()):
+        for block in _node_blocks(len(nodes), parallel):
+            jobs.append((np.asarray(nodes, np.int64)[block], r))
+    for (nodes, r), tallies in runner.map(jobs, seed, m):
+        sums.add(nodes, tallies)
+        if ckpt is not None:
+            ckpt.add(r, nodes, tallies)
+        bar.advance(len(nodes) * m)
+    return from_ckpt
+
+
+# ---------------------------------------------------------------------------------------
+# The pipeline
+# ---------------------------------------------------------------------------------------
+def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=None,
+        resume=False, facet_factors=False, reporter=None) -> RunResult:
+    """Compute everything a model asks for and write the results file.
+
+    Parameters
+    ----------
+    model_path : str or os.PathLike
+        Model file (TOML).
+    output_path : str or os.PathLike
+        Results file (HDF5) to write; its folder must exist.
+    rays : int, optional
+        Rays emitted per node; default ``[radiation] rays_per_node``.
+    seed : int, optional
+        Random seed; default ``[radiation] seed``.
+    workers : int
+        Processes on this machine that share the ray tracing of the view factors.
+    scheduler : str, optional
+        Address of a dask.distributed scheduler to share it with instead.
+    resume : bool
+        Keep finished work in ``OUT.h5.partial`` and continue from it.
+    facet_factors : bool
+        Also compute and store facet-to-node view factors (sparse).
+    reporter : vfactor.progress.Reporter, optional
+        Progress of the long stages; silent by default.
+
+    Returns
+    -------
+    RunResult
+
+    Raises
+    ------
+    vfactor.errors.VfactorError
+        Bad model, mesh or argument (one line naming the file, key or value).
+    """
+    from . import radiation
+    from .geometry import build_geometry
+    from .h5io import write_results
+    from .model import load_model
+    from .tracing.scene import Scene
+
+    reporter = reporter or NullReporter()
+    out = _check_arguments(output_path, rays, seed, workers, scheduler)
+    elapsed = {}
+    t_start = time.perf_counter()
+    notes = []
+
+    t0 = time.perf_counter()
+    reporter.message(f"loading {model_path}")
+    model = load_model(model_path)
+    geometry = build_geometry(model)
+    settings = model.radiation
+    rays_per_node = int(rays if rays is not None else settings.rays_per_node)
+    seed = int(seed if seed is not None else settings.seed)
+    facet_factors = bool(facet_factors or getattr(settings, "facet_factors", False))
+    elapsed["geometry"] = time.perf_counter() - t0
+
+    t0 = time.perf_counter()
+    reporter.message(f"building the ray-tracing scene of {geometry.n_facets} facets")
+    scene = Scene.build(geometry.vertices, geometry.triangles)
+    elapsed["scene"] = time.perf_counter() - t0
+
+    view_factors = exchange = trajectory = heating = None
+    resumed = 0
+    t0 = time.perf_counter()
+    view_factors, resumed = _view_factors(
+        radiation, model, geometry, scene, rays_per_node=rays_per_node, seed=seed,
+        workers=workers, scheduler=scheduler, resume=resume, facet_factors=facet_factors,
+        checkpoint=checkpoint_path(out), reporter=reporter)
+    elapsed["view_factors"] = time.perf_counter() - t0
+
+    t0 = time.perf_counter()
+    exchange = radiation.compute_exchange(geometry, scene, view_factors,
+                                          rays_per_node=rays_per_node, seed=seed, band="ir",
+                                          reporter=reporter)
+    elapsed["exchange"] = time.perf_counter() - t0
+
+    t0 = time.perf_counter()
+    from .trajectory import trajectory_from_model
+
+    trajectory = trajectory_from_model(model)
+    elapsed["trajectory"] = time.perf_counter() - t0
+    if trajectory is not None:
+        from .environment import environment_from_table
+        from .heating import compute_heating
+
+        environment = environment_from_table(model.environment_table, model.path)
+        t0 = time.perf_counter()
+        heating = compute_heating(
+            geometry, scene, trajectory, environment, view_factors=view_factors,
+            rays_per_facet=int(settings.planet_rays_per_facet),
+            sun_samples=int(settings.sun_rays_per_facet), seed=seed, reporter=reporter)
+        elapsed["heating"] = time.perf_counter() - t0
+    else:
+        notes.append("the model has no [orbit]: couplings only, no heat loads")
+
+    elapsed["total"] = time.perf_counter() - t_start
+    provenance = {"seed": seed, "rays_per_node": rays_per_node, "elapsed_s": elapsed,
+                  "workers": int(workers) if scheduler is None else 0,
+                  "scheduler": scheduler or "", "facet_factors": facet_factors}
+    t0 = time.perf_counter()
+    write_results(out, model=model, geometry=geometry, view_factors=view_factors,
+                  exchange=exchange, trajectory=trajectory, heating=heating,
+                  provenance=provenance)
+    elapsed["write"] = time.perf_counter() - t0
+    if resume:
+        checkpoint_path(out).unlink(missing_ok=True)
+    return RunResult(output=out, model=model, geometry=geometry, view_factors=view_factors,
+                     exchange=exchange, trajectory=trajectory, heating=heating, seed=seed,
+                     rays_per_node=rays_per_node,
+                     workers=int(workers) if scheduler is None else 0, elapsed_s=elapsed,
+                     resumed_jobs=resumed, notes=tuple(notes))
