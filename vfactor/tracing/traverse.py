@@ -17,7 +17,8 @@ Robustness
 - Ray-box test: slabs in float64 on boxes rounded outward to float32, with the far
   distance enlarged by ``1 + 2 gamma(3)`` (Ize 2013, "Robust BVH ray traversal", JCGT
   2(2), 12-27, section 3), so rounding never culls a box the ray crosses. Zero direction
-  components use ``1e300`` as inverse, which avoids ``0 * inf = NaN``.
+  components use ``1e300`` as inverse with the origin nudged by a few ulps (see
+  ``_slab``), which avoids ``0 * inf = NaN`` and keeps rays lying in a box face plane.
 - Only hits with ``0 < t < tmax`` count; ``exclude`` (original facet index) is skipped, so
   a ray leaving a facet never hits it, at any model scale.
 
@@ -54,11 +55,19 @@ def _stack_alloca(typingctx, size, dtype):
     return types.CPointer(elem)(size, dtype), codegen
 
 
-@njit(**JIT)
-def _inv(d):
+@njit(**JIT, inline="always")
+def _slab(o, d):
+    """Inverse direction and the origins used for the near and far slab planes.
+
+    For a direction component of (nearly) zero the inverse is 1e300 and the origin is
+    moved by a few ulps toward the far plane for the near-plane distance and away from
+    it for the far-plane distance, so a ray lying exactly in a box face plane keeps that
+    box (the slab interval becomes "all t" instead of 0 * inf = NaN).
+    """
     if abs(d) < 1e-300:
-        return 1e300 if d >= 0.0 else -1e300
-    return 1.0 / d
+        delta = max(abs(o), 1e-300) * 2.0 ** -50
+        return 1e300, o + delta, o - delta
+    return 1.0 / d, o, o
 
 
 @njit(**JIT, inline="always")
@@ -151,9 +160,9 @@ def closest_hit(arrays, ox, oy, oz, dx, dy, dz, tmax, exclude):
     tri = arrays[2]
     tri_ids = arrays[3]
     kx, ky, kz, okx, oky, okz, sx, sy, sz = _setup(ox, oy, oz, dx, dy, dz)
-    ix = _inv(dx)
-    iy = _inv(dy)
-    iz = _inv(dz)
+    ix, oxn, oxf = _slab(ox, dx)
+    iy, oyn, oyf = _slab(oy, dy)
+    iz, ozn, ozf = _slab(oz, dz)
     # Offsets of the near and far slab planes within a 6-float box.
     nx = 0 if ix >= 0.0 else 3
     ny = 1 if iy >= 0.0 else 4
@@ -171,18 +180,18 @@ def closest_hit(arrays, ox, oy, oz, dx, dy, dz, tmax, exclude):
     while True:
         if ref >= 0:
             # Inner node: test both child boxes.
-            t0 = max(max((np.float64(nodes[ref, nx]) - ox) * ix,
-                         (np.float64(nodes[ref, ny]) - oy) * iy),
-                     max((np.float64(nodes[ref, nz]) - oz) * iz, 0.0))
-            t1 = min(min((np.float64(nodes[ref, fx]) - ox) * ix,
-                         (np.float64(nodes[ref, fy]) - oy) * iy),
-                     (np.float64(nodes[ref, fz]) - oz) * iz) * _BOX_SLACK
-            s0 = max(max((np.float64(nodes[ref, 6 + nx]) - ox) * ix,
-                         (np.float64(nodes[ref, 6 + ny]) - oy) * iy),
-                     max((np.float64(nodes[ref, 6 + nz]) - oz) * iz, 0.0))
-            s1 = min(min((np.float64(nodes[ref, 6 + fx]) - ox) * ix,
-                         (np.float64(nodes[ref, 6 + fy]) - oy) * iy),
-                     (np.float64(nodes[ref, 6 + fz]) - oz) * iz) * _BOX_SLACK
+            t0 = max(max((np.float64(nodes[ref, nx]) - oxn) * ix,
+                         (np.float64(nodes[ref, ny]) - oyn) * iy),
+                     max((np.float64(nodes[ref, nz]) - ozn) * iz, 0.0))
+            t1 = min(min((np.float64(nodes[ref, fx]) - oxf) * ix,
+                         (np.float64(nodes[ref, fy]) - oyf) * iy),
+                     (np.float64(nodes[ref, fz]) - ozf) * iz) * _BOX_SLACK
+            s0 = max(max((np.float64(nodes[ref, 6 + nx]) - oxn) * ix,
+                         (np.float64(nodes[ref, 6 + ny]) - oyn) * iy),
+                     max((np.float64(nodes[ref, 6 + nz]) - ozn) * iz, 0.0))
+            s1 = min(min((np.float64(nodes[ref, 6 + fx]) - oxf) * ix,
+                         (np.float64(nodes[ref, 6 + fy]) - oyf) * iy),
+                     (np.float64(nodes[ref, 6 + fz]) - ozf) * iz) * _BOX_SLACK
             h0 = t0 <= t1 and t0 <= best_t
             h1 = s0 <= s1 and s0 <= best_t
             c0 = nodes_i[ref, 12]
@@ -242,9 +251,9 @@ def any_hit(arrays, ox, oy, oz, dx, dy, dz, tmax, exclude):
     tri = arrays[2]
     tri_ids = arrays[3]
     kx, ky, kz, okx, oky, okz, sx, sy, sz = _setup(ox, oy, oz, dx, dy, dz)
-    ix = _inv(dx)
-    iy = _inv(dy)
-    iz = _inv(dz)
+    ix, oxn, oxf = _slab(ox, dx)
+    iy, oyn, oyf = _slab(oy, dy)
+    iz, ozn, ozf = _slab(oz, dz)
     nx = 0 if ix >= 0.0 else 3
     ny = 1 if iy >= 0.0 else 4
     nz = 2 if iz >= 0.0 else 5
@@ -256,18 +265,18 @@ def any_hit(arrays, ox, oy, oz, dx, dy, dz, tmax, exclude):
     ref = np.int32(0)
     while True:
         if ref >= 0:
-            t0 = max(max((np.float64(nodes[ref, nx]) - ox) * ix,
-                         (np.float64(nodes[ref, ny]) - oy) * iy),
-                     max((np.float64(nodes[ref, nz]) - oz) * iz, 0.0))
-            t1 = min(min((np.float64(nodes[ref, fx]) - ox) * ix,
-                         (np.float64(nodes[ref, fy]) - oy) * iy),
-                     (np.float64(nodes[ref, fz]) - oz) * iz) * _BOX_SLACK
-            s0 = max(max((np.float64(nodes[ref, 6 + nx]) - ox) * ix,
-                         (np.float64(nodes[ref, 6 + ny]) - oy) * iy),
-                     max((np.float64(nodes[ref, 6 + nz]) - oz) * iz, 0.0))
-            s1 = min(min((np.float64(nodes[ref, 6 + fx]) - ox) * ix,
-                         (np.float64(nodes[ref, 6 + fy]) - oy) * iy),
-                     (np.float64(nodes[ref, 6 + fz]) - oz) * iz) * _BOX_SLACK
+            t0 = max(max((np.float64(nodes[ref, nx]) - oxn) * ix,
+                         (np.float64(nodes[ref, ny]) - oyn) * iy),
+                     max((np.float64(nodes[ref, nz]) - ozn) * iz, 0.0))
+            t1 = min(min((np.float64(nodes[ref, fx]) - oxf) * ix,
+                         (np.float64(nodes[ref, fy]) - oyf) * iy),
+                     (np.float64(nodes[ref, fz]) - ozf) * iz) * _BOX_SLACK
+            s0 = max(max((np.float64(nodes[ref, 6 + nx]) - oxn) * ix,
+                         (np.float64(nodes[ref, 6 + ny]) - oyn) * iy),
+                     max((np.float64(nodes[ref, 6 + nz]) - ozn) * iz, 0.0))
+            s1 = min(min((np.float64(nodes[ref, 6 + fx]) - oxf) * ix,
+                         (np.float64(nodes[ref, 6 + fy]) - oyf) * iy),
+                     (np.float64(nodes[ref, 6 + fz]) - ozf) * iz) * _BOX_SLACK
             h0 = t0 <= t1 and t0 <= tmax
             h1 = s0 <= s1 and s0 <= tmax
             c0 = nodes_i[ref, 12]
