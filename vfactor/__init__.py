@@ -45,7 +45,6 @@ _PUBLIC = {
     # outputs
     "summarize": "vfactor.summary",
     "format_summary": "vfactor.summary",
-    "export": "vfactor.export",
     "plot_all": "vfactor.plots",
     # errors
     "VfactorError": "vfactor.errors",
