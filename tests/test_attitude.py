@@ -174,3 +174,32 @@ def test_bad_tables_name_file_key_and_value(table, where, value):
         attitude_from_table(table, file="model.toml")
     message = str(info.value)
     assert message.startswith("model.toml: ") and where in message and value in message
+
+
+def test_sun_mode_when_the_sun_is_along_the_orbit_normal():
+    # beta = 90 deg: the secondary target is parallel to the Sun; the documented fallback
+    # (ICRF pole, then +x) keeps the rotation proper and the Sun axis on the Sun
+    position = np.array([[7.0e6, 0.0, 0.0]])
+    velocity = np.array([[0.0, 7.5e3, 0.0]])
+    sun = np.array([[0.0, 0.0, 1.0]])
+    for secondary_direction in ("orbit_normal", [0.0, 0.0, 5.0]):
+        attitude = attitude_from_table({"mode": "sun", "sun_axis": "+y",
+                                        "secondary_direction": secondary_direction})
+        rotation = attitude.body_to_inertial(position, velocity, sun, np.zeros(1))
+        assert np.all(np.isfinite(rotation))
+        assert_proper_rotations(rotation)
+        assert angle(rotation[:, :, 1], sun)[0] < ANGLE_TOL
+
+
+def test_random_axis_pairs_give_proper_rotations():
+    # seeded random body axes and inertial directions: TRIAD output always orthonormal,
+    # right-handed, primary exact (Shuster & Oh 1981)
+    from vfactor.attitude import _triad
+
+    rng = np.random.default_rng(2027)
+    for _ in range(50):
+        b1, b2 = rng.normal(size=3), rng.normal(size=3)
+        d1, d2 = rng.normal(size=(4, 3)), rng.normal(size=(4, 3))
+        rotation = _triad(b1, b2, d1, d2)
+        assert_proper_rotations(rotation)
+        assert np.max(angle(rotation @ (b1 / np.linalg.norm(b1)), d1)) < ANGLE_TOL

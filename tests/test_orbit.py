@@ -193,6 +193,9 @@ def test_steps_and_step_s():
     ({"altitude_km": 400.0, "inclination_deg": 51.6, "epoch": EPOCH, "shadow": "round"},
      "[orbit] shadow", "round"),
     ({"type": "tle", "tle": "1 not a tle\n2 either"}, "[orbit] tle", "not a tle"),
+    ({"altitude_km": 400.0, "inclination_deg": 51.6, "epoch": EPOCH, "orbits": 1e5,
+      "steps_per_orbit": 1000}, "[orbit] steps_per_orbit", "1000"),
+    ({"type": "tle", "tle": "x", "j2_drift": True}, "[orbit] j2_drift", "True"),
 ])
 def test_bad_tables_name_file_key_and_value(table, where, value):
     with pytest.raises(ModelError) as info:
@@ -273,3 +276,16 @@ def test_circular_tle_consistent_with_two_body_orbit():
     # two-body motion omits; they make the "circular" SGP4 radius itself swing by ~12 km
     assert radius_swing < 15e3
     assert np.max(distance) < 15e3
+
+
+def test_epoch_as_toml_date_time():
+    import datetime as dt
+    import tomllib
+
+    table = tomllib.loads("[orbit]\naltitude_km = 500.0\ninclination_deg = 40.0\n"
+                          "epoch = 2027-03-21T01:00:00+01:00\n")["orbit"]
+    assert isinstance(table["epoch"], dt.datetime)
+    assert orbit_from_table(table).epoch_utc == "2027-03-21T00:00:00.000000Z"
+    table = tomllib.loads("[orbit]\naltitude_km = 500.0\ninclination_deg = 40.0\n"
+                          "epoch = 2027-03-21T00:00:00\n")["orbit"]  # local date-time: UTC
+    assert orbit_from_table(table).epoch_utc == "2027-03-21T00:00:00.000000Z"

@@ -54,6 +54,10 @@ Sun's rate in right ascension (common practice)."""
 DEFAULT_STEPS_PER_ORBIT = 72
 """Steps per orbit when neither ``steps_per_orbit`` nor ``step_s`` is given (5 deg)."""
 
+MAX_STEPS = 2_000_000
+"""Most time steps an ``[orbit]`` table may ask for (the per-step arrays of the trajectory
+and of the heat loads must fit in memory)."""
+
 
 # --------------------------------------------------------------------------------------
 # reading tables (shared with vfactor.attitude)
@@ -608,6 +612,14 @@ def _inclination_and_node(reader, a, e, epoch, planet):
     return inclination, raan
 
 
+def _check_step_count(reader, n_steps: int):
+    if n_steps > MAX_STEPS:
+        key = "step_s" if reader.has("step_s") else ("steps_per_orbit" if reader.has(
+            "steps_per_orbit") else "orbits")
+        raise reader.error(key, f"asks for {n_steps} time steps, more than {MAX_STEPS}; use "
+                           f"fewer orbits or a longer step (got {reader.table.get(key)!r})")
+
+
 def _check_ephemeris_span(reader, epoch: _dt.datetime, span_s: float):
     start, end = ephemeris.ephemeris_span_utc()
     last = epoch + _dt.timedelta(seconds=span_s)
@@ -727,6 +739,7 @@ def orbit_from_table(table: dict, file: str | None = None, planet: Planet = EART
     j2_drift = reader.boolean("j2_drift", False)
     period = 2.0 * math.pi * math.sqrt(a ** 3 / planet.gm)
     n_steps, step = _step_count(period, orbits, steps_per_orbit, step_s)
+    _check_step_count(reader, n_steps)
     _check_ephemeris_span(reader, epoch, n_steps * step)
     return Orbit(kind=kind, epoch_utc=ephemeris.format_epoch(epoch), semi_major_axis=a,
                  eccentricity=e, inclination=inclination, raan=raan, arg_perigee=arg_perigee,
@@ -767,6 +780,7 @@ def _tle_orbit(reader, orbits, steps_per_orbit, step_s, shadow, planet):
     n = model.no_kozai / 60.0
     period = 2.0 * math.pi / n
     n_steps, step = _step_count(period, orbits, steps_per_orbit, step_s)
+    _check_step_count(reader, n_steps)
     _check_ephemeris_span(reader, epoch, n_steps * step)
     a = (planet.gm / n ** 2) ** (1.0 / 3.0)
     orbit = Orbit(kind="tle", epoch_utc=ephemeris.format_epoch(epoch), semi_major_axis=a,
