@@ -121,7 +121,7 @@ def test_annular_share_is_one_minus_area_ratio():
 def test_conical_umbra_shorter_than_cylinder_and_penumbra_a_few_seconds():
     # Along a circular orbit at beta = 0: conical umbra < cylindrical shadow < conical
     # shadow incl. penumbra (the umbra cone narrows behind the planet, the penumbra cone
-    # widens; Montenbruck & Gill 2000, fig. 3.9)
+    # widens; Montenbruck & Gill 2000, §3.4.2)
     for altitude_km in (400.0, 800.0):
         n = 400_000
         position = circle(R + altitude_km * 1e3, n)

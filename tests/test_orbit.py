@@ -289,3 +289,14 @@ def test_epoch_as_toml_date_time():
     table = tomllib.loads("[orbit]\naltitude_km = 500.0\ninclination_deg = 40.0\n"
                           "epoch = 2027-03-21T00:00:00\n")["orbit"]  # local date-time: UTC
     assert orbit_from_table(table).epoch_utc == "2027-03-21T00:00:00.000000Z"
+
+
+def test_ltan_as_toml_time_and_epoch_as_toml_date():
+    import tomllib
+
+    table = tomllib.loads("[orbit]\naltitude_km = 600.0\nsun_synchronous = true\n"
+                          "ltan = 13:45:00\nepoch = 2027-03-21\n")["orbit"]
+    orbit = orbit_from_table(table)
+    assert orbit.epoch_utc == "2027-03-21T00:00:00.000000Z"
+    hours = local_time_of_node(orbit.raan, ephemeris.times_from_epoch(orbit.epoch_utc, [0.0]))
+    assert abs(hours[0] - 13.75) * 3600.0 < 0.01  # s of time

@@ -59,9 +59,9 @@ def test_body_vectors_follow_the_attitude(leo):
 def test_beta_against_published_formula_from_sun_ra_dec(leo):
     orbit, tr = leo
     # sin beta = cos(dec) sin(i) sin(Omega - ra) + sin(dec) cos(i): the orbit normal
-    # (sin i sin Omega, -sin i cos Omega, cos i) dotted with the Sun direction (Gilmore,
-    # Spacecraft Thermal Control Handbook, Vol. I, 2nd ed., 2002, ch. 2; also from the
-    # Sun's right ascension and declination, e.g. Rickman, NASA/TP-2014-217544)
+    # (sin i sin Omega, -sin i cos Omega, cos i) dotted with the Sun direction given by its
+    # right ascension and declination (Gilmore, Spacecraft Thermal Control Handbook,
+    # Vol. I, 2nd ed., 2002, ch. 2)
     ra, dec, _ = ephemeris.sun_ra_dec(ephemeris.times_from_epoch(EPOCH, tr.time))
     i, node = orbit.inclination, orbit.raan
     expected = np.arcsin(np.cos(dec) * math.sin(i) * np.sin(node - ra) + np.sin(dec) * math.cos(i))
@@ -71,7 +71,7 @@ def test_beta_against_published_formula_from_sun_ra_dec(leo):
 
 def test_beta_against_ecliptic_longitude_form(leo):
     orbit, tr = leo
-    # Gilmore (2002) ch. 2 / Rickman (NASA/TP-2014-217544): sin beta = cos G sin W sin i
+    # Gilmore (2002) ch. 2: sin beta = cos G sin W sin i
     # - sin G cos e cos W sin i + sin G sin e cos i, with G the Sun's ecliptic longitude,
     # e the obliquity (23.439 deg, J2000), W the RAAN; this form neglects the Sun's
     # ecliptic latitude (< 1 arcsec), so within 2e-5 rad (4 arcsec)

@@ -16,7 +16,8 @@ The planet is a sphere of its equatorial radius; the atmosphere is not modelled.
 References
 ----------
 Montenbruck, O., Gill, E., Satellite Orbits: Models, Methods and Applications, Springer,
-2000, §3.4.2 "Shadow models" (conical model, eqs. 3.85-3.87 for the occulted area).
+2000, §3.4.2 "Shadow models" (conical model and the occulted area of two overlapping disks;
+equation numbers not quoted, from memory only).
 """
 
 from __future__ import annotations

@@ -107,9 +107,9 @@ def parse_epoch(value) -> _dt.datetime:
 
     Parameters
     ----------
-    value : str or datetime.datetime
+    value : str, datetime.datetime or datetime.date
         e.g. ``"2027-03-21T00:00:00Z"``, or the datetime a TOML parser returns for an
-        unquoted date-time.
+        unquoted date-time (a bare date means midnight UTC).
 
     Returns
     -------
@@ -123,6 +123,8 @@ def parse_epoch(value) -> _dt.datetime:
     """
     if isinstance(value, _dt.datetime):
         moment = value
+    elif isinstance(value, _dt.date):  # a TOML date: midnight UTC
+        moment = _dt.datetime(value.year, value.month, value.day)
     elif isinstance(value, str):
         text = value.strip()
         if text.endswith(("Z", "z")):

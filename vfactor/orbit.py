@@ -13,10 +13,10 @@ ascension by 2027), which is far below what matters to orbital heat loads.
 References
 ----------
 Vallado, D. A., Fundamentals of Astrodynamics and Applications, 4th ed., Microcosm Press,
-2013: Kepler's equation and its Newton solution (ch. 2, algorithm 2), classical elements
-to position and velocity (ch. 2, algorithm 10, "COE2RV"), secular J2 rates of the node,
-perigee and mean anomaly (ch. 9, eqs. 9-41 to 9-43; equation numbers from memory), and
-the sun-synchronous condition (ch. 11).
+2013: Kepler's equation and its Newton solution (ch. 2), classical elements to position
+and velocity (ch. 2, "COE2RV"), secular J2 rates of the node, perigee and mean anomaly
+(ch. 9, eqs. 9-41 to 9-43), and the sun-synchronous condition (ch. 11). Algorithm and
+equation numbers are from memory.
 Hoots, F. R., Roehrich, R. L., 1980, Spacetrack Report No. 3 (SGP4), as implemented by
 the ``sgp4`` package used through skyfield's ``EarthSatellite``.
 """
@@ -181,7 +181,7 @@ def solve_kepler(mean_anomaly, eccentricity: float, tolerance: float = 1e-14,
     Notes
     -----
     M = E - e sin E; Newton: E <- E - (E - e sin E - M) / (1 - e cos E), started at
-    E = M + e sin M (E = pi for e > 0.8). Vallado (2013), ch. 2, algorithm 2.
+    E = M + e sin M (E = pi for e > 0.8). Vallado (2013), ch. 2 ("KepEqtnE").
     """
     m = np.asarray(mean_anomaly, dtype=np.float64)
     turns = np.floor((m + math.pi) / (2.0 * math.pi))
@@ -235,7 +235,7 @@ def elements_to_state(semi_major_axis, eccentricity, inclination, raan, arg_peri
     -----
     r = a (cos E - e) P + a sqrt(1-e^2) sin E Q,
     v = sqrt(gm a)/|r| (-sin E P + sqrt(1-e^2) cos E Q); Vallado (2013), ch. 2
-    (perifocal form of algorithm 10).
+    (perifocal form of "COE2RV").
     """
     m = np.atleast_1d(np.asarray(mean_anomaly, dtype=np.float64))
     a, e = float(semi_major_axis), float(eccentricity)
@@ -330,13 +330,15 @@ def _ut1_hours(t) -> np.ndarray:
 
 
 def _node_right_ascension_of_date(raan, t) -> np.ndarray:
-    raan = np.asarray(raan, dtype=np.float64)
-    node = np.stack([np.cos(raan), np.sin(raan), np.zeros_like(raan)], axis=0)  # (3,...)
     rot = np.asarray(t.M)  # ICRS -> true equator and equinox of date
+    raan = np.asarray(raan, dtype=np.float64)
     if rot.ndim == 2:
-        v = rot @ node
+        node = np.stack([np.cos(raan), np.sin(raan), np.zeros_like(raan)], axis=0)
+        v = np.einsum("ij,j...->i...", rot, node)
     else:
-        v = np.einsum("ijt,jt->it", rot, np.broadcast_to(node, (3, rot.shape[2])))
+        raan = np.broadcast_to(raan.ravel() if raan.size == 1 else raan, (rot.shape[2],))
+        node = np.stack([np.cos(raan), np.sin(raan), np.zeros_like(raan)], axis=0)
+        v = np.einsum("ijt,jt->it", rot, node)
     return np.arctan2(v[1], v[0])
 
 
@@ -569,7 +571,9 @@ def _parse_ltan(reader: _TableReader) -> float:
     value = reader.table["ltan"]
     if isinstance(value, bool):
         raise reader.error("ltan", f"must be \"HH:MM\" or hours, got {value!r}")
-    if isinstance(value, (int, float)):
+    if isinstance(value, _dt.time):  # TOML local time, ltan = 10:30:00
+        hours = value.hour + value.minute / 60.0 + (value.second + value.microsecond / 1e6) / 3600.0
+    elif isinstance(value, (int, float)):
         hours = float(value)
     elif isinstance(value, str):
         parts = value.strip().split(":")
