@@ -300,3 +300,43 @@ def test_ltan_as_toml_time_and_epoch_as_toml_date():
     assert orbit.epoch_utc == "2027-03-21T00:00:00.000000Z"
     hours = local_time_of_node(orbit.raan, ephemeris.times_from_epoch(orbit.epoch_utc, [0.0]))
     assert abs(hours[0] - 13.75) * 3600.0 < 0.01  # s of time
+
+
+def test_j2_drift_turns_the_propagated_orbit_plane():
+    orbit = orbit_from_table({"type": "elements", "perigee_km": 600.0, "apogee_km": 900.0,
+                              "sun_synchronous": True, "raan_deg": 10.0,
+                              "arg_perigee_deg": 30.0, "j2_drift": True, "epoch": EPOCH})
+    t = np.array([0.0, 86400.0, 10 * 86400.0])
+    position, velocity = orbit.propagate(t)
+    h = np.cross(position, velocity)
+    raan = np.arctan2(h[:, 0], -h[:, 1])
+    inclination = np.arccos(h[:, 2] / np.linalg.norm(h, axis=1))
+    # the plane of the propagated states turns at one revolution per tropical year
+    # (elliptic sun-synchronous condition with p = a (1 - e^2), Vallado 2013 ch. 11),
+    # within 1e-9 rad, and keeps its inclination
+    expected = math.radians(10.0) + 2 * math.pi / (365.24219 * 86400.0) * t
+    assert np.max(np.abs(np.remainder(raan - expected + math.pi, 2 * math.pi) - math.pi)) < 1e-9
+    assert np.max(np.abs(inclination - orbit.inclination)) < 1e-12
+    # the perigee moves too: domega/dt = 3/4 n J2 (R/p)^2 (4 - 5 sin^2 i) (Vallado ch. 9)
+    e_vec = (np.cross(velocity, h) / EARTH_GM_M3_S2
+             - position / np.linalg.norm(position, axis=1)[:, None])
+    node = np.stack([np.cos(raan), np.sin(raan), np.zeros(3)], axis=1)
+    argp = np.arctan2(np.einsum("ij,ij->i", np.cross(node, e_vec), h / np.linalg.norm(h, axis=1)[:, None]),
+                      np.einsum("ij,ij->i", node, e_vec))
+    rate = j2_secular_rates(orbit.semi_major_axis, orbit.eccentricity, orbit.inclination)[1]
+    assert np.max(np.abs(np.remainder(argp - math.radians(30.0) - rate * t + math.pi, 2 * math.pi)
+                         - math.pi)) < 1e-9
+
+
+def test_tle_trajectory_end_to_end():
+    from vfactor.attitude import attitude_from_table
+    from vfactor.trajectory import compute_trajectory, orbit_facts
+
+    orbit = orbit_from_table({"tle": f"{TLE_LINE1}\n{TLE_LINE2}", "orbits": 2,
+                              "epoch": "2027-03-22T00:00:00Z"})
+    tr = compute_trajectory(orbit, attitude_from_table({"mode": "nadir"}))
+    facts = orbit_facts(tr)
+    assert tr.n_steps == 144 and tr.epoch_utc == "2027-03-22T00:00:00.000000Z"
+    # 15.5 rev/day: about 420 km altitude (Kepler's third law); eclipses every orbit
+    assert 380.0 < facts.altitude_min_km < facts.altitude_max_km < 460.0
+    assert len(facts.eclipses) >= 2
