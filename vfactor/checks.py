@@ -12,8 +12,9 @@ Errors
   non-finite coordinates, one node name given two different coatings;
 * zero-area or degenerate facets (height below 1e-9 of the longest edge);
 * a closed part whose normals point inward (negative signed volume);
-* coincident overlapping facets of different parts (coplanar within the tolerance and
-  overlapping with a width above the tolerance);
+* coincident overlapping facets of different parts facing the same way (coplanar within
+  the tolerance, same normal, overlapping with a width above the tolerance): two surfaces
+  in one place, where the first hit is arbitrary;
 * parts that intersect each other: an edge of a facet of one part crosses the interior of
   a facet of another part, with both edge ends farther than the tolerance from the plane
   and the crossing point farther than the tolerance from the facet's edges;
@@ -25,7 +26,10 @@ Warnings
 * a curved part whose facet area differs from the exact area by more than 1 %;
 * a mesh declared ``closed = true`` that is not watertight;
 * a closed part whose back (inner) side is active;
-* a very thin closed part (mean thickness 2 V / A below 0.5 % of its size).
+* a very thin closed part (mean thickness 2 V / A below 0.5 % of its size);
+* face-to-face contact: coincident overlapping facets of different parts with opposite
+  normals (a capped boom standing on a face). The contact is physical, but the covered
+  area still takes part in the exchange; the message gives the area involved.
 
 Tolerance
 ---------
@@ -142,7 +146,7 @@ def check_geometry(model: Model, geometry: Geometry, report: CheckReport) -> Non
     add = report.problems.append
     g = geometry
     if g.n_facets == 0:
-        if model.parts:
+        if not any(p.severity == "error" for p in report.problems):
             add(Problem("error", file, "", "the model has no facets"))
         return
     lo, hi = g.vertices.min(axis=0), g.vertices.max(axis=0)
@@ -172,7 +176,9 @@ def check_geometry(model: Model, geometry: Geometry, report: CheckReport) -> Non
             if not mesh_is_watertight(g.vertices, local_tris):
                 add(Problem("warning", file, part.where,
                             f"declared closed but mesh file "
-                            f"{part.parameters.get('file_as_written')!r} is not watertight"))
+                            f"{part.parameters.get('file_as_written')!r} is not watertight "
+                            f"(its orientation and thickness are not checked)"))
+                closed = False
         if closed and len(good):
             c = g.centroids[good].mean(axis=0)
             pv = g.vertices[g.triangles[good]] - c
@@ -331,16 +337,29 @@ def _check_contacts(model: Model, g: Geometry, usable, tol, report: CheckReport)
             if len(cp):
                 ov = _coplanar_overlap(A[cp], B[cp], na[cp], tol)
                 hits = cp[ov]
-                if len(hits):
-                    k0 = hits[0]
-                    add_facets = tuple(sorted(set(a[hits].tolist()) | set(b[hits].tolist())))
+                same = hits[(na[hits] * nb[hits]).sum(1) > 0.0]
+                facing = hits[(na[hits] * nb[hits]).sum(1) <= 0.0]
+                if len(same):
+                    k0 = same[0]
                     report.problems.append(Problem(
                         "error", file, where,
-                        f"{len(hits)} pairs of coincident overlapping facets (e.g. facets "
-                        f"{int(a[k0])} and {int(b[k0])} near "
+                        f"{len(same)} pairs of coincident overlapping facets facing the same "
+                        f"way (e.g. facets {int(a[k0])} and {int(b[k0])} near "
                         f"{_point(g.centroids[a[k0]])} m); Monte Carlo results are "
-                        f"meaningless there: leave a gap or remove one of the faces",
-                        add_facets))
+                        f"meaningless there: leave a gap or remove one of the surfaces",
+                        tuple(sorted(set(a[same].tolist()) | set(b[same].tolist())))))
+                if len(facing):
+                    k0 = facing[0]
+                    covered = min(g.areas[np.unique(a[facing])].sum(),
+                                  g.areas[np.unique(b[facing])].sum())
+                    report.problems.append(Problem(
+                        "warning", file, where,
+                        f"face-to-face contact: {len(facing)} pairs of coincident facets "
+                        f"with opposite normals, about {covered:.3g} m2 (e.g. facets "
+                        f"{int(a[k0])} and {int(b[k0])} near {_point(g.centroids[a[k0]])} "
+                        f"m); the covered area still exchanges radiation in the model: "
+                        f"remove the covered face (e.g. caps = false) or leave a gap",
+                        tuple(sorted(set(a[facing].tolist()) | set(b[facing].tolist())))))
             nc = ~coplanar
             if not nc.any():
                 continue
