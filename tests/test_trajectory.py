@@ -213,3 +213,33 @@ def test_facts_of_a_trajectory_read_back_from_a_results_file():
     a, b = orbit_facts(tr), orbit_facts(by_name)
     assert b.longest_eclipse_s == pytest.approx(a.longest_eclipse_s, abs=1e-3)
     assert b.penumbra_s == pytest.approx(a.penumbra_s, abs=1e-3)
+
+
+def with_fixed_sun(tr, beta_rad):
+    """The trajectory with the Sun held 1 AU away at beta_rad from its orbit plane (for
+    comparing with closed forms that hold the Sun fixed)."""
+    import dataclasses
+
+    h = np.cross(tr.position[0], tr.velocity[0])
+    h /= np.linalg.norm(h)
+    in_plane = np.cross(h, [0.0, 0.0, 1.0])
+    in_plane /= np.linalg.norm(in_plane)
+    sun = 1.495978707e11 * (math.cos(beta_rad) * in_plane + math.sin(beta_rad) * h)
+    to_sun = sun[None, :] - tr.position
+    distance = np.linalg.norm(to_sun, axis=1)
+    return dataclasses.replace(tr, sun_inertial=to_sun / distance[:, None], sun_distance=distance)
+
+
+@pytest.mark.parametrize("duration_s", [30.0, 60.0, 300.0])
+def test_short_eclipse_between_samples_is_found(duration_s):
+    # near the critical beta the shadow passage is shorter than the 79 s step: the contacts
+    # are still located (Gilmore 2002 ch. 2 closed form, cylindrical, Sun held fixed)
+    orbit, tr = polar_orbit_at_beta(500.0, 0.0, "cylindrical")
+    h, r = 500e3, EARTH_EQUATORIAL_RADIUS_M
+    x = math.sqrt(h * h + 2 * r * h) / (r + h)
+    beta = math.acos(x / math.cos(math.pi * duration_s / orbit.period))
+    facts = orbit_facts(with_fixed_sun(tr, beta))
+    (passage,) = facts.eclipses
+    # 0.05 s: linear interpolation of the margin between 0.5 s sub-steps near a grazing
+    # contact, where the margin is curved
+    assert passage.duration_s == pytest.approx(duration_s, abs=0.05)

@@ -322,8 +322,14 @@ def orbit_facts(trajectory: Trajectory) -> OrbitFacts:
 
     outer_events, inner_events = [], []
     if step > 0.0:
-        speed_bound = 1.5 * np.max(np.linalg.norm(tr.velocity, axis=1) / tr.planet_distance)
-        reach = speed_bound * step
+        # bound on how fast a margin can change: the planet centre's direction turns at
+        # most at |v|/r, its apparent radius b = asin(R/r) at most R |v| / (r sqrt(r^2-R^2));
+        # a gap whose end margins are within 1.5 x bound x step of zero is examined
+        speed = np.linalg.norm(tr.velocity, axis=1)
+        r = tr.planet_distance
+        rate = speed / r + planet.radius * speed / (r * np.sqrt(np.maximum(r * r - planet.radius ** 2,
+                                                                            1.0)))
+        reach = 1.5 * float(np.max(rate)) * step
         if model == "cylindrical":
             reach = 1.5 * np.max(np.linalg.norm(tr.velocity, axis=1)) * step
         n_sub = max(1, math.ceil(step / _SUBSTEP_S))
@@ -342,7 +348,10 @@ def orbit_facts(trajectory: Trajectory) -> OrbitFacts:
                                                  planet, model)
             o_sub = o_sub.reshape(n_sub + 1, gaps.size)
             i_sub = i_sub.reshape(n_sub + 1, gaps.size)
-            o_sub[0], i_sub[0] = outer[gaps], inner[gaps]  # the sample decides at its time
+            # the samples decide at their own times, so that neighbouring gaps agree
+            o_sub[0], i_sub[0] = outer[gaps], inner[gaps]
+            inside = gaps + 1 < n
+            o_sub[-1, inside], i_sub[-1, inside] = outer[gaps[inside] + 1], inner[gaps[inside] + 1]
             for column, k in enumerate(gaps):
                 times = tr.time[k] + local
                 outer_events += [e for e in _crossings(times, o_sub[:, column]) if e[0] < span]
