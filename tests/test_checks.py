@@ -195,6 +195,9 @@ def test_plate_through_a_plate(write_model):
     # a hinged wing touching the body's edge line
     '[[parts]]\nname = "wing"\nshape = "rectangle"\nsize = [1, 1]\ncenter = [0, 1.0, 0.5]\n'
     'front = { coating = "w" }\n',
+    # a coplanar panel continuing the +z face beyond its edge
+    '[[parts]]\nname = "ext"\nshape = "rectangle"\nsize = [1, 1]\ncenter = [1.0, 0, 0.5]\n'
+    'front = { coating = "w" }\n',
     # a sphere touching the +x face at one point
     '[[parts]]\nname = "ball"\nshape = "sphere"\nradius = 0.2\ncenter = [0.7, 0, 0]\n'
     'segments = 16\nfront = { coating = "w" }\n',
@@ -202,6 +205,22 @@ def test_plate_through_a_plate(write_model):
 def test_touching_parts_are_fine(write_model, extra):
     report = check_model(write_model(BOX + extra))
     assert report.ok, [p.line() for p in report.problems]
+
+
+def test_inconsistent_mesh_winding(write_model, tmp_path):
+    box = trimesh.creation.box(extents=[1, 1, 1])
+    faces = box.faces.copy()
+    faces[0] = faces[0, ::-1]                      # one facet turned over
+    trimesh.Trimesh(box.vertices, faces, process=False).export(tmp_path / "flip.stl")
+    only_error(check_model(write_model(mesh_part("flip.stl"))), "part 'm'", "winding")
+
+
+def test_part_inside_a_closed_part_is_a_warning(write_model):
+    text = BOX + ('[[parts]]\nname = "core"\nshape = "sphere"\nradius = 0.2\n'
+                  'front = { coating = "w" }\n')
+    lines = warnings_of(check_model(write_model(text)))
+    assert len(lines) == 1 and "part 'core'" in lines[0] and "inside the closed part 'body'" \
+        in lines[0]
 
 
 def test_node_with_two_coatings(write_model):

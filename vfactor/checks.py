@@ -12,6 +12,7 @@ Errors
   non-finite coordinates, one node name given two different coatings;
 * zero-area or degenerate facets (height below 1e-9 of the longest edge);
 * a closed part whose normals point inward (negative signed volume);
+* a mesh whose facet winding is inconsistent (neighbours facing opposite ways);
 * coincident overlapping facets of different parts facing the same way (coplanar within
   the tolerance, same normal, overlapping with a width above the tolerance): two surfaces
   in one place, where the first hit is arbitrary;
@@ -27,6 +28,7 @@ Warnings
 * a mesh declared ``closed = true`` that is not watertight;
 * a closed part whose back (inner) side is active;
 * a very thin closed part (mean thickness 2 V / A below 0.5 % of its size);
+* a part lying wholly inside a closed part (ray-parity test from one of its facets);
 * face-to-face contact: coincident overlapping facets of different parts with opposite
   normals (a capped boom standing on a face). The contact is physical, but the covered
   area still takes part in the exchange; the message gives the area involved.
@@ -49,7 +51,7 @@ import numpy as np
 from vfactor.errors import Problem
 from vfactor.geometry import Geometry, build_geometry
 from vfactor.model import Model, load_model
-from vfactor.shapes import CURVED_SHAPES, exact_area, mesh_is_watertight
+from vfactor.shapes import CURVED_SHAPES, exact_area, mesh_is_watertight, mesh_winding_consistent
 
 __all__ = ["CheckReport", "AreaDifference", "check_model", "check_geometry",
            "format_check_report", "RELATIVE_TOLERANCE", "AREA_WARNING"]
@@ -171,6 +173,14 @@ def check_geometry(model: Model, geometry: Geometry, report: CheckReport) -> Non
                         tuple(int(i) for i in bad)))
         good = sel[~degenerate[sel]]
         closed = g.part_closed[k] if k < len(g.part_closed) else False
+        if part.shape == "mesh" and len(good) and not mesh_winding_consistent(
+                g.vertices, g.triangles[good]):
+            add(Problem("error", file, part.where,
+                        f"inconsistent facet winding in mesh file "
+                        f"{part.parameters.get('file_as_written')!r}: some facets face the "
+                        f"other way than their neighbours, so front and back swap across "
+                        f"them; fix the mesh's orientation"))
+            closed = False
         if part.shape == "mesh" and part.parameters.get("closed") is True and len(sel):
             local_tris = g.triangles[sel]
             if not mesh_is_watertight(g.vertices, local_tris):
@@ -217,6 +227,52 @@ def check_geometry(model: Model, geometry: Geometry, report: CheckReport) -> Non
                         f"facets, {g.nodes.area[i]:.3g} m2)"))
 
     _check_contacts(model, g, ~degenerate, tol, report)
+    _check_enclosed(model, g, ~degenerate, report)
+
+
+def _ray_crossings(origin, direction, tris) -> int:
+    """Number of triangles (m,3,3) crossed by the ray origin + t d, t > 0
+    (Moller & Trumbore, J. Graphics Tools 2(1), 1997)."""
+    e1 = tris[:, 1] - tris[:, 0]
+    e2 = tris[:, 2] - tris[:, 0]
+    p = np.cross(direction, e2)
+    det = np.einsum("ij,ij->i", e1, p)
+    ok = np.abs(det) > 1e-300
+    inv = np.where(ok, 1.0 / np.where(ok, det, 1.0), 0.0)
+    s = origin - tris[:, 0]
+    u = np.einsum("ij,ij->i", s, p) * inv
+    q = np.cross(s, e1)
+    v = (q @ direction) * inv
+    t = np.einsum("ij,ij->i", e2, q) * inv
+    return int((ok & (u >= 0) & (v >= 0) & (u + v <= 1) & (t > 0)).sum())
+
+
+def _check_enclosed(model: Model, g: Geometry, usable, report: CheckReport) -> None:
+    """Warn about a part lying wholly inside a closed part (by ray parity)."""
+    v = g.vertices[g.triangles]
+    direction = np.array([0.5773, 0.5791, 0.5755])   # no special alignment with the axes
+    direction /= np.linalg.norm(direction)
+    nparts = len(g.part_names)
+    sel = [np.flatnonzero((g.part == k) & usable) for k in range(nparts)]
+    if not any(g.part_closed):
+        return
+    lo = [v[s].reshape(-1, 3).min(0) if len(s) else None for s in sel]
+    hi = [v[s].reshape(-1, 3).max(0) if len(s) else None for s in sel]
+    for j in range(nparts):
+        if not g.part_closed[j] or lo[j] is None:
+            continue
+        for i in range(nparts):
+            if i == j or lo[i] is None:
+                continue
+            if (lo[i] < lo[j]).any() or (hi[i] > hi[j]).any():
+                continue
+            point = g.centroids[sel[i][0]]
+            if _ray_crossings(point, direction, v[sel[j]]) % 2 == 1:
+                report.problems.append(Problem(
+                    "warning", model.path, f"part {g.part_names[i]!r}",
+                    f"lies inside the closed part {g.part_names[j]!r}: it can exchange "
+                    f"radiation only with that part's inner side; check its center and "
+                    f"size"))
 
 
 def _examples(indices) -> str:

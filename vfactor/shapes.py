@@ -54,8 +54,9 @@ import numpy as np
 
 from vfactor.errors import MeshError, ModelError
 
-__all__ = ["Tessellation", "tessellate", "exact_area", "read_mesh", "triangle_areas",
-           "max_edge_length"]
+__all__ = ["Tessellation", "tessellate", "exact_area", "estimated_facets", "read_mesh",
+           "triangle_areas", "max_edge_length", "mesh_is_watertight",
+           "mesh_winding_consistent"]
 
 FACE_LABELS = {
     "rectangle": ("face",),
@@ -599,6 +600,16 @@ def mesh_is_watertight(vertices: np.ndarray, triangles: np.ndarray) -> bool:
     m = trimesh.Trimesh(vertices, triangles, process=False)
     m.merge_vertices()
     return bool(m.is_watertight)
+
+
+def mesh_winding_consistent(vertices: np.ndarray, triangles: np.ndarray) -> bool:
+    """Whether every shared edge is traversed in opposite directions by its two facets
+    (consistent front side), once equal vertices are merged (trimesh's test)."""
+    import trimesh
+
+    m = trimesh.Trimesh(vertices, triangles, process=False)
+    m.merge_vertices()
+    return bool(m.is_winding_consistent)
 
 
 def _unique_labels(labels):
