@@ -315,11 +315,13 @@ class _Reader:
             self.error(where, f"must lie in [0, 1], got {_show(value)}")
         return x
 
-    def integer(self, value, where: str, minimum: int) -> int:
+    def integer(self, value, where: str, minimum: int, maximum: int = 10**12) -> int:
         if isinstance(value, bool) or not isinstance(value, int):
             self.error(where, f"must be an integer, got {_show(value)}")
         if value < minimum:
             self.error(where, f"must be >= {minimum}, got {value}")
+        if value > maximum:
+            self.error(where, f"must be <= {maximum}, got {_show(value)}")
         return int(value)
 
     def boolean(self, value, where: str) -> bool:
@@ -684,8 +686,8 @@ def _read_radiation(value, reader: _Reader) -> RadiationSettings:
     out = {}
     checks = {
         "rays_per_node": lambda v, w: reader.integer(v, w, 1),
-        "seed": lambda v, w: reader.integer(v, w, 0),
-        "max_rays_per_node": lambda v, w: reader.integer(v, w, 1),
+        "seed": lambda v, w: reader.integer(v, w, 0, 2**64 - 1),
+        "max_rays_per_node": lambda v, w: reader.integer(v, w, 1, 10**13),
         "smoothing": reader.boolean,
         "facet_factors": reader.boolean,
         "sun_rays_per_facet": lambda v, w: reader.integer(v, w, 1),
@@ -697,9 +699,6 @@ def _read_radiation(value, reader: _Reader) -> RadiationSettings:
                 out[key] = fn(tab[key], f"[radiation] {key}")
             except _Invalid:
                 pass
-    if "seed" in out and out["seed"] >= 2 ** 64:
-        reader.soft_error("[radiation] seed", f"must be < 2**64, got {out['seed']}")
-        del out["seed"]
     if "target_error" in tab:
         try:
             te = reader.positive(tab["target_error"], "[radiation] target_error")
