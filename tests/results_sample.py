@@ -114,7 +114,7 @@ def sample_trajectory(steps=8) -> Trajectory:
                       sun_inertial=sun_in, sun_distance=np.full(steps, 1.496e11),
                       sun_fraction=sun_fraction, beta=np.full(steps, np.radians(12.5)),
                       body_to_inertial=rot, sun_body=sun_in.copy(), nadir_body=nadir,
-                      planet_distance=np.full(steps, r), period=period, planet="earth")
+                      planet_distance=np.full(steps, r), period=period, planet="Earth")
 
 
 def sample_heating(geometry: Geometry, trajectory: Trajectory) -> Heating:

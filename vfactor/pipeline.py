@@ -235,7 +235,7 @@ class _DaskRunner:
             fut = self._client.submit(_job_on_dask, self._geometry, self._key, nodes, seed,
                                       rays_per_round, r, pure=False)
             futures[fut] = (nodes, r)
-        for fut in as_completed(list(futures)):
+        for fut in as_completed(list(futures), loop=self._client.loop):
             yield futures[fut], fut.result()
 
     def close(self):

@@ -14,7 +14,7 @@ import textwrap
 import numpy as np
 
 from .constants import STEFAN_BOLTZMANN
-from .h5io import Results, node_averages
+from .h5io import Results
 
 __all__ = ["CAUTIONS", "SIGNIFICANT_VIEW_FACTOR", "summarize", "format_summary", "to_json"]
 
@@ -43,47 +43,31 @@ _SOURCE_LABEL = {"solar": "solar", "albedo": "albedo", "planet_ir": "planet IR",
 # Numbers
 # ---------------------------------------------------------------------------------------
 def _orbit_facts(results: Results) -> dict | None:
-    """Period, beta range and eclipse shares and durations, resolved to the time step."""
+    """Orbit facts of :func:`vfactor.trajectory.orbit_facts` plus the sampling used."""
     tr = results.trajectory
     if tr is None:
         return None
+    from .trajectory import orbit_facts
+
+    f = orbit_facts(tr)
     t = np.asarray(tr.time, dtype=float)
-    frac = np.asarray(tr.sun_fraction, dtype=float)
-    step = float(np.median(np.diff(t))) if t.size > 1 else 0.0
-    w = np.append(np.diff(t), step) if t.size > 1 else np.ones(1)
-    shadow = frac < 1.0
-    umbra = frac <= 0.0
-
-    def longest(mask):
-        best = run = 0.0
-        for m, dt in zip(mask, w):
-            run = run + dt if m else 0.0
-            best = max(best, run)
-        return best
-
-    beta_deg = np.degrees(tr.beta)
     return {
         "epoch_utc": tr.epoch_utc,
-        "period_s": float(tr.period),
+        "period_s": float(f.period_s),
         "steps": int(t.size),
-        "step_s": step,
-        "span_s": float(w.sum()),
-        "beta_min_deg": float(beta_deg.min()),
-        "beta_max_deg": float(beta_deg.max()),
-        "sunlit_share": float((frac * w).sum() / w.sum()),
-        "eclipse_share": float(w[shadow].sum() / w.sum()),
-        "umbra_share": float(w[umbra].sum() / w.sum()),
-        "longest_eclipse_s": longest(shadow),
-        "altitude_min_km": float((tr.planet_distance.min() - _planet_radius(results)) / 1e3)
-        if _planet_radius(results) else None,
-        "altitude_max_km": float((tr.planet_distance.max() - _planet_radius(results)) / 1e3)
-        if _planet_radius(results) else None,
+        "step_s": float(t[1] - t[0]) if t.size > 1 else 0.0,
+        "span_s": float(f.span_s),
+        "beta_min_deg": float(f.beta_min_deg),
+        "beta_max_deg": float(f.beta_max_deg),
+        "altitude_min_km": float(f.altitude_min_km),
+        "altitude_max_km": float(f.altitude_max_km),
+        "eclipse_share": float(f.eclipse_share),
+        "umbra_share": float(f.umbra_share),
+        "longest_eclipse_s": float(f.longest_eclipse_s),
+        "penumbra_s": float(f.penumbra_s),
+        "eclipses": len(f.eclipses),
+        "shadow_model": str(f.shadow_model),
     }
-
-
-def _planet_radius(results: Results):
-    r = results.orbit_attrs.get("planet_radius_m")
-    return float(r) if r else None
 
 
 def summarize(results: Results, top: int = 15) -> dict:
@@ -191,31 +175,27 @@ def summarize(results: Results, top: int = 15) -> dict:
     heat = results.heating
     loads = None
     if heat is not None:
-        time = results.trajectory.time
-        loads = []
+        from .heating import heating_extremes
+
+        ext = heating_extremes(heat, results.trajectory.time)
+        rows = []
         for i in range(n):
             row = {"node": nodes.names[i]}
-            total = np.zeros(len(time))
-            for src in _SOURCES:
-                q = getattr(heat, f"node_{src}")[:, i]
-                total = total + q
-                row[src] = _stats(q, time)
-            row["total"] = _stats(total, time)
-            loads.append(row)
+            for src in _SOURCES + ("total",):
+                k = ext.row(src)
+                row[src] = {"average_W": float(ext.average[k, i]),
+                            "min_W": float(ext.minimum[k, i]),
+                            "max_W": float(ext.maximum[k, i])}
+            rows.append(row)
         loads = {"case": heat.case, "albedo": float(heat.albedo),
                  "planet_ir_W_m2": float(heat.planet_ir),
                  "solar_constant_W_m2": [float(heat.solar_constant.min()),
                                          float(heat.solar_constant.max())],
-                 "nodes": loads}
+                 "nodes": rows}
 
     return {"provenance": prov, "nodes": node_rows, "couplings": couplings, "space": space,
             "accuracy": accuracy, "orbit": _orbit_facts(results), "heat_loads": loads,
             "cautions": list(CAUTIONS)}
-
-
-def _stats(q: np.ndarray, time: np.ndarray) -> dict:
-    return {"average_W": float(node_averages(q[:, None], time)[0]),
-            "min_W": float(q.min()), "max_W": float(q.max())}
 
 
 def to_json(summary: dict) -> str:
@@ -331,13 +311,12 @@ def format_summary(results: Results, top: int = 15) -> str:
                 ("steps", f"{o['steps']} of {o['step_s']:.1f} s, "
                           f"{o['span_s'] / o['period_s']:.2f} orbits"),
                 ("beta angle", f"{o['beta_min_deg']:.2f} .. {o['beta_max_deg']:.2f} deg")]
-        if o.get("altitude_min_km") is not None:
-            rows.append(("altitude", f"{o['altitude_min_km']:.1f} .. "
-                                     f"{o['altitude_max_km']:.1f} km"))
-        rows += [("in shadow (any)", f"{100 * o['eclipse_share']:.1f} % of the time"),
+        rows.append(("altitude", f"{o['altitude_min_km']:.1f} .. {o['altitude_max_km']:.1f} km"))
+        rows += [("in shadow (any)", f"{100 * o['eclipse_share']:.1f} % of the time "
+                                     f"({o['eclipses']} passage(s), {o['shadow_model']} shadow)"),
                  ("in umbra", f"{100 * o['umbra_share']:.1f} % of the time"),
-                 ("longest shadow", f"{o['longest_eclipse_s'] / 60:.1f} min "
-                                    f"(resolved to the {o['step_s']:.0f} s step)")]
+                 ("longest shadow", f"{o['longest_eclipse_s'] / 60:.1f} min, penumbra "
+                                    f"{o['penumbra_s']:.1f} s per passage")]
         lines += [f"  {k:<22}{v}" for k, v in rows]
 
     h = s["heat_loads"]
