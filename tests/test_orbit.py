@@ -122,18 +122,33 @@ def test_ltan_matches_input_at_epoch_and_after_one_day():
     assert (10.5 - slipped[1]) * 60.0 == pytest.approx(1440.0 / 365.2422, abs=0.05)
 
 
-def test_ltan_against_sun_right_ascension():
-    # Independent check: the node's hour angle from the apparent Sun is 15 deg/h * (LTAN - 12)
-    # up to the equation of time, which never exceeds 16.5 min (Meeus, Astronomical
-    # Algorithms, 2nd ed., ch. 28, from memory)
-    for epoch in ("2027-03-21T00:00:00Z", "2027-11-03T12:00:00Z", "2028-02-11T06:00:00Z"):
+def test_ltan_against_sun_hour_angle_and_almanac_equation_of_time():
+    # Independent check: local mean time = local apparent time - equation of time, so the
+    # node's hour angle H from the apparent Sun (true equator of date) must satisfy
+    # 12 h + H / (15 deg/h) - LTAN = EoT. EoT from the Astronomical Almanac's low-precision
+    # solar formulas (section C): EoT = 4 min/deg * (L - alpha).
+    from test_ephemeris import almanac_low_precision_sun
+
+    from vfactor.orbit import _node_right_ascension_of_date
+
+    for epoch in ("2027-03-21T00:00:00Z", "2027-11-03T12:00:00Z", "2028-02-11T06:00:00Z",
+                  "2030-07-26T18:00:00Z"):
+        t = ephemeris.times_from_epoch(epoch, [0.0])
+        ra_sun, _, _ = ephemeris.sun_ra_dec(t, frame="date")
+        jd = float(t.tt[0])
+        mean_longitude = (280.460 + 0.9856474 * (jd - 2451545.0)) % 360.0
+        eot_min = 4.0 * math.remainder(
+            mean_longitude - math.degrees(almanac_low_precision_sun(jd)[0]), 360.0)
         for ltan in (6.0, 10.5, 13.75, 22.0):
             orbit = orbit_from_table({"altitude_km": 600.0, "inclination_deg": 97.8,
                                       "ltan": ltan, "epoch": epoch})
-            ra, dec, _ = ephemeris.sun_ra_dec([epoch], frame="icrf")
-            hour_angle_h = math.degrees(math.remainder(orbit.raan - ra[0], 2 * math.pi)) / 15.0
+            node_ra = _node_right_ascension_of_date(np.array([orbit.raan]), t)[0]
+            hour_angle_h = math.degrees(math.remainder(node_ra - ra_sun[0], 2 * math.pi)) / 15.0
             difference_min = math.remainder((hour_angle_h + 12.0 - ltan) * 60.0, 1440.0)
-            assert abs(difference_min) < 16.5 + 1.6  # + 1.6 min: ICRF vs of-date precession
+            # 3 s of time: the Almanac's alpha is good to 0.01 deg (2.4 s of time)
+            assert abs(difference_min - eot_min) * 60.0 < 3.0
+            # and the equation of time never exceeds 16.5 min (common practice)
+            assert abs(difference_min) < 16.5
 
 
 def test_j2_drift_rates_against_published_example():
