@@ -10,9 +10,9 @@ import pytest
 
 from vfactor import ephemeris
 from vfactor.attitude import DEFAULT_ATTITUDE_NOTE, attitude_from_table
-from vfactor.constants import EARTH_EQUATORIAL_RADIUS_M
+from vfactor.constants import EARTH_EQUATORIAL_RADIUS_M, SUN_RADIUS_M
 from vfactor.orbit import orbit_from_table
-from vfactor.trajectory import compute_trajectory, trajectory_from_model
+from vfactor.trajectory import compute_trajectory, orbit_facts, trajectory_from_model
 
 EPOCH = "2027-03-21T00:00:00Z"
 
@@ -77,7 +77,7 @@ def test_beta_against_ecliptic_longitude_form(leo):
     # ecliptic latitude (< 1 arcsec), so within 2e-5 rad (4 arcsec)
     t = ephemeris.times_from_epoch(EPOCH, tr.time)
     kernel = ephemeris.ephemeris()
-    lat, lon, _ = kernel["earth"].at(t).observe(kernel["sun"]).ecliptic_latlon()
+    _, lon, _ = kernel["earth"].at(t).observe(kernel["sun"]).ecliptic_latlon()
     g = lon.radians
     eps = math.radians(23.4392911)  # IAU 1980 obliquity at J2000 (Astronomical Almanac)
     i, w = orbit.inclination, orbit.raan
@@ -99,8 +99,6 @@ def test_trajectory_from_model():
 
 
 # --- orbit facts -----------------------------------------------------------------------
-from vfactor.constants import SUN_RADIUS_M  # noqa: E402
-from vfactor.trajectory import orbit_facts  # noqa: E402
 
 
 def polar_orbit_at_beta(altitude_km, beta_deg, shadow, steps_per_orbit=72, **extra):

@@ -126,7 +126,7 @@ def _fallback_secondary(primary, secondary):
     return out
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)  # holds arrays: compared by identity
 class Attitude:
     """A pointing law, evaluated per step by :meth:`body_to_inertial`.
 
