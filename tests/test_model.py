@@ -277,3 +277,12 @@ def test_random_text_loads_or_raises_model_error(text):
         pass
     problems = []
     load(text, problems=problems)      # collecting mode never raises
+
+
+def test_near_misses_get_a_suggestion():
+    with pytest.raises(ModelError, match="did you mean 'size'"):
+        load(COATING + PLATE.replace("size", "sise"))
+    with pytest.raises(ModelError, match="did you mean 'sphere'"):
+        load(COATING + PLATE.replace("rectangle", "sphear"))
+    with pytest.raises(ModelError, match="did you mean 'radiation'"):
+        load(COATING + PLATE + "[radiaton]\nseed = 2\n")

@@ -52,6 +52,7 @@ generated node names. A part without ``front`` and ``back`` only casts shadows.
 
 from __future__ import annotations
 
+import difflib
 import hashlib
 import math
 import tomllib
@@ -337,9 +338,17 @@ class _Reader:
     def unknown_keys(self, table: dict, allowed, where: str, what: str):
         for key in table:
             if key not in allowed:
+                close = difflib.get_close_matches(str(key), allowed, n=1)
+                hint = f"did you mean {close[0]!r}? " if close else ""
                 self.soft_error(f"{where} {key}" if where else key,
-                                f"unknown {what} key {key!r}; known keys are "
+                                f"unknown {what} key {key!r}; {hint}known keys are "
                                 f"{', '.join(allowed)}")
+
+
+def _hint(value, choices) -> str:
+    """' (did you mean X?)' for a near miss among ``choices``, else ''."""
+    close = difflib.get_close_matches(str(value), list(choices), n=1)
+    return f" (did you mean {close[0]!r}?)" if close else ""
 
 
 def _show(value) -> str:
@@ -427,7 +436,8 @@ def load_model_text(text: str, path_for_messages: str = "<model>", base_dir=None
 def _read_document(doc: dict, text: str, reader: _Reader, base: Path) -> Model:
     for key in doc:
         if key not in TOP_LEVEL_SECTIONS:
-            reader.soft_error(f"[{key}]", f"unknown section {key!r}; known sections are "
+            reader.soft_error(f"[{key}]", f"unknown section {key!r}"
+                              f"{_hint(key, TOP_LEVEL_SECTIONS)}; known sections are "
                               f"{', '.join(TOP_LEVEL_SECTIONS)}")
 
     # [model]
@@ -535,7 +545,8 @@ def _read_side(value, where: str, reader: _Reader, coatings: dict) -> Side:
     coating = reader.string(tab["coating"], f"{where} coating")
     if coating not in coatings:
         known = ", ".join(coatings) or "none defined"
-        reader.error(f"{where} coating", f"unknown coating {coating!r}; coatings are {known}")
+        reader.error(f"{where} coating", f"unknown coating {coating!r}"
+                     f"{_hint(coating, coatings)}; coatings are {known}")
     if "node" in tab and "nodes" in tab:
         reader.error(where, "give either 'node' (one named node) or 'nodes' (a mode), not both")
     if "node" in tab:
@@ -597,8 +608,8 @@ def _read_parts(value, reader: _Reader, coatings: dict, scale: float, base: Path
                 reader.error(where, f"missing key 'shape'; use one of {', '.join(SHAPES)}")
             shape = tab["shape"]
             if shape not in SHAPES:
-                reader.error(f"{where} shape", f"unknown shape {_show(shape)}; use one of "
-                             f"{', '.join(SHAPES)}")
+                reader.error(f"{where} shape", f"unknown shape {_show(shape)}"
+                             f"{_hint(shape, SHAPES)}; use one of {', '.join(SHAPES)}")
             allowed = _COMMON_PART_KEYS + _SHAPE_KEYS[shape]
             reader.unknown_keys(tab, allowed, where, f"{shape} part")
             parts.append(_read_part(tab, pname, shape, index, where, reader, coatings,

@@ -577,9 +577,9 @@ def read_mesh(path, scale: float = 1.0, max_edge: float | None = None,
         labels = _unique_labels(labels)
     else:
         labels, face = _flat_regions(verts, tris)
-    merged = trimesh.Trimesh(verts, tris, process=False)
-    merged.merge_vertices()
-    watertight = bool(merged.is_watertight) if len(merged.faces) == len(tris) else False
+    # share bit-identical vertices (an STL file repeats them per facet)
+    verts, tris = _merge_exact(verts, tris)
+    watertight = mesh_is_watertight(verts, tris)
     is_closed = watertight if closed is None else bool(closed)
     if max_edge is not None:
         estimate = 8.0 * float(triangle_areas(verts, tris).sum()) / max_edge ** 2
@@ -588,6 +588,7 @@ def read_mesh(path, scale: float = 1.0, max_edge: float | None = None,
                              f"(limit {MAX_FACETS_PER_PART}); use a larger max_edge",
                              where=where)
         verts, tris, face = _subdivide(verts, tris, face, max_edge)
+        verts, tris = _merge_exact(verts, tris)
     return Tessellation(np.ascontiguousarray(verts, np.float64), tris.astype(np.int64),
                         tuple(labels), face.astype(np.int64), closed=is_closed,
                         one_face=False)
