@@ -307,7 +307,7 @@ def orbit_facts(trajectory: Trajectory) -> OrbitFacts:
     """
     tr = trajectory
     planet = planet_by_name(tr.planet)
-    model = tr.shadow_model
+    model = tr.shadow_model or "conical"  # files written before the attribute existed
     altitude_km = (tr.planet_distance - planet.radius) / 1e3
     beta_deg = np.degrees(tr.beta)
     n = tr.n_steps
