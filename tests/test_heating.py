@@ -372,6 +372,17 @@ def test_cache_and_retrace_give_identical_numbers_and_are_deterministic():
         np.testing.assert_array_equal(getattr(a, f"facet_{src}"), getattr(c, f"facet_{src}"))
     d = run(geo, tr, PLANET_ONLY, rays_per_facet=128, sun_samples=16, seed=8)
     assert not np.array_equal(a.node_planet_ir, d.node_planet_ir)
+    # bit-identical for any thread count (counter-based randomness, fixed tally order)
+    import numba
+
+    threads = numba.get_num_threads()
+    try:
+        numba.set_num_threads(1)
+        e = run(geo, tr, PLANET_ONLY, rays_per_facet=128, sun_samples=16)
+    finally:
+        numba.set_num_threads(threads)
+    for src in ("solar", "albedo", "planet_ir"):
+        np.testing.assert_array_equal(getattr(a, f"node_{src}"), getattr(e, f"node_{src}"))
 
 
 # --- orbit average ----------------------------------------------------------------------

@@ -263,6 +263,10 @@ class _Sides:
     solar_specular: np.ndarray
     ir_specular: np.ndarray
 
+    @property
+    def count(self) -> int:
+        return int(self.facet.shape[0])
+
 
 def _band_tables(geometry):
     """(f, 2) node and band properties of the front (col 0) and back (col 1) sides."""
@@ -415,256 +419,303 @@ def compute_heating(geometry, scene, trajectory, environment, *, view_factors=No
         Inputs of the wrong type, shape or value (the message names the argument).
     """
     from vfactor.progress import NullReporter
-    from vfactor.tracing import heat_kernels as hk
 
     _check_inputs(geometry, scene, trajectory, environment, rays_per_facet, sun_samples,
                   seed, replicates, max_bounces)
     reporter = reporter or NullReporter()
-    m = int(replicates)
-    k_planet = -(-int(rays_per_facet) // m)
-    k_sun = -(-int(sun_samples) // m)
-    n_rays = m * k_planet
-    n_sun = m * k_sun
-    seed_u = np.uint64(seed)
-
-    vertices = np.ascontiguousarray(scene.vertices, dtype=np.float64)
-    triangles = np.ascontiguousarray(scene.triangles, dtype=np.int64)
-    normals = np.ascontiguousarray(scene.normals, dtype=np.float64)
-    arrays = scene.arrays
-    facet_node, (f_alpha, f_eps, f_sspec, f_ispec) = _band_tables(geometry)
-    sides = _sides(geometry, normals, facet_node, (f_alpha, f_eps, f_sspec, f_ispec))
-    n_sides = sides.facet.shape[0]
-    n_nodes = geometry.n_nodes
-    n_facets = geometry.n_facets
+    model = _prepare(geometry, scene, int(replicates), int(rays_per_facet), int(sun_samples),
+                     int(seed), int(max_bounces))
     n_steps = trajectory.n_steps
-    node_area = np.asarray(geometry.nodes.area, dtype=np.float64)
+    n_nodes = geometry.n_nodes
 
-    # --- once: first hits of every planet ray, and the cache of escaping rays ----------
-    targets = np.empty((n_sides, n_rays), dtype=np.int32)
-    if n_sides:
-        hk.trace_targets(arrays, vertices, triangles, normals, sides.facet, sides.sign,
-                         facet_node, seed_u, m, k_planet, targets)
-    escaping = (targets == hk.TARGET_ESCAPE).reshape(n_sides * m, k_planet)
-    segment_start = np.zeros(n_sides * m + 1, dtype=np.int64)
-    np.cumsum(escaping.sum(axis=1), out=segment_start[1:])
-    n_esc = int(segment_start[-1])
-    esc_origin = np.empty((n_esc, 3))
-    esc_dir = np.empty((n_esc, 3))
-    if use_cache or reflections:
-        if n_sides:
-            hk.fill_escaping(vertices, triangles, normals, sides.facet, sides.sign, seed_u, m,
-                             k_planet, targets, segment_start, esc_origin, esc_dir)
+    with reporter.stage("heating: escaping directions", total=max(model.sides.count, 1),
+                        unit="facet sides") as bar:
+        _trace_once(model, bar, need_rays=use_cache or reflections)
+    bands = _bands(model, geometry, view_factors) if reflections else None
 
-    # --- reflection set-up: Gebhart factors per band, specular sides ------------------
-    bands = {}
-    if reflections:
-        if view_factors is not None:
-            view = (np.asarray(view_factors.matrix, dtype=np.float64),
-                    np.asarray(view_factors.space, dtype=np.float64),
-                    np.asarray(view_factors.inert, dtype=np.float64))
-            if view[0].shape != (n_nodes, n_nodes):
-                raise ValueError(f"compute_heating: view_factors.matrix must have shape "
-                                 f"({n_nodes}, {n_nodes}), got {view[0].shape}")
-        else:
-            view = _node_view_factors(sides, targets, n_nodes, node_area)
-        for band, absorb, spec, f_abs, f_spec, s_abs, s_spec in (
-                ("solar", geometry.nodes.solar_absorptivity, None, f_alpha, f_sspec,
-                 sides.absorptivity, sides.solar_specular),
-                ("ir", geometry.nodes.ir_emissivity, None, f_eps, f_ispec,
-                 sides.emissivity, sides.ir_specular)):
-            absorb = np.asarray(absorb, dtype=np.float64)
-            if n_nodes and np.all(absorb >= 1.0):
-                gebhart = None            # black vehicle in this band: nothing reflected
-            else:
-                gebhart = _gebhart(view, absorb) if n_nodes else None
-            spec_sides = np.flatnonzero((1.0 - s_abs) * s_spec > 0.0)
-            bands[band] = dict(gebhart=gebhart, f_abs=f_abs, f_spec=f_spec, s_abs=s_abs,
-                               s_spec=s_spec, spec_sides=spec_sides)
-        # cached planet rays of the specular sides, with their mirror directions
-        for band in ("solar", "ir"):
-            b = bands[band]
-            rows, owner = _rows_of_sides(b["spec_sides"], segment_start, m)
-            d = esc_dir[rows]
-            n = sides.normal[owner]
-            dn = np.einsum("ij,ij->i", d, n)
-            b["rows"] = rows
-            b["owner"] = owner
-            b["mirror"] = np.ascontiguousarray(-d + 2.0 * dn[:, None] * n)
-            b["mirror_origin"] = np.ascontiguousarray(esc_origin[rows])
-
-    # --- per step -------------------------------------------------------------------------
-    sun_all = np.ascontiguousarray(trajectory.sun_body, dtype=np.float64)
+    sun_all = np.asarray(trajectory.sun_body, dtype=np.float64)
     nadir_all = np.asarray(trajectory.nadir_body, dtype=np.float64)
     dist_all = np.asarray(trajectory.planet_distance, dtype=np.float64)
     frac_all = np.asarray(trajectory.sun_fraction, dtype=np.float64)
     sun_dist_all = np.asarray(trajectory.sun_distance, dtype=np.float64)
-    s_const = environment.solar_constant_series(sun_dist_all)
-    radius = float(trajectory.planet.radius)
-    olr = float(environment.planet_ir)
-    albedo = float(environment.albedo)
+    s_const = np.asarray(environment.solar_constant_series(sun_dist_all), dtype=np.float64)
+    env = dict(radius=float(trajectory.planet.radius), olr=float(environment.planet_ir),
+               albedo=float(environment.albedo))
 
-    out = {key: np.zeros((n_steps, n_nodes)) for key in
-           ("node_solar", "node_albedo", "node_planet_ir", "incident_solar",
-            "incident_albedo", "incident_planet_ir", "node_solar_stderr",
-            "node_albedo_stderr", "node_planet_ir_stderr")}
-    facet_out = {src: np.zeros((n_steps, n_facets)) for src in SOURCES}
-    escaped = {src: np.zeros(n_steps) for src in SOURCES}
-    inert = {src: np.zeros(n_steps) for src in SOURCES}
-
-    lit = np.zeros((n_sides, m))
-    hits = np.zeros(n_sides * m)
-    cos_sum = np.zeros(n_sides * m)
-    side_area_facet = np.asarray(geometry.areas, dtype=np.float64)
+    out = {f"{kind}_{src}": np.zeros((n_steps, n_nodes))
+           for kind in ("node", "incident") for src in SOURCES}
+    out.update({f"node_{src}_stderr": np.zeros((n_steps, n_nodes)) for src in SOURCES})
+    out.update({f"facet_{src}": np.zeros((n_steps, geometry.n_facets)) for src in SOURCES})
+    out.update({f"{kind}_{src}": np.zeros(n_steps) for kind in ("escaped", "inert")
+                for src in SOURCES})
 
     with reporter.stage("heating", total=n_steps, unit="steps") as bar:
         for k in range(n_steps):
-            sun = sun_all[k] / np.linalg.norm(sun_all[k])
-            nadir = nadir_all[k] / np.linalg.norm(nadir_all[k])
-            centre = np.ascontiguousarray(nadir * dist_all[k])
-            solar_k = float(s_const[k])
-            frac = float(frac_all[k])
-            cos_half = math.cos(math.asin(min(1.0, SUN_RADIUS_M / sun_dist_all[k])))
-
-            # direct solar: per side and replicate, incident power
-            cos_t = np.maximum(sides.normal @ sun, 0.0)
-            if n_sides and frac > 0.0 and solar_k > 0.0:
-                hk.sun_lit(arrays, vertices, triangles, normals, sides.facet, sides.sign,
-                           seed_u, m, k_sun, sun, cos_half, lit)
-                solar_rep = (solar_k * frac * cos_t * sides.area)[:, None] * (lit / k_sun)
-            else:
-                solar_rep = np.zeros((n_sides, m))
-
-            # planet: hits and albedo cosines per (side, replicate)
-            if n_sides:
-                if use_cache:
-                    hk.planet_cached(segment_start, esc_origin, esc_dir, centre, radius, sun,
-                                     hits, cos_sum)
-                else:
-                    hk.planet_uncached(arrays, vertices, triangles, normals, sides.facet,
-                                       sides.sign, seed_u, m, k_planet, centre, radius, sun,
-                                       hits, cos_sum)
-            ir_rep = (olr * sides.area)[:, None] * (hits.reshape(n_sides, m) / k_planet)
-            alb_rep = (albedo * solar_k * sides.area)[:, None] * (
-                cos_sum.reshape(n_sides, m) / k_planet)
-
-            for src, rep, absorb in (("solar", solar_rep, sides.absorptivity),
-                                     ("albedo", alb_rep, sides.absorptivity),
-                                     ("planet_ir", ir_rep, sides.emissivity)):
-                incident_side = rep.mean(axis=1)
-                absorbed_side = absorb * incident_side
-                out[f"incident_{src}"][k] = np.bincount(sides.node, weights=incident_side,
-                                                        minlength=n_nodes)
-                # replicate estimates of each node's directly absorbed power -> stderr
-                node_rep = np.zeros((n_nodes, m))
-                np.add.at(node_rep, sides.node, absorb[:, None] * rep)
-                out[f"node_{src}_stderr"][k] = node_rep.std(axis=1, ddof=1) / math.sqrt(m)
-                absorbed_node = np.bincount(sides.node, weights=absorbed_side,
-                                            minlength=n_nodes)
-                facet_w = np.bincount(sides.facet, weights=absorbed_side, minlength=n_facets)
-                if reflections and n_sides:
-                    band = bands["ir" if src == "planet_ir" else "solar"]
-                    extra, esc, lost = _reflect(
-                        src, band, sides, incident_side, arrays, normals, facet_node,
-                        n_nodes, k, hk, dict(vertices=vertices, triangles=triangles,
-                                             seed=seed_u, m=m, k_sun=k_sun, sun=sun,
-                                             cos_half=cos_half, solar=solar_k, frac=frac,
-                                             cos_t=cos_t, centre=centre, radius=radius,
-                                             albedo=albedo, olr=olr, k_planet=k_planet,
-                                             esc_origin=esc_origin, esc_dir=esc_dir,
-                                             normals=normals, max_bounces=max_bounces))
-                    absorbed_node = absorbed_node + extra
-                    share = np.where(node_area > 0.0, extra / np.where(node_area > 0.0,
-                                                                       node_area, 1.0), 0.0)
-                    facet_w = facet_w + np.bincount(
-                        sides.facet, weights=share[sides.node] * sides.area,
-                        minlength=n_facets)
-                    escaped[src][k] = esc
-                    inert[src][k] = lost
-                out[f"node_{src}"][k] = absorbed_node
-                facet_out[src][k] = np.where(side_area_facet > 0.0, facet_w / np.where(
-                    side_area_facet > 0.0, side_area_facet, 1.0), 0.0)
+            step = _Step(sun=_unit(sun_all[k]),
+                         centre=np.ascontiguousarray(_unit(nadir_all[k]) * dist_all[k]),
+                         solar=float(s_const[k]), fraction=float(frac_all[k]),
+                         cos_half=math.cos(math.asin(min(1.0, SUN_RADIUS_M / sun_dist_all[k]))),
+                         **env)
+            _one_step(model, bands, step, use_cache, k, out)
             bar.advance(1)
 
-    time = np.asarray(trajectory.time, dtype=np.float64).copy()
     return Heating(
-        node_solar=out["node_solar"], node_albedo=out["node_albedo"],
-        node_planet_ir=out["node_planet_ir"], facet_solar=facet_out["solar"],
-        facet_albedo=facet_out["albedo"], facet_planet_ir=facet_out["planet_ir"],
-        incident_solar=out["incident_solar"], incident_albedo=out["incident_albedo"],
-        incident_planet_ir=out["incident_planet_ir"], solar_constant=np.asarray(s_const),
-        albedo=albedo, planet_ir=olr, case=environment.case,
-        node_solar_stderr=out["node_solar_stderr"],
-        node_albedo_stderr=out["node_albedo_stderr"],
-        node_planet_ir_stderr=out["node_planet_ir_stderr"],
-        escaped_solar=escaped["solar"], escaped_albedo=escaped["albedo"],
-        escaped_planet_ir=escaped["planet_ir"], inert_solar=inert["solar"],
-        inert_albedo=inert["albedo"], inert_planet_ir=inert["planet_ir"], time=time,
-        rays_per_facet=n_rays, sun_samples=n_sun, seed=int(seed))
+        **{key: out[key] for key in (
+            "node_solar", "node_albedo", "node_planet_ir", "facet_solar", "facet_albedo",
+            "facet_planet_ir", "incident_solar", "incident_albedo", "incident_planet_ir",
+            "node_solar_stderr", "node_albedo_stderr", "node_planet_ir_stderr",
+            "escaped_solar", "escaped_albedo", "escaped_planet_ir", "inert_solar",
+            "inert_albedo", "inert_planet_ir")},
+        solar_constant=s_const, albedo=env["albedo"], planet_ir=env["olr"],
+        case=environment.case, time=np.asarray(trajectory.time, dtype=np.float64).copy(),
+        rays_per_facet=model.m * model.k_planet, sun_samples=model.m * model.k_sun,
+        seed=int(seed))
+
+
+def _unit(v):
+    v = np.asarray(v, dtype=np.float64)
+    return v / np.linalg.norm(v)
+
+
+@dataclass
+class _Model:
+    """Everything about the vehicle that does not change along the orbit (internal)."""
+
+    arrays: tuple
+    vertices: np.ndarray
+    triangles: np.ndarray
+    normals: np.ndarray
+    facet_node: np.ndarray       # (f, 2)
+    props: tuple                 # (f, 2) alpha, eps, solar specular, ir specular
+    sides: "_Sides"
+    node_area: np.ndarray
+    facet_area: np.ndarray
+    n_nodes: int
+    m: int
+    k_planet: int
+    k_sun: int
+    seed: np.uint64
+    max_bounces: int
+    targets: np.ndarray = None           # (s, m k_planet) int32
+    segment_start: np.ndarray = None     # (s m + 1,) int64
+    esc_origin: np.ndarray = None        # (e, 3)
+    esc_dir: np.ndarray = None           # (e, 3)
+
+
+@dataclass(frozen=True)
+class _Step:
+    """The environment at one step (internal)."""
+
+    sun: np.ndarray          # (3,) unit, body frame
+    centre: np.ndarray       # (3,) planet centre, body frame [m]
+    solar: float             # solar constant [W m-2]
+    fraction: float          # visible share of the solar disk
+    cos_half: float          # cosine of the Sun's angular radius
+    radius: float            # planet radius [m]
+    olr: float               # planet IR [W m-2]
+    albedo: float            # [1]
+
+
+def _prepare(geometry, scene, m, rays_per_facet, sun_samples, seed, max_bounces) -> _Model:
+    vertices = np.ascontiguousarray(scene.vertices, dtype=np.float64)
+    triangles = np.ascontiguousarray(scene.triangles, dtype=np.int64)
+    normals = np.ascontiguousarray(scene.normals, dtype=np.float64)
+    facet_node, props = _band_tables(geometry)
+    sides = _sides(geometry, normals, facet_node, props)
+    return _Model(arrays=scene.arrays, vertices=vertices, triangles=triangles, normals=normals,
+                  facet_node=facet_node, props=tuple(props), sides=sides,
+                  node_area=np.asarray(geometry.nodes.area, dtype=np.float64),
+                  facet_area=np.asarray(geometry.areas, dtype=np.float64),
+                  n_nodes=geometry.n_nodes, m=m, k_planet=-(-rays_per_facet // m),
+                  k_sun=-(-sun_samples // m), seed=np.uint64(seed), max_bounces=max_bounces)
+
+
+_TRACE_BATCH = 512
+
+
+def _trace_once(model: _Model, bar, need_rays: bool) -> None:
+    """First hits of every planet ray (batches of sides, for progress), and the cache."""
+    from vfactor.tracing import heat_kernels as hk
+
+    s = model.sides
+    n_rays = model.m * model.k_planet
+    targets = np.empty((s.count, n_rays), dtype=np.int32)
+    for a in range(0, s.count, _TRACE_BATCH):
+        b = min(s.count, a + _TRACE_BATCH)
+        hk.trace_targets(model.arrays, model.vertices, model.triangles, model.normals,
+                         s.facet[a:b], s.sign[a:b], model.facet_node, model.seed, model.m,
+                         model.k_planet, targets[a:b])
+        bar.advance(b - a)
+    escaping = (targets == hk.TARGET_ESCAPE).reshape(s.count * model.m, model.k_planet)
+    segment_start = np.zeros(s.count * model.m + 1, dtype=np.int64)
+    np.cumsum(escaping.sum(axis=1), out=segment_start[1:])
+    n_esc = int(segment_start[-1]) if need_rays else 0
+    model.targets = targets
+    model.segment_start = segment_start
+    model.esc_origin = np.empty((n_esc, 3))
+    model.esc_dir = np.empty((n_esc, 3))
+    if need_rays and s.count:
+        hk.fill_escaping(model.vertices, model.triangles, model.normals, s.facet, s.sign,
+                         model.seed, model.m, model.k_planet, targets, segment_start,
+                         model.esc_origin, model.esc_dir)
+
+
+def _bands(model: _Model, geometry, view_factors) -> dict:
+    """Per band: Gebhart factors, side and facet properties, specular sides and rays."""
+    n = model.n_nodes
+    if view_factors is not None:
+        view = (np.asarray(view_factors.matrix, dtype=np.float64),
+                np.asarray(view_factors.space, dtype=np.float64),
+                np.asarray(view_factors.inert, dtype=np.float64))
+        if view[0].shape != (n, n):
+            raise ValueError(f"compute_heating: view_factors.matrix must have shape ({n}, {n}),"
+                             f" got {view[0].shape}")
+    else:
+        view = _node_view_factors(model.sides, model.targets, n, model.node_area)
+    f_alpha, f_eps, f_sspec, f_ispec = model.props
+    s = model.sides
+    bands = {}
+    for band, node_abs, f_abs, f_spec, s_abs, s_spec in (
+            ("solar", geometry.nodes.solar_absorptivity, f_alpha, f_sspec, s.absorptivity,
+             s.solar_specular),
+            ("ir", geometry.nodes.ir_emissivity, f_eps, f_ispec, s.emissivity, s.ir_specular)):
+        node_abs = np.asarray(node_abs, dtype=np.float64)
+        black = n == 0 or bool(np.all(node_abs >= 1.0))   # nothing is reflected
+        spec_sides = np.flatnonzero((1.0 - s_abs) * s_spec > 0.0)
+        rows, owner = _rows_of_sides(spec_sides, model.segment_start, model.m)
+        d = model.esc_dir[rows]
+        nrm = s.normal[owner]
+        dn = np.einsum("ij,ij->i", d, nrm)
+        bands[band] = dict(
+            gebhart=None if black else _gebhart(view, node_abs), f_abs=f_abs, f_spec=f_spec,
+            s_abs=s_abs, s_spec=s_spec, spec_sides=spec_sides, rows=rows, owner=owner,
+            mirror=np.ascontiguousarray(-d + 2.0 * dn[:, None] * nrm),
+            mirror_origin=np.ascontiguousarray(model.esc_origin[rows]))
+    return bands
+
+
+def _one_step(model: _Model, bands, step: _Step, use_cache: bool, k: int, out: dict) -> None:
+    """Fill row ``k`` of every output for one step."""
+    from vfactor.tracing import heat_kernels as hk
+
+    s = model.sides
+    m = model.m
+    n_nodes = model.n_nodes
+
+    # direct solar: unshadowed sample points per (side, sample)
+    cos_t = np.maximum(s.normal @ step.sun, 0.0)
+    lit_mask = np.zeros((s.count, m * model.k_sun), dtype=np.bool_)
+    if s.count and step.fraction > 0.0 and step.solar > 0.0:
+        hk.sun_lit_mask(model.arrays, model.vertices, model.triangles, model.normals, s.facet,
+                        s.sign, model.seed, m, model.k_sun, step.sun, step.cos_half, lit_mask)
+    lit = lit_mask.reshape(s.count, m, model.k_sun).sum(axis=2)
+    solar_rep = (step.solar * step.fraction * cos_t * s.area)[:, None] * (lit / model.k_sun)
+
+    # planet: hits and albedo cosines per (side, replicate)
+    hits = np.zeros(s.count * m)
+    cos_sum = np.zeros(s.count * m)
+    if s.count:
+        if use_cache:
+            hk.planet_cached(model.segment_start, model.esc_origin, model.esc_dir, step.centre,
+                             step.radius, step.sun, hits, cos_sum)
+        else:
+            hk.planet_uncached(model.arrays, model.vertices, model.triangles, model.normals,
+                               s.facet, s.sign, model.seed, m, model.k_planet, step.centre,
+                               step.radius, step.sun, hits, cos_sum)
+    ir_rep = (step.olr * s.area)[:, None] * (hits.reshape(s.count, m) / model.k_planet)
+    alb_rep = (step.albedo * step.solar * s.area)[:, None] * (
+        cos_sum.reshape(s.count, m) / model.k_planet)
+
+    area_safe = np.where(model.facet_area > 0.0, model.facet_area, 1.0)
+    node_area_safe = np.where(model.node_area > 0.0, model.node_area, 1.0)
+    for src, rep, absorb in (("solar", solar_rep, s.absorptivity),
+                             ("albedo", alb_rep, s.absorptivity),
+                             ("planet_ir", ir_rep, s.emissivity)):
+        incident_side = rep.mean(axis=1)
+        absorbed_side = absorb * incident_side
+        out[f"incident_{src}"][k] = np.bincount(s.node, weights=incident_side,
+                                                minlength=n_nodes)
+        # independent replicate estimates of each node's directly absorbed power -> stderr
+        node_rep = np.stack([np.bincount(s.node, weights=absorb * rep[:, r], minlength=n_nodes)
+                             for r in range(m)], axis=1)
+        out[f"node_{src}_stderr"][k] = node_rep.std(axis=1, ddof=1) / math.sqrt(m)
+        absorbed_node = np.bincount(s.node, weights=absorbed_side, minlength=n_nodes)
+        facet_power = np.bincount(s.facet, weights=absorbed_side,
+                                  minlength=model.facet_area.shape[0])
+        if bands is not None and s.count:
+            band = bands["ir" if src == "planet_ir" else "solar"]
+            extra, escaped, lost = _reflect(model, src, band, step, incident_side, lit_mask,
+                                            cos_t)
+            absorbed_node = absorbed_node + extra
+            share = np.where(model.node_area > 0.0, extra / node_area_safe, 0.0)
+            facet_power = facet_power + np.bincount(
+                s.facet, weights=share[s.node] * s.area, minlength=model.facet_area.shape[0])
+            out[f"escaped_{src}"][k] = escaped
+            out[f"inert_{src}"][k] = lost
+        out[f"node_{src}"][k] = absorbed_node
+        out[f"facet_{src}"][k] = np.where(model.facet_area > 0.0, facet_power / area_safe, 0.0)
 
 
 def _rows_of_sides(side_list, segment_start, m):
     """Rows of the escaping-ray cache that belong to the given sides, and their owner."""
-    rows = []
-    owner = []
-    for s in side_list:
-        a = segment_start[s * m]
-        b = segment_start[(s + 1) * m]
-        rows.append(np.arange(a, b, dtype=np.int64))
-        owner.append(np.full(b - a, s, dtype=np.int64))
+    rows = [np.arange(segment_start[i * m], segment_start[(i + 1) * m], dtype=np.int64)
+            for i in side_list]
     if not rows:
         return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+    owner = [np.full(r.size, i, dtype=np.int64) for i, r in zip(side_list, rows)]
     return np.concatenate(rows), np.concatenate(owner)
 
 
 _CHUNK = 4096
 
 
-def _run_chains(hk, arrays, normals, facet_node, band, origin, direction, exclude, weight,
-                n_nodes, max_bounces):
-    """Specular chains of a batch of rays: (absorbed (n,), diffuse (n,), escaped, inert)."""
+def _run_chains(model: _Model, band, origin, direction, exclude, weight):
+    """Specular chains of a batch of rays: (absorbed (n,), diffuse (n,), escaped, inert) [W]."""
+    from vfactor.tracing import heat_kernels as hk
+
+    n = model.n_nodes
     count = origin.shape[0]
     if count == 0:
-        return np.zeros(n_nodes), np.zeros(n_nodes), 0.0, 0.0
+        return np.zeros(n), np.zeros(n), 0.0, 0.0
     chunks = -(-count // _CHUNK)
-    absorbed = np.empty((chunks, n_nodes))
-    diffuse = np.empty((chunks, n_nodes))
+    absorbed = np.empty((chunks, n))
+    diffuse = np.empty((chunks, n))
     esc = np.empty(chunks)
     lost = np.empty(chunks)
-    hk.specular_chains(arrays, normals, facet_node, band["f_abs"], band["f_spec"],
-                       np.ascontiguousarray(origin), np.ascontiguousarray(direction),
+    hk.specular_chains(model.arrays, model.normals, model.facet_node, band["f_abs"],
+                       band["f_spec"], np.ascontiguousarray(origin),
+                       np.ascontiguousarray(direction),
                        np.ascontiguousarray(exclude, dtype=np.int64),
-                       np.ascontiguousarray(weight), _CHUNK, max_bounces, absorbed, diffuse,
-                       esc, lost)
+                       np.ascontiguousarray(weight), _CHUNK, model.max_bounces, absorbed,
+                       diffuse, esc, lost)
     return absorbed.sum(axis=0), diffuse.sum(axis=0), float(esc.sum()), float(lost.sum())
 
 
-def _reflect(src, band, sides, incident_side, arrays, normals, facet_node, n_nodes, step,
-             hk, ctx):
+def _reflect(model: _Model, src, band, step: _Step, incident_side, lit_mask, cos_t):
     """Power absorbed after reflection inside the vehicle, per node, for one source.
 
     Returns (absorbed (n,) [W], escaped [W], inert [W]).
     """
+    s = model.sides
     s_abs = band["s_abs"]
     s_spec = band["s_spec"]
     reflected = (1.0 - s_abs) * incident_side
-    diffuse = np.bincount(sides.node, weights=reflected * (1.0 - s_spec), minlength=n_nodes)
-    absorbed = np.zeros(n_nodes)
+    diffuse = np.bincount(s.node, weights=reflected * (1.0 - s_spec), minlength=model.n_nodes)
+    absorbed = np.zeros(model.n_nodes)
     escaped = 0.0
     lost = 0.0
     spec_sides = band["spec_sides"]
     if spec_sides.size and reflected[spec_sides].sum() > 0.0:
         if src == "solar":
-            origin, direction, exclude, weight = _sun_mirror(hk, arrays, sides, spec_sides,
-                                                             band, ctx)
+            rays = _sun_mirror(model, band, step, lit_mask, cos_t)
         else:
-            origin, direction, exclude, weight = _planet_mirror(hk, src, sides, band, ctx)
-        a, d, e, q = _run_chains(hk, arrays, normals, facet_node, band, origin, direction,
-                                 exclude, weight, n_nodes, ctx["max_bounces"])
+            rays = _planet_mirror(model, src, band, step)
+        a, d, e, q = _run_chains(model, band, *rays)
         absorbed += a
         diffuse += d
         escaped += e
         lost += q
-    if band["gebhart"] is not None and diffuse.any():
+    if band["gebhart"] is not None:
         b, b_space, b_inert = band["gebhart"]
         absorbed += diffuse @ b
         escaped += float(diffuse @ b_space)
@@ -674,43 +725,42 @@ def _reflect(src, band, sides, incident_side, arrays, normals, facet_node, n_nod
     return absorbed, escaped, lost
 
 
-def _sun_mirror(hk, arrays, sides, spec_sides, band, ctx):
-    m = ctx["m"]
-    k_sun = ctx["k_sun"]
-    n = m * k_sun
-    sub_facet = np.ascontiguousarray(sides.facet[spec_sides])
-    sub_sign = np.ascontiguousarray(sides.sign[spec_sides])
-    mask = np.zeros((spec_sides.size, n), dtype=np.bool_)
-    hk.sun_lit_mask(arrays, ctx["vertices"], ctx["triangles"], ctx["normals"],
-                    sub_facet, sub_sign, ctx["seed"], m, k_sun, ctx["sun"], ctx["cos_half"],
-                    mask)
-    origin = np.zeros((spec_sides.size, n, 3))
-    direction = np.zeros((spec_sides.size, n, 3))
-    hk.sun_mirror_rays(ctx["vertices"], ctx["triangles"], ctx["normals"],
-                       sub_facet, sub_sign, ctx["seed"], m, k_sun, ctx["sun"],
-                       ctx["cos_half"], mask, origin, direction)
-    per_sample = (ctx["solar"] * ctx["frac"] * ctx["cos_t"][spec_sides] *
-                  sides.area[spec_sides] / n * (1.0 - band["s_abs"][spec_sides]) *
-                  band["s_spec"][spec_sides])
-    weight = np.broadcast_to(per_sample[:, None], mask.shape)[mask]
-    exclude = np.broadcast_to(sub_facet[:, None], mask.shape)[mask]
-    return origin[mask], direction[mask], exclude, weight
+def _sun_mirror(model: _Model, band, step: _Step, lit_mask, cos_t):
+    """Mirror rays of the unshadowed Sun samples of the specular sides, with their power."""
+    from vfactor.tracing import heat_kernels as hk
+
+    s = model.sides
+    spec = band["spec_sides"]
+    n = model.m * model.k_sun
+    sub_mask = np.ascontiguousarray(lit_mask[spec])
+    sub_facet = np.ascontiguousarray(s.facet[spec])
+    origin = np.zeros((spec.size, n, 3))
+    direction = np.zeros((spec.size, n, 3))
+    hk.sun_mirror_rays(model.vertices, model.triangles, model.normals, sub_facet,
+                       np.ascontiguousarray(s.sign[spec]), model.seed, model.m, model.k_sun,
+                       step.sun, step.cos_half, sub_mask, origin, direction)
+    per_sample = (step.solar * step.fraction * cos_t[spec] * s.area[spec] / n
+                  * (1.0 - band["s_abs"][spec]) * band["s_spec"][spec])
+    weight = np.broadcast_to(per_sample[:, None], sub_mask.shape)[sub_mask]
+    exclude = np.broadcast_to(sub_facet[:, None], sub_mask.shape)[sub_mask]
+    return origin[sub_mask], direction[sub_mask], exclude, weight
 
 
-def _planet_mirror(hk, src, sides, band, ctx):
+def _planet_mirror(model: _Model, src, band, step: _Step):
+    """Mirror rays of the cached planet rays of the specular sides, with their power."""
+    from vfactor.tracing import heat_kernels as hk
+
+    s = model.sides
     rows = band["rows"]
     owner = band["owner"]
     hit = np.zeros(rows.size, dtype=np.bool_)
     mu = np.zeros(rows.size)
     if rows.size:
-        hk.planet_ray_cos(ctx["esc_origin"], ctx["esc_dir"], rows, ctx["centre"],
-                          ctx["radius"], ctx["sun"], hit, mu)
-    base = sides.area[owner] / (ctx["m"] * ctx["k_planet"]) * (
-        1.0 - band["s_abs"][owner]) * band["s_spec"][owner]
-    if src == "albedo":
-        weight = base * ctx["albedo"] * ctx["solar"] * mu
-    else:
-        weight = base * ctx["olr"]
+        hk.planet_ray_cos(model.esc_origin, model.esc_dir, rows, step.centre, step.radius,
+                          step.sun, hit, mu)
+    base = (s.area[owner] / (model.m * model.k_planet) * (1.0 - band["s_abs"][owner])
+            * band["s_spec"][owner])
+    weight = base * (step.albedo * step.solar * mu if src == "albedo" else step.olr)
     keep = hit & (weight > 0.0)
-    return (band["mirror_origin"][keep], band["mirror"][keep], sides.facet[owner[keep]],
+    return (band["mirror_origin"][keep], band["mirror"][keep], s.facet[owner[keep]],
             weight[keep])

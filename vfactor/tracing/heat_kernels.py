@@ -19,7 +19,8 @@ Kernels
   traced), grouped by (side, replicate).
 - :func:`planet_cached` : per step, escaping rays against the planet sphere.
 - :func:`planet_uncached` : the same result re-tracing every ray against the vehicle.
-- :func:`sun_lit` : per step, sample points of each side traced toward the solar disk.
+- :func:`sun_lit_mask` : per step, sample points of each side traced toward the solar disk.
+- :func:`sun_mirror_rays`, :func:`planet_ray_cos` : rays and weights of specular shares.
 - :func:`specular_chains` : specular reflection chains of given rays inside the vehicle.
 
 References
@@ -50,7 +51,9 @@ __all__ = [
     "fill_escaping",
     "planet_cached",
     "planet_uncached",
-    "sun_lit",
+    "sun_lit_mask",
+    "sun_mirror_rays",
+    "planet_ray_cos",
     "specular_chains",
     "TARGET_ESCAPE",
     "TARGET_INERT",
@@ -239,45 +242,6 @@ def planet_uncached(arrays, vertices, triangles, normals, side_facet, side_sign,
             out_cos[s * replicates + r] = cos_sum
 
 
-@njit(**JIT_PARALLEL)
-def sun_lit(arrays, vertices, triangles, normals, side_facet, side_sign, seed, replicates,
-            per_replicate, sun, cos_half_angle, out_lit):
-    """Per step: how many sample points of each side see the Sun.
-
-    Points are uniform on the facet; each is traced toward a point of the solar disk
-    (direction uniform in the cone of half-angle ``acos(cos_half_angle)`` about ``sun``),
-    so shadow edges get the penumbra of the disk. Sides facing away from the Sun
-    (``dot(n, sun) <= 0``) are not traced and get 0.
-
-    Parameters
-    ----------
-    sun : (3,) float64 — unit vector toward the centre of the Sun [1]
-    cos_half_angle : float — cosine of the Sun's angular radius [1]
-    out_lit : (s, replicates) float64, written — unshadowed sample points per replicate
-    """
-    sx = sun[0]
-    sy = sun[1]
-    sz = sun[2]
-    for s in prange(side_facet.shape[0]):
-        f = side_facet[s]
-        sign = side_sign[s]
-        cos_t = sign * (normals[f, 0] * sx + normals[f, 1] * sy + normals[f, 2] * sz)
-        if cos_t <= 0.0:
-            for r in range(replicates):
-                out_lit[s, r] = 0.0
-            continue
-        stream = side_stream(PURPOSE_SUN, f, sign)
-        for r in range(replicates):
-            lit = 0.0
-            for k in range(per_replicate):
-                u0, u1, u2, u3 = rqmc_uniform4(seed, stream, r, k)
-                x, y, z = triangle_point(vertices, triangles, f, u0, u1)
-                dx, dy, dz = cone_direction(sx, sy, sz, cos_half_angle, u2, u3)
-                if not any_hit(arrays, x, y, z, dx, dy, dz, np.inf, f):
-                    lit += 1.0
-            out_lit[s, r] = lit
-
-
 @njit(**JIT)
 def _chain(arrays, normals, facet_node, facet_absorptivity, facet_specular, ox, oy, oz,
            dx, dy, dz, exclude, weight, max_bounces, absorbed, diffuse):
@@ -402,8 +366,21 @@ def sun_mirror_rays(vertices, triangles, normals, side_facet, side_sign, seed, r
 @njit(**JIT_PARALLEL)
 def sun_lit_mask(arrays, vertices, triangles, normals, side_facet, side_sign, seed,
                  replicates, per_replicate, sun, cos_half_angle, out_mask):
-    """Per-sample form of :func:`sun_lit` for the sides that reflect specularly.
+    """Per step: which sample points of each side see the Sun.
 
+    Points are uniform on the facet; each is traced toward a point of the solar disk
+    (direction uniform in the cone of half-angle ``acos(cos_half_angle)`` about ``sun``),
+    so self-shadow edges get the penumbra of the disk. Sides facing away from the Sun
+    (``dot(n, sun) <= 0``) are not traced.
+
+    Parameters
+    ----------
+    arrays : tuple — ``Scene.arrays``
+    vertices (v, 3) [m], triangles (f, 3) int64, normals (f, 3) [1]
+    side_facet (s,) int64, side_sign (s,) int64
+    seed : uint64; replicates, per_replicate : int
+    sun : (3,) float64 — unit vector toward the centre of the Sun [1]
+    cos_half_angle : float — cosine of the Sun's angular radius [1]
     out_mask : (s, replicates * per_replicate) bool, written — True where unshadowed
     """
     sx = sun[0]

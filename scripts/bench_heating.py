@@ -1,0 +1,114 @@
+"""Benchmark of the orbital heating stage on the demo model (invented satellite).
+
+1. One orbit at 72 steps, with the escaping-direction cache (rays traced once against the
+   vehicle, per step only against the planet) and without it (every ray re-traced against
+   the vehicle at every step). Both use the same rays, so the results must agree exactly;
+   the largest difference is printed with the reported one-sigma error for scale.
+2. How the time grows with the number of facets (the demo's max_edge divided by 1, 1.5, 2)
+   and with the number of steps (18, 36, 72, 144), with the cache.
+
+Times exclude numba compilation (a small warm-up run first). Last line:
+``cache speedup: R`` (time without the cache / time with it, heating stage only).
+
+Run: ``.venv/bin/python scripts/bench_heating.py [--quick]``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import re
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+from vfactor.environment import environment_from_table  # noqa: E402
+from vfactor.geometry import build_geometry  # noqa: E402
+from vfactor.heating import compute_heating  # noqa: E402
+from vfactor.model import load_model_text  # noqa: E402
+from vfactor.tracing.scene import Scene  # noqa: E402
+from vfactor.trajectory import trajectory_from_model  # noqa: E402
+
+DEMO = ROOT / "meshes" / "demo.toml"
+
+
+def demo_text(edge_divisor=1.0, steps=72):
+    """The demo model text with every max_edge divided and steps_per_orbit replaced."""
+    text = DEMO.read_text()
+    text = re.sub(r"max_edge\s*=\s*([0-9.]+)",
+                  lambda m: f"max_edge = {float(m.group(1)) / edge_divisor:.6g}", text)
+    text = re.sub(r"steps_per_orbit\s*=\s*\d+", f"steps_per_orbit = {steps}", text)
+    return text
+
+
+def setup(edge_divisor=1.0, steps=72):
+    model = load_model_text(demo_text(edge_divisor, steps), str(DEMO), base_dir=DEMO.parent)
+    geometry = build_geometry(model)
+    scene = Scene.build(geometry.vertices, geometry.triangles)
+    trajectory = trajectory_from_model(model)
+    environment = environment_from_table(model.environment_table, str(DEMO))
+    return model, geometry, scene, trajectory, environment
+
+
+def timed(geometry, scene, trajectory, environment, **kw):
+    t0 = time.perf_counter()
+    result = compute_heating(geometry, scene, trajectory, environment, seed=1, **kw)
+    return time.perf_counter() - t0, result
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="fewer sizes (smoke test)")
+    parser.add_argument("--rays", type=int, default=256, help="planet rays per facet side")
+    parser.add_argument("--sun", type=int, default=16, help="Sun sample points per side")
+    args = parser.parse_args(argv)
+    kw = dict(rays_per_facet=args.rays, sun_samples=args.sun)
+
+    # warm-up: compile every kernel on a short trajectory
+    model, geometry, scene, trajectory, environment = setup(1.0, 4)
+    timed(geometry, scene, trajectory, environment, **kw)
+    timed(geometry, scene, trajectory, environment, use_cache=False, **kw)
+
+    model, geometry, scene, trajectory, environment = setup(1.0, 72)
+    print(f"demo model: {geometry.n_facets} facets, {geometry.n_nodes} nodes, "
+          f"{trajectory.n_steps} steps, {args.rays} planet rays and {args.sun} Sun samples "
+          f"per facet side")
+    t_cache, with_cache = timed(geometry, scene, trajectory, environment, **kw)
+    t_trace, without = timed(geometry, scene, trajectory, environment, use_cache=False, **kw)
+    worst = 0.0
+    for src in ("solar", "albedo", "planet_ir"):
+        a = getattr(with_cache, f"node_{src}")
+        b = getattr(without, f"node_{src}")
+        diff = float(np.abs(a - b).max())
+        sigma = float(getattr(with_cache, f"node_{src}_stderr").max())
+        worst = max(worst, diff)
+        print(f"  {src:9s}: max |cache - retrace| = {diff:.3e} W "
+              f"(largest reported 1-sigma error {sigma:.3e} W, largest value "
+              f"{float(np.abs(a).max()):.3e} W)")
+    print(f"  with cache   : {t_cache:8.2f} s ({t_cache / trajectory.n_steps * 1e3:.1f} ms/step)")
+    print(f"  re-trace all : {t_trace:8.2f} s ({t_trace / trajectory.n_steps * 1e3:.1f} ms/step)")
+    if worst != 0.0:
+        print("  WARNING: cache and re-trace differ")
+
+    print("time with the cache against facets (72 steps):")
+    divisors = (1.0, 2.0) if args.quick else (1.0, 1.5, 2.0)
+    for div in divisors:
+        _, g, sc, tr, env = setup(div, 72)
+        t, _ = timed(g, sc, tr, env, **kw)
+        print(f"  {g.n_facets:7d} facets: {t:8.2f} s  ({t / g.n_facets * 1e3:.3f} ms/facet)")
+
+    print("time with the cache against steps (demo facets):")
+    for steps in ((18, 72) if args.quick else (18, 36, 72, 144)):
+        _, g, sc, tr, env = setup(1.0, steps)
+        t, _ = timed(g, sc, tr, env, **kw)
+        print(f"  {tr.n_steps:5d} steps : {t:8.2f} s  ({t / tr.n_steps * 1e3:.1f} ms/step)")
+
+    print(f"cache speedup: {t_trace / t_cache:.2f}")
+
+
+if __name__ == "__main__":
+    main()
