@@ -254,10 +254,14 @@ _SETTINGS = settings(max_examples=100, deadline=None, derandomize=True,
 @given(_document)
 def test_random_part_tables_load_or_raise_model_error(doc):
     text = tomli_w.dumps(_strip_none(doc))
+    collected = []
+    load(text, problems=collected)              # collecting mode never raises
     try:
         model = load(text)
     except ModelError as err:
         assert "\n" not in str(err)
+        # strict mode stops at the first error the collecting mode also found
+        assert any(p.severity == "error" for p in collected)
         return
     assert model.parts is not None
     # the collecting mode must agree: no error problems for a model that loads strictly
