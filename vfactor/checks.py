@@ -227,7 +227,7 @@ def check_geometry(model: Model, geometry: Geometry, report: CheckReport) -> Non
                         f"facets, {g.nodes.area[i]:.3g} m2)"))
 
     _check_contacts(model, g, ~degenerate, tol, report)
-    _check_enclosed(model, g, ~degenerate, report)
+    _check_enclosed(model, g, ~degenerate, tol, report)
 
 
 def _ray_crossings(origin, direction, tris) -> int:
@@ -247,7 +247,7 @@ def _ray_crossings(origin, direction, tris) -> int:
     return int((ok & (u >= 0) & (v >= 0) & (u + v <= 1) & (t > 0)).sum())
 
 
-def _check_enclosed(model: Model, g: Geometry, usable, report: CheckReport) -> None:
+def _check_enclosed(model: Model, g: Geometry, usable, tol, report: CheckReport) -> None:
     """Warn about a part lying wholly inside a closed part (by ray parity)."""
     v = g.vertices[g.triangles]
     direction = np.array([0.5773, 0.5791, 0.5755])   # no special alignment with the axes
@@ -264,7 +264,8 @@ def _check_enclosed(model: Model, g: Geometry, usable, report: CheckReport) -> N
         for i in range(nparts):
             if i == j or lo[i] is None:
                 continue
-            if (lo[i] < lo[j]).any() or (hi[i] > hi[j]).any():
+            # strictly inside the box (a part lying on a face is not inside)
+            if (lo[i] <= lo[j] + tol).any() or (hi[i] >= hi[j] - tol).any():
                 continue
             point = g.centroids[sel[i][0]]
             if _ray_crossings(point, direction, v[sel[j]]) % 2 == 1:
