@@ -287,3 +287,22 @@ def test_random_bytes_mesh_is_a_mesh_error(tmp_path):
         p.write_bytes(rng.integers(0, 256, 400, dtype=np.uint8).tobytes())
         with pytest.raises(MeshError):
             read_mesh(str(p))
+
+
+def test_committed_demo_mesh_matches_its_generator():
+    # meshes/camera.stl must be what scripts/make_demo_meshes.py writes (regenerable)
+    import importlib.util
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parent.parent
+    spec = importlib.util.spec_from_file_location("make_demo_meshes",
+                                                  root / "scripts" / "make_demo_meshes.py")
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    vertices, faces = module.octagonal_prism(80.0, 150.0)
+    expected = trimesh.Trimesh(vertices, faces, process=False)
+    t = read_mesh(str(root / "meshes" / "camera.stl"))
+    assert t.n_facets == len(faces) and t.closed
+    assert area(t) == pytest.approx(expected.area, rel=1e-12)     # ASCII STL, full precision
+    got = trimesh.Trimesh(t.vertices, t.triangles, process=False)
+    assert got.volume == pytest.approx(expected.volume, rel=1e-12)
