@@ -24,12 +24,19 @@ Statistical errors come from the spread between rounds (see :func:`tally_statist
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import NamedTuple
 
 import numpy as np
 
 __all__ = [
+    "compute_view_factors",
+    "trace_tallies",
+    "view_factors_from_tallies",
+    "compute_exchange",
+    "monte_carlo_gebhart",
+    "gebhart_tallies",
     "ViewFactors",
     "Exchange",
     "TallySums",
@@ -566,3 +573,473 @@ def _as_array(value, name, ndim=None, shape=None):
     if not np.all(np.isfinite(arr)):
         raise ValueError(f"{name} has non-finite values")
     return arr
+
+
+# --------------------------------------------------------------------------------------
+# Monte Carlo view factors
+# --------------------------------------------------------------------------------------
+#: Rays traced per kernel call (one progress step); bounds the memory of work items.
+_RAYS_PER_CALL = 1 << 22
+
+
+class _Kernels(NamedTuple):
+    emit: tuple
+    geo: tuple
+    side_id: np.ndarray
+    n_nodes: int
+    n_facets: int
+
+
+def _kernel_inputs(geometry, scene) -> _Kernels:
+    from .tracing.vf_kernels import emitter_table
+
+    n = geometry.n_nodes
+    f = geometry.n_facets
+    if n < 1:
+        raise ValueError("radiation: the geometry has no nodes")
+    if scene.n_facets != f:
+        raise ValueError(f"radiation: scene has {scene.n_facets} facets, geometry {f}")
+    ptr, facet, sign, cum, side_id = emitter_table(geometry.front_node, geometry.back_node,
+                                                    geometry.areas, n)
+    geo = (np.ascontiguousarray(geometry.vertices, np.float64),
+           np.ascontiguousarray(geometry.triangles, np.int64),
+           np.ascontiguousarray(geometry.normals, np.float64),
+           np.ascontiguousarray(geometry.front_node, np.int64),
+           np.ascontiguousarray(geometry.back_node, np.int64))
+    return _Kernels((ptr, facet, sign, cum, side_id), geo, side_id, n, f)
+
+
+def _check_round_args(n, node_indices, seed, rays_per_node, round_index):
+    from .tracing.vf_kernels import MAX_RAYS_PER_ROUND, MAX_ROUNDS
+
+    nodes = np.asarray(node_indices, dtype=np.int64).reshape(-1)
+    if nodes.size and (nodes.min() < 0 or nodes.max() >= n):
+        raise ValueError(f"node_indices must be in 0..{n - 1}, got {nodes.min()}..{nodes.max()}")
+    if np.unique(nodes).size != nodes.size:
+        raise ValueError("node_indices has repeats")
+    if not 0 <= int(seed) < 2 ** 64:
+        raise ValueError(f"seed must be in [0, 2**64), got {seed}")
+    if not 1 <= int(rays_per_node) < MAX_RAYS_PER_ROUND:
+        raise ValueError(f"rays_per_node must be in 1..{MAX_RAYS_PER_ROUND - 1}, "
+                         f"got {rays_per_node}")
+    if not 0 <= int(round_index) < MAX_ROUNDS:
+        raise ValueError(f"round_index must be in 0..{MAX_ROUNDS - 1}, got {round_index}")
+    return nodes
+
+
+def _node_batches(nodes, m, n):
+    """Split ``nodes`` so that one kernel call traces about ``_RAYS_PER_CALL`` rays."""
+    from .tracing.vf_kernels import CHUNK
+
+    per_call = max(1, _RAYS_PER_CALL // max(m, 1))
+    # bound the kernel's partial tallies to ~4e6 integers
+    per_call = max(1, min(per_call, 4_000_000 // (max(1, -(-m // CHUNK)) * (n + 2))))
+    return [nodes[i:i + per_call] for i in range(0, nodes.size, per_call)]
+
+
+def _j_ranges(m, k):
+    """Split the rays 0..m of a round so that ``k`` nodes trace ~_RAYS_PER_CALL per call."""
+    step = max(1, _RAYS_PER_CALL // max(k, 1))
+    return [(j, min(m, j + step)) for j in range(0, m, step)]
+
+
+def trace_tallies(geometry, scene, node_indices, seed, rays_per_node, round_index):
+    """Hit counts of one round of view-factor rays from some nodes (the unit of work).
+
+    Parameters
+    ----------
+    geometry : vfactor.geometry.Geometry
+    scene : vfactor.tracing.scene.Scene — built from ``geometry.vertices, .triangles``
+    node_indices : (k,) int — emitting nodes (no repeats)
+    seed : int — in [0, 2**64)
+    rays_per_node : int — rays each node emits in this round (``m``)
+    round_index : int — which independent replicate, 0 .. 65535
+
+    Returns
+    -------
+    (k, n + 2) int64
+        Rays of each node whose first hit is node 0..n-1, space (column n) or an inert side
+        (column n + 1); each row sums to ``rays_per_node``.
+
+    Notes
+    -----
+    A pure function of its arguments: the same call gives the same bits on any thread
+    count, and rounds (or node subsets) computed anywhere and summed in any order give
+    identical totals. The emission design (stratified by area over the node's facet sides,
+    randomised quasi-Monte Carlo positions and cosine-weighted directions) is described in
+    :mod:`vfactor.tracing.vf_kernels`. Sum rounds with :class:`TallySums` and turn them
+    into view factors with :func:`view_factors_from_tallies`; every round of one
+    computation must use the same ``rays_per_node``.
+    """
+    from .tracing.vf_kernels import vf_round
+
+    kin = _kernel_inputs(geometry, scene)
+    nodes = _check_round_args(kin.n_nodes, node_indices, seed, rays_per_node, round_index)
+    return _trace_round(scene, kin, nodes, int(seed), int(rays_per_node), int(round_index),
+                        vf_round, None, None)
+
+
+def _trace_round(scene, kin, nodes, seed, m, round_index, vf_round, bar, facet_acc):
+    out = np.zeros((nodes.size, kin.n_nodes + 2), np.int64)
+    pos = 0
+    for batch in _node_batches(nodes, m, kin.n_nodes):
+        for j_lo, j_hi in _j_ranges(m, batch.size):
+            counts, ray_side, ray_col = vf_round(scene.arrays, kin.emit, kin.geo, batch, seed,
+                                                 round_index, m, j_lo, j_hi,
+                                                 record=facet_acc is not None)
+            out[pos:pos + batch.size] += counts
+            if facet_acc is not None:
+                facet_acc.add(kin.side_id[ray_side], ray_col)
+            if bar is not None:
+                bar.advance(batch.size * (j_hi - j_lo))
+        pos += batch.size
+    return out
+
+
+class _FacetAccumulator:
+    """Sparse (facet side, column) hit counts, compressed after every call."""
+
+    def __init__(self, n_sides, n_cols):
+        import scipy.sparse as sp
+
+        self._sp = sp
+        self.shape = (n_sides, n_cols)
+        self.total = sp.csr_matrix(self.shape, dtype=np.int64)
+
+    def add(self, sides, cols):
+        if sides.size == 0:
+            return
+        part = self._sp.coo_matrix((np.ones(sides.size, np.int64), (sides, cols)),
+                                   shape=self.shape).tocsr()
+        self.total = self.total + part
+
+    def factors(self):
+        total = self.total.tocsr()
+        total.sum_duplicates()
+        rays = np.asarray(total.sum(axis=1)).ravel()
+        scale = np.zeros_like(rays, dtype=np.float64)
+        scale[rays > 0] = 1.0 / rays[rays > 0]
+        return self._sp.diags(scale) @ total.astype(np.float64)
+
+
+def _row_error_ratio(stats, target_error, significance):
+    """Largest stderr / (target * value) over the significant entries of each row."""
+    n = stats.mean.shape[0]
+    sig = significant_mask(stats.mean, significance)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = np.where(sig, stats.stderr / (target_error * stats.mean), 0.0)
+    return ratio.max(axis=1) if n else np.zeros(0)
+
+
+def compute_view_factors(geometry, scene, *, rays_per_node, seed, target_error=None,
+                         max_rays_per_node=None, facet_factors=False, reporter=None,
+                         significance=SIGNIFICANCE) -> ViewFactors:
+    """Monte Carlo view factors between nodes, to space and to inert sides.
+
+    Parameters
+    ----------
+    geometry : vfactor.geometry.Geometry
+    scene : vfactor.tracing.scene.Scene — built from the geometry's vertices and triangles
+    rays_per_node : int — rays each node emits at least; split into :data:`MIN_ROUNDS`
+        rounds of ``ceil(rays_per_node / MIN_ROUNDS)`` rays
+    seed : int — in [0, 2**64)
+    target_error : float or None — one-sigma *relative* error wanted for every significant
+        entry (e.g. 0.005 for 0.5 %); rounds are added to the rows that miss it
+    max_rays_per_node : int or None — ray budget per node when ``target_error`` is set
+        (default 100 x ``rays_per_node``)
+    facet_factors : bool — also return facet-side-to-node factors (sparse)
+    reporter : vfactor.progress.Reporter or None
+    significance : float — share of a row above which an entry is significant [1]
+
+    Returns
+    -------
+    ViewFactors
+        ``facet_matrix`` (when asked): ``scipy.sparse.csr_matrix`` of shape ``(2 f, n + 2)``;
+        row ``f`` is the front side of facet ``f``, row ``f + F`` its back side (``F`` the
+        facet count); columns are the nodes, then space and inert; entry = share of the
+        side's rays whose first hit is that column. Rows of inert sides are empty.
+
+    Notes
+    -----
+    F_ij = (rays of i first hitting a side of j) / (rays of i) (Howell 1998, "The Monte
+    Carlo method in radiative heat transfer", J. Heat Transfer 120, 547-560). One *round*
+    is an independent randomised replicate of a stratified emission design (see
+    :mod:`vfactor.tracing.vf_kernels`); the one-sigma error is the standard error of the
+    mean over the rounds (:func:`tally_statistics`), an honest estimate for correlated
+    stratified rays where ``sqrt(F (1 - F) / N)`` would overstate the error.
+
+    *Significant* entries are the node and space entries of a row with ``F >=
+    significance`` (default 1 % of the energy the node emits); the inert column never is.
+    With ``target_error``: after the first rounds, every row whose significant entries do
+    not all have ``stderr <= target_error * F`` gets more rounds, as many as the measured
+    error predicts (the variance falls as 1/rounds) plus 10 %, until all pass or the
+    row reaches ``max_rays_per_node``; ``converged`` says whether all passed.
+    Reciprocity and closure are then enforced by :func:`smooth_view_factors`; the raw
+    tallies are kept.
+    """
+    from .progress import NullReporter
+    from .tracing.vf_kernels import MAX_ROUNDS, vf_round
+
+    kin = _kernel_inputs(geometry, scene)
+    n = kin.n_nodes
+    rays_per_node = int(rays_per_node)
+    if rays_per_node < 1:
+        raise ValueError(f"rays_per_node must be >= 1, got {rays_per_node}")
+    m = -(-rays_per_node // MIN_ROUNDS)
+    _check_round_args(n, [], seed, m, 0)
+    if target_error is not None:
+        target_error = float(target_error)
+        if not 0 < target_error < 1:
+            raise ValueError(f"target_error must be in (0, 1), got {target_error}")
+    budget = 100 * rays_per_node if max_rays_per_node is None else int(max_rays_per_node)
+    max_rounds = min(MAX_ROUNDS, max(MIN_ROUNDS, budget // m))
+    reporter = reporter or NullReporter()
+    seed = int(seed)
+    sums = TallySums.empty(n, m)
+    acc = _FacetAccumulator(2 * kin.n_facets, n + 2) if facet_factors else None
+    all_nodes = np.arange(n, dtype=np.int64)
+    with reporter.stage("view factors", total=n * MIN_ROUNDS * m, unit="rays") as bar:
+        done = n * MIN_ROUNDS * m
+        for r in range(MIN_ROUNDS):
+            sums.add(all_nodes, _trace_round(scene, kin, all_nodes, seed, m, r, vf_round,
+                                             bar, acc))
+        converged = True
+        if target_error is not None:
+            for _ in range(50):
+                stats = tally_statistics(sums)
+                ratio = _row_error_ratio(stats, target_error, significance)
+                want = np.ceil(sums.rounds * ratio ** 2 * 1.1).astype(np.int64)
+                want = np.minimum(np.maximum(want, sums.rounds + 1), max_rounds)
+                need = (ratio > 1.0) & (sums.rounds < max_rounds)
+                if not need.any():
+                    break
+                extra = int((np.where(need, want - sums.rounds, 0)).sum()) * m
+                done += extra
+                bar.set_total(done)
+                for r in range(int(sums.rounds[need].min()), int(want[need].max())):
+                    rows = np.flatnonzero(need & (sums.rounds == r) & (want > r))
+                    if rows.size:
+                        sums.add(rows, _trace_round(scene, kin, rows, seed, m, r, vf_round,
+                                                    bar, acc))
+            stats = tally_statistics(sums)
+            converged = bool(np.all(_row_error_ratio(stats, target_error, significance) <= 1))
+    facet_matrix = acc.factors() if acc is not None else None
+    return view_factors_from_tallies(geometry, sums, target_error=target_error,
+                                     converged=converged, facet_matrix=facet_matrix,
+                                     significance=significance)
+
+
+def _smoothing_variances(stats):
+    """Variances used as smoothing weights: stderr^2 plus a floor of (1 / rays)^2 so that
+    entries never hit (or hit identically in every round) keep a finite weight."""
+    floor = (1.0 / stats.rays.astype(np.float64)) ** 2
+    return stats.stderr ** 2 + floor[:, None]
+
+
+def view_factors_from_tallies(geometry, sums: TallySums, *, target_error=None,
+                              converged=None, facet_matrix=None,
+                              significance=SIGNIFICANCE) -> ViewFactors:
+    """View factors, errors and smoothing from summed round tallies.
+
+    Parameters
+    ----------
+    geometry : vfactor.geometry.Geometry — supplies the node areas
+    sums : TallySums — every node with at least one round
+    target_error : float or None — recorded; with ``converged=None`` also tested here
+    converged : bool or None — whether the convergence target was reached (None: decide
+        from ``target_error``; True when no target)
+    facet_matrix : scipy.sparse matrix or None — passed through
+    significance : float — threshold of significant entries [1]
+
+    Returns
+    -------
+    ViewFactors
+        ``adjustment_sigma`` is the largest ``|smoothed - raw| / sigma`` over significant
+        entries, with ``sigma^2`` the smoothing variance of :func:`_smoothing_variances`.
+    """
+    stats = tally_statistics(sums)
+    n = geometry.n_nodes
+    if stats.mean.shape != (n, n + 2):
+        raise ValueError(f"view_factors_from_tallies: tallies of shape {stats.mean.shape} "
+                         f"for {n} nodes")
+    V = _smoothing_variances(stats)
+    raw = stats.mean
+    sm = smooth_view_factors(raw[:, :n], raw[:, n], raw[:, n + 1], V[:, :n], V[:, n],
+                             V[:, n + 1], geometry.nodes.area)
+    smoothed = np.concatenate([sm.matrix, sm.space[:, None], sm.inert[:, None]], axis=1)
+    sig = significant_mask(raw, significance)
+    dev = np.abs(smoothed - raw) / np.sqrt(V)
+    adjustment = float(dev[sig].max()) if sig.any() else 0.0
+    if converged is None:
+        converged = True if target_error is None else bool(
+            np.all(_row_error_ratio(stats, target_error, significance) <= 1))
+    return ViewFactors(matrix=sm.matrix, space=sm.space, inert=sm.inert,
+                       stderr=stats.stderr[:, :n].copy(), stderr_space=stats.stderr[:, n].copy(),
+                       raw_matrix=raw[:, :n].copy(), raw_space=raw[:, n].copy(),
+                       raw_inert=raw[:, n + 1].copy(), rays=stats.rays.astype(np.int64),
+                       adjustment_sigma=adjustment, method=SMOOTHING_METHOD,
+                       converged=bool(converged), target_error=target_error,
+                       facet_matrix=facet_matrix)
+
+
+# --------------------------------------------------------------------------------------
+# Gebhart factors by reflection tracing, and the route choice
+# --------------------------------------------------------------------------------------
+def _band_properties(geometry, band):
+    nodes = geometry.nodes
+    if band == "ir":
+        return (np.asarray(nodes.ir_emissivity, np.float64),
+                np.asarray(nodes.ir_specular, np.float64))
+    if band == "solar":
+        return (np.asarray(nodes.solar_absorptivity, np.float64),
+                np.asarray(nodes.solar_specular, np.float64))
+    raise ValueError(f"band must be 'ir' or 'solar', got {band!r}")
+
+
+def gebhart_tallies(geometry, scene, *, band="ir", rays_per_node, seed, reporter=None,
+                    node_indices=None) -> TallySums:
+    """Summed round tallies of reflection tracing (see :func:`monte_carlo_gebhart`).
+
+    Parameters
+    ----------
+    node_indices : (k,) int or None — emitting nodes (default all; other rows stay empty)
+    Others as for :func:`monte_carlo_gebhart`.
+
+    Returns
+    -------
+    TallySums
+        Columns: absorbed by node 0..n-1, escaped to space, lost (inert sides or cut after
+        :data:`vfactor.tracing.vf_kernels.MAX_BOUNCES` reflections).
+    """
+    from .progress import NullReporter
+    from .tracing.vf_kernels import gebhart_round
+
+    absorb, specular = _band_properties(geometry, band)
+    kin = _kernel_inputs(geometry, scene)
+    n = kin.n_nodes
+    rays_per_node = int(rays_per_node)
+    if rays_per_node < 1:
+        raise ValueError(f"rays_per_node must be >= 1, got {rays_per_node}")
+    m = -(-rays_per_node // MIN_ROUNDS)
+    nodes = np.arange(n, dtype=np.int64) if node_indices is None else \
+        _check_round_args(n, node_indices, seed, m, 0)
+    _check_round_args(n, [], seed, m, 0)
+    for name, v in (("absorptivity", absorb), ("specular share", specular)):
+        if np.any((v < 0) | (v > 1)) or not np.all(np.isfinite(v)):
+            i = int(np.flatnonzero(~((v >= 0) & (v <= 1)))[0])
+            raise ValueError(f"node {geometry.nodes.names[i]!r}: {band} {name} must be in "
+                             f"[0, 1], got {float(v[i])!r}")
+    reporter = reporter or NullReporter()
+    sums = TallySums.empty(n, m)
+    with reporter.stage(f"Gebhart factors ({band}, reflection tracing)",
+                        total=nodes.size * MIN_ROUNDS * m, unit="rays") as bar:
+        for r in range(MIN_ROUNDS):
+            out = np.zeros((nodes.size, n + 2), np.int64)
+            pos = 0
+            for batch in _node_batches(nodes, m, n):
+                out[pos:pos + batch.size] = gebhart_round(scene.arrays, kin.emit, kin.geo,
+                                                          absorb, specular, batch, int(seed),
+                                                          r, m)
+                pos += batch.size
+                bar.advance(batch.size * m)
+            sums.add(nodes, out)
+    return sums
+
+
+def monte_carlo_gebhart(geometry, scene, *, band="ir", rays_per_node, seed,
+                        reporter=None) -> Exchange:
+    """Gebhart factors by Monte Carlo tracing of emitted and reflected rays.
+
+    Parameters
+    ----------
+    geometry : vfactor.geometry.Geometry
+    scene : vfactor.tracing.scene.Scene
+    band : {"ir", "solar"} — infrared (emissivity, ``ir_specular``) or solar
+        (absorptivity, ``solar_specular``) properties of the nodes
+    rays_per_node : int — rays emitted per node, in :data:`MIN_ROUNDS` rounds
+    seed : int
+    reporter : vfactor.progress.Reporter or None
+
+    Returns
+    -------
+    Exchange
+        ``method = "monte-carlo"``; ``stderr`` the one-sigma error of the raw estimates.
+
+    Notes
+    -----
+    Each ray leaves node i diffusely (the emission design of the view factors); at every
+    hit on a node side it is absorbed with probability eps (alpha), else reflected,
+    specularly with the node's specular share and diffusely otherwise; misses escape to
+    space, inert sides absorb and lose it. B_ij = (rays of i absorbed by j) / (rays of i)
+    (Howell 1998, J. Heat Transfer 120, 547-560; Siegel & Howell, Monte Carlo exchange
+    factors). Reciprocity eps_i A_i B_ij = eps_j A_j B_ji and closure (rows plus space plus
+    lost sum to one) are then enforced with :func:`smooth_view_factors` using the
+    "areas" eps_i A_i, among nodes with eps > 0 (rows of non-emitting nodes stay raw).
+    """
+    absorb, _ = _band_properties(geometry, band)
+    sums = gebhart_tallies(geometry, scene, band=band, rays_per_node=rays_per_node,
+                           seed=seed, reporter=reporter)
+    stats = tally_statistics(sums)
+    n = geometry.n_nodes
+    raw = stats.mean
+    B = raw[:, :n].copy()
+    Bs = raw[:, n].copy()
+    emit = np.flatnonzero(absorb > 0)
+    if emit.size:
+        V = _smoothing_variances(stats)
+        sub = np.ix_(emit, emit)
+        # energy absorbed by non-absorbing nodes is impossible: their columns are zero
+        lost = raw[emit, n + 1] + raw[emit][:, :n][:, absorb <= 0].sum(axis=1)
+        sm = smooth_view_factors(raw[:, :n][sub], raw[emit, n], lost, V[:, :n][sub],
+                                 V[emit, n], V[emit, n + 1],
+                                 absorb[emit] * geometry.nodes.area[emit])
+        B[sub] = sm.matrix
+        Bs[emit] = sm.space
+    return exchange_from_gebhart(B, Bs, absorb, geometry.nodes.area,
+                                 stderr=stats.stderr[:, :n].copy(), method="monte-carlo",
+                                 band=band)
+
+
+def compute_exchange(geometry, scene, view_factors: ViewFactors, *, rays_per_node, seed,
+                     band="ir", reporter=None) -> Exchange:
+    """Gebhart factors and exchange areas in one band, by the fitting route.
+
+    When every node's coating is diffuse in the band (specular share zero), the linear
+    solve :func:`gebhart_matrix` on the smoothed view factors (``method = "matrix"``, with
+    a first-order propagated error, see Notes); otherwise reflection tracing
+    :func:`monte_carlo_gebhart` (``rays_per_node`` and ``seed`` are used only then).
+
+    Parameters
+    ----------
+    geometry : vfactor.geometry.Geometry
+    scene : vfactor.tracing.scene.Scene
+    view_factors : ViewFactors — from :func:`compute_view_factors`
+    rays_per_node, seed : int — for reflection tracing
+    band : {"ir", "solar"}
+    reporter : vfactor.progress.Reporter or None
+
+    Returns
+    -------
+    Exchange
+
+    Notes
+    -----
+    Error of the matrix route (ours, first-order perturbation of the linear solve): with
+    ``G = (I - F D)^-1``, ``D = diag(1 - eps)``, ``dB = G dF (D B + diag(eps))``; treating
+    the raw entries of F as independent with variances ``stderr^2`` gives
+    ``var(B_ij) = sum_k G_ik^2 sum_l stderr_kl^2 (D B + diag(eps))_lj^2``. Entries of one
+    row are in truth negatively correlated (they share the row's rays), which this
+    neglects; for non-negative sensitivities that makes the estimate conservative.
+    """
+    absorb, specular = _band_properties(geometry, band)
+    if np.all(specular == 0):
+        B, Bs = gebhart_matrix(view_factors.matrix, view_factors.space, view_factors.inert,
+                               absorb)
+        n = B.shape[0]
+        G = np.linalg.inv(np.eye(n) - view_factors.matrix * (1.0 - absorb)[None, :])
+        S = (1.0 - absorb)[:, None] * B + np.diag(absorb)
+        var = (G ** 2) @ ((view_factors.stderr ** 2) @ (S ** 2))
+        return exchange_from_gebhart(B, Bs, absorb, geometry.nodes.area,
+                                     stderr=np.sqrt(var), method="matrix", band=band)
+    return monte_carlo_gebhart(geometry, scene, band=band, rays_per_node=rays_per_node,
+                               seed=seed, reporter=reporter)
