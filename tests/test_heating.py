@@ -459,3 +459,44 @@ def test_bad_arguments_are_named():
     low = make_trajectory([[0, 0, 1]], [0, 0, -1], EARTH_R - 1.0)
     with pytest.raises(ValueError, match="step 0"):
         compute_heating(geo, scene, low, SUN_ONLY, seed=1)
+
+
+def test_nominal_case_scales_the_solar_constant_with_the_sun_distance():
+    # Inverse-square law on the 1 au value (Kopp & Lean 2011, 1361 W/m2): at 0.99 au the
+    # plate receives 1361 / 0.99^2.
+    from vfactor.constants import ASTRONOMICAL_UNIT_M
+
+    geo = plate_geometry(alpha=1.0, eps=1.0)
+    tr = make_trajectory([[0, 0, 1]], [0, 0, -1], FAR, sun_distance=0.99 * ASTRONOMICAL_UNIT_M)
+    h = run(geo, tr, Environment("nominal", None, 0.0, 0.0), rays_per_facet=16)
+    assert h.solar_constant[0] == pytest.approx(1361.0 / 0.99 ** 2, rel=1e-12)
+    assert h.node_solar[0, geo.nodes.index("front")] == pytest.approx(1361.0 / 0.99 ** 2,
+                                                                      rel=1e-12)
+
+
+def test_reporter_sees_both_stages():
+    from contextlib import contextmanager
+
+    from vfactor.progress import Reporter
+
+    class Recorder(Reporter):
+        def __init__(self):
+            self.stages = []
+
+        @contextmanager
+        def stage(self, description, total, unit="items"):
+            record = [description, total, 0]
+            self.stages.append(record)
+
+            class Bar:
+                def advance(self, n=1):
+                    record[2] += n
+
+            yield Bar()
+
+    geo = plate_geometry()
+    tr = make_trajectory([[0, 0, 1]] * 3, [0, 0, -1], FAR)
+    rec = Recorder()
+    run(geo, tr, SUN_ONLY, rays_per_facet=16, reporter=rec)
+    assert rec.stages[-1] == ["heating", 3, 3]
+    assert rec.stages[0][0] == "heating: escaping directions" and rec.stages[0][2] == 4

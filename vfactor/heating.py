@@ -22,8 +22,9 @@ Per step ``k`` and active facet side ``s`` (area ``A``, outward normal ``n``):
 
 Both planet terms use one estimator: for a side, the incident flux is ``pi`` times the mean,
 over cosine-weighted directions, of the radiance seen in each direction (``E = int L cos
-dw = pi E_cos[L]``; Siegel & Howell, Thermal Radiation Heat Transfer, 4th ed., eq. 2.13 and
-the definition of the view factor, section 4.3). For rigid geometry the directions in which
+dw = pi E_cos[L]``: irradiance from radiance and the definition of the view factor,
+Siegel & Howell, Thermal Radiation Heat Transfer, 4th ed., chs. 2 and 4; equation numbers
+from memory, not given). For rigid geometry the directions in which
 a side sees out do not change along the orbit: they are traced once against the vehicle
 (body frame) and kept; per step only those are intersected with the planet sphere
 (``use_cache=False`` re-traces every ray at every step, for articulated geometry and as the
@@ -42,7 +43,8 @@ the coating's specular share in that band.
 - Diffuse pools are redistributed by the diffuse Gebhart factors of the band
   (:func:`vfactor.radiation.gebhart_matrix`): power ``D_i`` reflected diffusely by node
   ``i`` leaves it like emission and node ``j`` absorbs ``D_i B_ij``; ``D_i B_i,space``
-  escapes and the rest is lost on inert sides (Gebhart 1961, "Heat Transfer", ch. 5).
+  escapes and the rest is lost on inert sides (B. Gebhart 1961, Int. J. Heat Mass
+  Transfer 3, 341-346).
   The node view factors come from ``view_factors`` when given, otherwise from the same
   cached rays (first hits of the cosine-weighted rays of each side). Subsequent reflections
   of that diffusely reflected energy are treated as diffuse (the Gebhart model).
@@ -63,6 +65,8 @@ examples", ch. 17). It is reported for the directly absorbed part of each source
 
 Approximations (documented, common practice): the Sun is a uniform disk at the Sun
 distance of the step, and its direction is the same at the vehicle and over the planet;
+in the planet's penumbra the vehicle's self-shadow is still sampled over the whole disk
+(the two shadows are combined as a product);
 the planet is a sphere of radius ``planet.radius``; planet radiances are Lambertian and
 uniform apart from the albedo's cosine law; energy reflected back by the planet is not
 followed.
@@ -77,7 +81,8 @@ import numpy as np
 
 from vfactor.constants import SUN_RADIUS_M
 
-__all__ = ["Heating", "HeatingExtremes", "compute_heating", "heating_extremes", "SOURCES"]
+__all__ = ["Heating", "HeatingExtremes", "compute_heating", "heating_extremes", "step_weights",
+           "SOURCES"]
 
 SOURCES = ("solar", "albedo", "planet_ir")
 """Names of the three environmental sources, in output order."""
@@ -334,6 +339,11 @@ def _check_inputs(geometry, scene, trajectory, environment, rays_per_facet, sun_
         if not np.all(np.isfinite(a)):
             raise ValueError(f"compute_heating: trajectory.{name} is not finite at step "
                              f"{int(np.flatnonzero(~np.isfinite(a).reshape(t, -1).all(1))[0])}")
+    for name in ("sun_body", "nadir_body"):
+        norm = np.linalg.norm(np.asarray(getattr(trajectory, name), dtype=np.float64), axis=1)
+        if t and not np.all(norm > 0.0):
+            raise ValueError(f"compute_heating: trajectory.{name} is a zero vector at step "
+                             f"{int(np.flatnonzero(~(norm > 0.0))[0])}")
     radius = float(trajectory.planet.radius)
     below = np.asarray(trajectory.planet_distance) <= radius
     if below.any():
@@ -398,8 +408,9 @@ def compute_heating(geometry, scene, trajectory, environment, *, view_factors=No
         Random seed (results are a pure function of it).
     use_cache : bool
         True: trace the escaping directions once (rigid geometry) and intersect only those
-        with the planet per step. False: re-trace every ray against the vehicle at every
-        step (same rays, same numbers, slower).
+        with the planet per step. False: re-trace every planet ray against the vehicle at
+        every step (same rays, same numbers, slower; the node view factors and the mirror
+        rays of specular shares still come from the one-off trace).
     reflections : bool
         False: report only the directly absorbed part (no reflection inside the vehicle).
     replicates : int
@@ -407,7 +418,8 @@ def compute_heating(geometry, scene, trajectory, environment, *, view_factors=No
     max_bounces : int
         Longest chain of mirror reflections followed for specular shares.
     reporter : vfactor.progress.Reporter, optional
-        Receives one ``"heating"`` stage advanced once per step.
+        Receives a ``"heating: escaping directions"`` stage (facet sides traced once) and
+        a ``"heating"`` stage advanced once per step.
 
     Returns
     -------
