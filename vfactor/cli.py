@@ -57,8 +57,8 @@ def _seed(text: str) -> int:
         value = int(text)
     except ValueError:
         raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
-    if not 0 <= value < 2 ** 63:
-        raise argparse.ArgumentTypeError(f"must be between 0 and 2**63 - 1, got {value}")
+    if not 0 <= value < 2 ** 64:
+        raise argparse.ArgumentTypeError(f"must be between 0 and 2**64 - 1, got {value}")
     return value
 
 

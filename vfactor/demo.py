@@ -5,10 +5,12 @@ Where the demo model comes from
 The demo model lives in the source tree as ``meshes/demo.toml`` with its mesh files
 (``meshes/camera.stl``). :func:`demo_source` looks for it, in this order:
 
-1. ``vfactor/data/demo/`` inside the installed package (package data; a wheel built from
-   the source tree carries it because ``vfactor/data/demo`` is a link to ``meshes/``);
+1. ``vfactor/data/demo/`` inside the installed package: in the source tree this is a
+   symbolic link to ``../../meshes``, so a wheel built from it carries the files as package
+   data (``[tool.setuptools.package-data] vfactor = ["data/*", "data/**/*"]``);
 2. ``meshes/`` beside the ``vfactor`` package folder, i.e. the source tree of an editable
-   install (``pip install -e .``, what ``make demo`` does).
+   install (``pip install -e .``, what ``make demo`` does), also used when a checkout has
+   no symbolic links.
 
 The copy goes to ``DIR`` (default ``vfactor-demo``); a ``demo.toml`` already in ``DIR`` that
 differs from the shipped one is kept (it is the user's), and said so.

@@ -306,7 +306,7 @@ def _write_all(path, *, model, geometry, view_factors, exchange, trajectory, hea
             _dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")))
         root.attrs["model_sha256"] = str(model.sha256)
         root.attrs["model_name"] = str(getattr(model, "name", ""))
-        root.attrs["seed"] = int(prov.pop("seed"))
+        root.attrs["seed"] = np.uint64(prov.pop("seed"))  # seeds span [0, 2**64)
         root.attrs["rays_per_node"] = int(prov.pop("rays_per_node"))
         elapsed = prov.pop("elapsed_s", {}) or {}
         for stage, seconds in elapsed.items():

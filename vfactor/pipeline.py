@@ -117,8 +117,8 @@ def checkpoint_path(output_path) -> Path:
 def _check_arguments(output_path, rays, seed, workers, scheduler):
     if rays is not None and (not isinstance(rays, (int, np.integer)) or rays < 1):
         raise ArgumentError(f"--rays must be a whole number >= 1, got {rays!r}")
-    if seed is not None and (not isinstance(seed, (int, np.integer)) or not 0 <= seed < 2 ** 63):
-        raise ArgumentError(f"--seed must be a whole number in [0, 2**63), got {seed!r}")
+    if seed is not None and (not isinstance(seed, (int, np.integer)) or not 0 <= seed < 2 ** 64):
+        raise ArgumentError(f"--seed must be a whole number in [0, 2**64), got {seed!r}")
     if not isinstance(workers, (int, np.integer)) or workers < 1:
         raise ArgumentError(f"--workers must be a whole number >= 1, got {workers!r}")
     if scheduler is not None and workers != 1:
@@ -295,7 +295,8 @@ class _Checkpoint:
                                    dir=self.path.parent)
         try:
             with os.fdopen(fd, "wb") as fh:
-                np.savez(fh, kind=_CHECKPOINT_KIND, keys=keys, rows=rows, **self.identity)
+                ident = dict(self.identity, seed=np.uint64(self.identity["seed"]))
+                np.savez(fh, kind=_CHECKPOINT_KIND, keys=keys, rows=rows, **ident)
             os.replace(tmp, self.path)
         except BaseException:
             if os.path.exists(tmp):

@@ -22,7 +22,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import ArgumentError
-from .h5io import Results
+from .h5io import Results, node_averages
 
 __all__ = ["SOURCE_COLOURS", "plot_all", "plot_heat_loads", "plot_absorbed_flux",
            "plot_couplings", "plot_orbit"]
@@ -91,7 +91,8 @@ def plot_heat_loads(results: Results, path) -> Path:
     heat, tr = results.heating, results.trajectory
     names = results.geometry.nodes.names
     total = heat.node_solar + heat.node_albedo + heat.node_planet_ir
-    order = np.argsort(-total.mean(axis=0), kind="stable")[:_MAX_PANELS]
+    average = node_averages(total, tr.time)
+    order = np.argsort(-average, kind="stable")[:_MAX_PANELS]
     k = len(order)
     cols = 1 if k == 1 else (2 if k <= 4 else 3)
     rows = int(np.ceil(k / cols))
@@ -110,7 +111,7 @@ def plot_heat_loads(results: Results, path) -> Path:
                      labels=[_SOURCE_LABEL[s] for s in ("solar", "albedo", "planet_ir")],
                      alpha=0.95, lw=0)
         ax.plot(t_min, total[:, i], color="#222222", lw=0.8)
-        ax.set_title(f"{names[i]}   (average {total[:, i].mean():.3g} W)", fontsize=9, loc="left")
+        ax.set_title(f"{names[i]}   (average {average[i]:.3g} W)", fontsize=9, loc="left")
         ax.set_xlim(t_min[0], t_min[-1])
         ax.set_ylim(bottom=0)
         ax.grid(alpha=0.25, lw=0.5)
@@ -155,13 +156,22 @@ def _paint(fig, axes_slots, geometry, values, cmap, norm, title, label, views):
         ax.add_collection3d(poly)
         for setter, c in zip((ax.set_xlim, ax.set_ylim, ax.set_zlim), centre):
             setter(c - half, c + half)
-        ax.set_box_aspect((1, 1, 1))
+        ax.set_box_aspect((1, 1, 1), zoom=1.4)
         ax.view_init(elev=elev, azim=azim)
         ax.set_title(name, fontsize=9)
-        ax.set_xlabel("x [m]", fontsize=7, labelpad=-8)
-        ax.set_ylabel("y [m]", fontsize=7, labelpad=-8)
-        ax.set_zlabel("z [m]", fontsize=7, labelpad=-8)
-        ax.tick_params(labelsize=6, pad=-3)
+        ax.set_axis_off()
+        # body-axis triad at the corner nearest the viewer's lower left, 20 % of the size
+        origin = centre - 0.9 * half
+        if elev < 0:  # seen from below: put the triad at the far upper corner instead
+            origin = centre + np.array([-np.sign(np.cos(np.radians(azim))),
+                                        -np.sign(np.sin(np.radians(azim))), 0.9]) * 0.9 * half
+        length = 0.35 * half
+        for k, (axis_name, colour) in enumerate((("x", "#c0392b"), ("y", "#27ae60"),
+                                                 ("z", "#2e86c1"))):
+            d = np.zeros(3)
+            d[k] = length
+            ax.quiver(*origin, *d, color=colour, linewidth=1.2, arrow_length_ratio=0.25)
+            ax.text(*(origin + 1.25 * d), axis_name, color=colour, fontsize=8)
         from matplotlib.cm import ScalarMappable
 
         mappable = ScalarMappable(norm=norm, cmap=cmap)
@@ -169,13 +179,14 @@ def _paint(fig, axes_slots, geometry, values, cmap, norm, title, label, views):
 
 
 def _view_name(elev, azim) -> str:
-    """'from +x -y, above' for a matplotlib camera at (elev, azim) degrees."""
+    """'seen from +x -y +z (body axes)' for a matplotlib camera at (elev, azim) degrees."""
     cx, cy = np.cos(np.radians(azim)), np.sin(np.radians(azim))
     parts = []
     for c, axis in ((cx, "x"), (cy, "y")):
         if abs(c) > 0.3:
             parts.append(("+" if c > 0 else "-") + axis)
-    return f"seen from {' '.join(parts)}, {'above' if elev > 0 else 'below'}"
+    parts.append("+z" if elev > 0 else "-z")
+    return f"seen from {' '.join(parts)} (body axes)"
 
 
 def plot_absorbed_flux(results: Results, path) -> Path:
@@ -184,7 +195,7 @@ def plot_absorbed_flux(results: Results, path) -> Path:
     Without heating the facets are coloured by their front node instead.
     """
     from matplotlib import colormaps
-    from matplotlib.colors import BoundaryNorm, Normalize
+    from matplotlib.colors import BoundaryNorm, Normalize, PowerNorm
 
     g = results.geometry
     views = tuple((elev, azim, _view_name(elev, azim))
@@ -193,9 +204,11 @@ def plot_absorbed_flux(results: Results, path) -> Path:
     if results.facet_average is not None:
         values = np.asarray(results.facet_average["total"], float)
         cmap = colormaps["inferno"]
-        norm = Normalize(vmin=float(values.min()), vmax=max(float(values.max()),
-                                                            float(values.min()) + 1e-9))
-        label = "time-averaged absorbed flux, all sources [W m-2]"
+        # square-root scale: hot appendages (solar wings) would otherwise flatten the
+        # differences between the faces of the body into one colour
+        norm = PowerNorm(gamma=0.5, vmin=min(0.0, float(values.min())),
+                         vmax=max(float(values.max()), 1e-9))
+        label = "time-averaged absorbed flux, all sources [W m-2]\n(square-root colour scale)"
         title = f"{results.model_name}: time-averaged absorbed flux (case {results.heating.case})"
     else:
         values = np.where(g.front_node >= 0, g.front_node, g.back_node).astype(float)
@@ -288,10 +301,12 @@ def plot_orbit(results: Results, path) -> Path:
                label="epoch", zorder=4)
     norm_s = np.hypot(sx, sy)
     if norm_s > 1e-6:
-        ax.annotate("", xy=(1.25 * r_orbit * sx / norm_s, 1.25 * r_orbit * sy / norm_s),
-                    xytext=(0, 0), arrowprops=dict(arrowstyle="->", color="#c07a10", lw=1.5))
-        ax.text(1.3 * r_orbit * sx / norm_s, 1.3 * r_orbit * sy / norm_s + 0.08 * r_orbit,
-                "to the Sun (projected)", color="#c07a10", fontsize=8, ha="center")
+        ux, uy = sx / norm_s, sy / norm_s
+        ax.annotate("", xy=(1.42 * r_orbit * ux, 1.42 * r_orbit * uy),
+                    xytext=(1.08 * r_orbit * ux, 1.08 * r_orbit * uy),
+                    arrowprops=dict(arrowstyle="-|>", color="#c07a10", lw=1.8))
+        ax.text(1.2 * r_orbit * ux - 0.12 * r_orbit * uy, 1.2 * r_orbit * uy + 0.12 * r_orbit * ux,
+                "Sun", color="#c07a10", fontsize=8, ha="center", va="center")
     lim = 1.45 * r_orbit
     ax.set_xlim(-lim, lim)
     ax.set_ylim(-lim, lim)
@@ -300,11 +315,16 @@ def plot_orbit(results: Results, path) -> Path:
     ax.set_ylabel("in-plane, along the motion [km]", fontsize=8)
     ax.tick_params(labelsize=7)
     ax.legend(fontsize=7, loc="lower left", frameon=False)
-    ax.set_title("orbit seen along its normal (first step)", fontsize=9)
+    ax.set_title("orbit seen along its normal; Sun direction projected (first step)",
+                 fontsize=9)
 
     t_min = tr.time / 60.0
     ax1 = fig.add_subplot(gs[0, 1])
-    ax1.plot(t_min, np.degrees(tr.beta), color="#4a6fa5", lw=1.5)
+    beta_deg = np.degrees(tr.beta)
+    ax1.plot(t_min, beta_deg, color="#4a6fa5", lw=1.5)
+    mid, span = 0.5 * (beta_deg.max() + beta_deg.min()), np.ptp(beta_deg)
+    if span < 2.0:  # a nearly constant beta angle: show it as such, not as a steep line
+        ax1.set_ylim(mid - 1.0, mid + 1.0)
     ax1.set_ylabel("beta angle [deg]", fontsize=8)
     ax1.grid(alpha=0.25, lw=0.5)
     ax1.tick_params(labelsize=7)
