@@ -75,8 +75,10 @@ MAX_BOUNCES = 4096
 MAX_ROUNDS = 1 << 16
 #: Largest number of rays per node in one round (32 bits of ray index).
 MAX_RAYS_PER_ROUND = 1 << 32
-#: Rays per parallel work item.
-CHUNK = 2048
+#: Rays per parallel work item; within an item the rays are traced in increasing order of
+#: their side coordinate u0, so that consecutive rays start close together (about 3x faster
+#: traversal than rays in sequence order, which jump across the node).
+CHUNK = 4096
 
 _STRIDE = np.uint64(STREAM_STRIDE)
 
@@ -194,6 +196,41 @@ def r5_point(shift, j, i):
     return np.float64(x >> _S11) * _INV53
 
 
+def _chunk_tables():
+    """Sort order of the first coordinate ``k alpha_0 mod 1`` of the unshifted R_5 points
+    ``k = 0 .. CHUNK-1`` (as uint64 fixed point): ``(sorted values, permutation)``."""
+    a0 = int(_ALPHA5[0])
+    x = np.array([(k * a0) % 2 ** 64 for k in range(CHUNK)], dtype=np.uint64)
+    perm = np.argsort(x, kind="stable")
+    return np.ascontiguousarray(x[perm]), np.ascontiguousarray(perm.astype(np.int64))
+
+
+_SORTED_X, _PERM = _chunk_tables()
+
+
+@njit(**JIT)
+def _chunk_start(sorted_x, shift0, j0):
+    """Where the points ``j0 .. j0 + CHUNK - 1`` start in increasing ``u0``.
+
+    Their first coordinates are ``c + k alpha_0`` (mod 2**64) with ``c = shift0 + j0
+    alpha_0``: a rotation of the circle, so their order is the order of ``k alpha_0``
+    rotated to begin at the first ``k alpha_0 >= 2**64 - c``.
+    """
+    c = shift0 + np.uint64(j0) * _ALPHA5[0]
+    thr = np.uint64(0) - c
+    a = 0
+    b = sorted_x.shape[0]
+    if c == np.uint64(0):
+        return 0
+    while a < b:
+        mid = (a + b) // 2
+        if sorted_x[mid] < thr:
+            a = mid + 1
+        else:
+            b = mid
+    return a % sorted_x.shape[0]
+
+
 @njit(**JIT, inline="always")
 def _emit(emit, geo, node, shift, j):
     """Origin, direction and side index of ray ``j`` of ``node``."""
@@ -225,7 +262,7 @@ def _column(geo, g, front, n):
 
 @njit(**JIT_PARALLEL)
 def _vf_kernel(arrays, emit, geo, nodes, seed, round_index, m, j_lo, j_hi, record,
-               counts, ray_side, ray_col):
+               sorted_x, perm, counts, ray_side, ray_col):
     k = nodes.shape[0]
     ncol = counts.shape[1]
     n = ncol - 2
@@ -241,8 +278,13 @@ def _vf_kernel(arrays, emit, geo, nodes, seed, round_index, m, j_lo, j_hi, recor
         shift = np.empty(5, np.uint64)
         r5_shift(seed, np.uint64(PURPOSE_VF) * _STRIDE + np.uint64(node), round_index, shift)
         j0 = j_lo + c * CHUNK
-        j1 = min(j_hi, j0 + CHUNK)
-        for j in range(j0, j1):
+        size = min(j_hi, j0 + CHUNK) - j0
+        p0 = _chunk_start(sorted_x, shift[0], j0)
+        for q in range(CHUNK):          # rays in increasing u0: neighbouring origins
+            kk = perm[(p0 + q) % CHUNK]
+            if kk >= size:
+                continue
+            j = j0 + kk
             s, fct, x, y, z, dx, dy, dz = _emit(emit, geo, node, shift, j)
             g, t, front = closest_hit(arrays, x, y, z, dx, dy, dz, np.inf, fct)
             col = _column(geo, g, front, n)
@@ -289,14 +331,14 @@ def vf_round(scene_arrays, emit, geo, nodes, seed, round_index, rays_per_round, 
     ray_col = np.empty(size, np.int64)
     if nodes.shape[0] and j_hi > j_lo:
         _vf_kernel(scene_arrays, emit, geo, nodes, np.uint64(seed), np.uint64(round_index),
-                   np.int64(m), np.int64(j_lo), np.int64(j_hi), bool(record), counts,
-                   ray_side, ray_col)
+                   np.int64(m), np.int64(j_lo), np.int64(j_hi), bool(record), _SORTED_X,
+                   _PERM, counts, ray_side, ray_col)
     return counts, ray_side, ray_col
 
 
 @njit(**JIT_PARALLEL)
 def _gebhart_kernel(arrays, emit, geo, absorb, specular, nodes, seed, round_index, m,
-                    counts):
+                    sorted_x, perm, counts):
     k = nodes.shape[0]
     ncol = counts.shape[1]
     n = ncol - 2
@@ -315,8 +357,13 @@ def _gebhart_kernel(arrays, emit, geo, absorb, specular, nodes, seed, round_inde
                  shift)
         bounce_stream = np.uint64(PURPOSE_BOUNCE) * _STRIDE + np.uint64(node)
         j0 = c * CHUNK
-        j1 = min(m, j0 + CHUNK)
-        for j in range(j0, j1):
+        size = min(m, j0 + CHUNK) - j0
+        p0 = _chunk_start(sorted_x, shift[0], j0)
+        for q in range(CHUNK):          # rays in increasing u0: neighbouring origins
+            kk = perm[(p0 + q) % CHUNK]
+            if kk >= size:
+                continue
+            j = j0 + kk
             s, fct, x, y, z, dx, dy, dz = _emit(emit, geo, node, shift, j)
             base = rshift | (np.uint64(j) << np.uint64(16))
             exclude = fct
@@ -382,5 +429,5 @@ def gebhart_round(scene_arrays, emit, geo, absorb, specular, nodes, seed, round_
     if nodes.shape[0] and m > 0:
         _gebhart_kernel(scene_arrays, emit, geo, np.ascontiguousarray(absorb, np.float64),
                         np.ascontiguousarray(specular, np.float64), nodes, np.uint64(seed),
-                        np.uint64(round_index), np.int64(m), counts)
+                        np.uint64(round_index), np.int64(m), _SORTED_X, _PERM, counts)
     return counts
