@@ -71,11 +71,13 @@ def sample_view_factors(rays=10_000, facet=False) -> ViewFactors:
     if facet:
         import scipy.sparse as sp
 
-        # rows: facet sides (2*facet front, 2*facet+1 back); the front of each triangle
-        # sees the other plate's node with the plate value (a simplification for the file test)
-        rows = np.array([0, 2, 4, 6])
-        cols = np.array([1, 1, 0, 0])
-        facet_matrix = sp.csr_matrix((np.full(4, f), (rows, cols)), shape=(8, 2))
+        # layout of vfactor.radiation.compute_view_factors: rows = facet sides (k front,
+        # 4 + k back), columns = nodes, space, inert; each front sees the other plate with
+        # the plate value and space with the rest (a simplification for the file test)
+        rows = np.array([0, 1, 2, 3, 0, 1, 2, 3])
+        cols = np.array([1, 1, 0, 0, 2, 2, 2, 2])
+        vals = np.array([f] * 4 + [1 - f] * 4)
+        facet_matrix = sp.csr_matrix((vals, (rows, cols)), shape=(8, 4))
     return ViewFactors(matrix=m, space=space, inert=np.zeros(2), stderr=err,
                        stderr_space=np.sqrt(space * (1 - space) / rays),
                        raw_matrix=m + np.array([[0, 1e-3], [-1e-3, 0]]),

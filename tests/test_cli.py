@@ -121,3 +121,30 @@ def test_python_dash_m_and_console_script_agree(tmp_path):
     proc = subprocess.run([sys.executable, "-m", "vfactor", "--version"], capture_output=True,
                           text=True, timeout=120, check=False)
     assert proc.returncode == 0 and proc.stdout.strip() == f"vfactor {cli._version()}"
+
+
+def test_run_good_model_exit_0(capsys, write_model, tmp_path):
+    from test_pipeline import BOX
+
+    model = write_model(BOX.replace("rays_per_node = 4000", "rays_per_node = 800"))
+    out = tmp_path / "ok.h5"
+    code, text, err = _run(capsys, "run", str(model), "-o", str(out), "--seed", "3")
+    assert code == 0 and out.is_file()
+    assert f"wrote {out}" in text and "seed 3" in text
+    assert err == ""  # not a terminal: no progress bar
+    code, text, err = _run(capsys, "run", str(model), "-o", str(out), "--quiet")
+    assert code == 0 and text == "" and err == ""
+    code, text, err = _run(capsys, "run", str(model), "-o", str(out), "--verbose")
+    assert code == 0 and "view factors: done" in err  # stage lines when verbose
+
+
+def test_demo_copy_keeps_user_edits(tmp_path):
+    from vfactor import demo
+
+    model, notes = demo.copy_demo(tmp_path / "d")
+    assert model.read_text() == (demo.demo_source() / "demo.toml").read_text()
+    assert (tmp_path / "d" / "camera.stl").is_file() and notes == []
+    model.write_text(model.read_text() + "\n# my edit\n")
+    _, notes = demo.copy_demo(tmp_path / "d")
+    assert len(notes) == 1 and "kept your own" in notes[0]
+    assert model.read_text().endswith("# my edit\n")

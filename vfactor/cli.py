@@ -305,7 +305,11 @@ def main(argv=None) -> int:
         print(f"{PROG}: error: {_one_line(exc)}", file=sys.stderr, flush=True)
         return 2
     except KeyboardInterrupt:
-        print(f"{PROG}: interrupted", file=sys.stderr, flush=True)
+        hint = ""
+        if getattr(args, "command", None) == "run":
+            hint = ("; finished work is kept, rerun with --resume to continue"
+                    if args.resume else "; with --resume a rerun would continue from here")
+        print(f"{PROG}: interrupted{hint}", file=sys.stderr, flush=True)
         return 1
     except Exception as exc:  # noqa: BLE001 - the one place every other failure is reported
         if args.verbose:

@@ -190,8 +190,12 @@ def _write_view_factors(root, vf: ViewFactors):
         h = g.create_group("facet")
         h.attrs["shape"] = np.asarray(m.shape, dtype=np.int64)
         h.attrs["layout"] = "CSR (scipy.sparse.csr_matrix(data, indices, indptr), shape)"
-        h.attrs["rows"] = "facet side: 2*facet for the front, 2*facet+1 for the back"
-        h.attrs["columns"] = "node index"
+        f = m.shape[0] // 2
+        h.attrs["rows"] = (f"facet side: row k = front side of facet k, row {f} + k = its "
+                           "back side (empty rows: inert sides)")
+        h.attrs["columns"] = (f"node index 0..{m.shape[1] - 3}, then space "
+                              f"({m.shape[1] - 2}), then inert ({m.shape[1] - 1})"
+                              if m.shape[1] >= 2 else "node index")
         _put(h, "data", m.data, "1", "facet-side-to-node view factors (non-zero entries)")
         _put(h, "indices", m.indices.astype(np.int64), "1", "column index of each entry")
         _put(h, "indptr", m.indptr.astype(np.int64), "1", "row start offsets into data")

@@ -485,6 +485,9 @@ def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=N
         workers=workers, scheduler=scheduler, resume=resume, facet_factors=facet_factors,
         checkpoint=checkpoint_path(out), reporter=reporter)
     elapsed["view_factors"] = time.perf_counter() - t0
+    if facet_factors and (workers > 1 or scheduler is not None or resume):
+        notes.append("--facet-factors: view factors traced in this process, without "
+                     "workers or checkpoint (the per-ray record is not shared)")
 
     t0 = time.perf_counter()
     exchange = radiation.compute_exchange(geometry, scene, view_factors,

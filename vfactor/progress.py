@@ -69,7 +69,8 @@ class RichReporter(Reporter):
 
         columns = (TextColumn("[bold]{task.description}"), BarColumn(), TaskProgressColumn(),
                    MofNCompleteColumn(), TextColumn("{task.fields[rate]}"),
-                   TimeElapsedColumn(), TextColumn("left"), TimeRemainingColumn())
+                   TimeElapsedColumn(), TextColumn("elapsed,"), TimeRemainingColumn(),
+                   TextColumn("left"))
         with Progress(*columns, console=self._console, transient=False) as progress:
             task = progress.add_task(description, total=max(int(total), 1), rate="")
             bar = _RateBar(progress, task, unit)

@@ -295,8 +295,9 @@ def format_summary(results: Results, top: int = 15) -> str:
         lines.append(f"  largest relative one-sigma error of view factors >= "
                      f"{acc['significant_threshold']}: "
                      f"{100 * acc['largest_relative_stderr_significant']:.2f} %")
-        lines.append(f"  smoothing: {acc['smoothing_method']}; largest adjustment "
-                     f"{acc['largest_adjustment_sigma']:.2f} sigma")
+        lines += textwrap.wrap(f"reciprocity/closure smoothing: {acc['smoothing_method']}; "
+                               f"largest adjustment {acc['largest_adjustment_sigma']:.2f} sigma",
+                               width=92, initial_indent="  ", subsequent_indent="    ")
         if acc["target_error"] is not None:
             lines.append(f"  target error {acc['target_error']:g}: "
                          f"{'reached' if acc['converged'] else 'NOT reached (ray budget spent)'}")
