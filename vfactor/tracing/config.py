@@ -16,10 +16,19 @@ error model are the same everywhere.
 
 from __future__ import annotations
 
-__all__ = ["JIT", "JIT_PARALLEL"]
+__all__ = ["JIT", "JIT_PARALLEL", "RAY_CHUNK", "EMITTER_CHUNK"]
 
 #: Flags of every serial (device or kernel) function.
 JIT = dict(cache=True, nogil=True, error_model="numpy")
 
 #: Flags of kernels that loop over rays or emitters with ``numba.prange``.
 JIT_PARALLEL = dict(JIT, parallel=True)
+
+#: Iterations handed to a thread at a time in ``prange`` loops over rays, set by the
+#: wrappers with ``numba.parallel_chunksize(RAY_CHUNK)``. Dynamic chunks keep both cores
+#: busy when rays cost unequal time or a core is shared; results do not depend on it
+#: (every iteration writes only its own outputs).
+RAY_CHUNK = 2048
+
+#: Same for ``prange`` loops over emitting facets (a facet holds many rays).
+EMITTER_CHUNK = 4

@@ -24,12 +24,13 @@ from __future__ import annotations
 
 from typing import NamedTuple
 
+import numba
 import numpy as np
 from numba import njit, prange
 
 from ..errors import GeometryError
 from . import bvh as _bvh
-from .config import JIT, JIT_PARALLEL
+from .config import EMITTER_CHUNK, JIT, JIT_PARALLEL, RAY_CHUNK
 from .rng import uniform4
 from .sampling import cosine_direction, triangle_point
 from .traverse import any_hit, closest_hit
@@ -131,34 +132,65 @@ def _clean_mesh(vertices, triangles, where):
     return vertices, triangles
 
 
+@njit(**JIT)
+def _normalise_rays(origins, directions, out):
+    """Copy unit directions into ``out``; return (first bad ray, reason) or (-1, 0).
+
+    Reasons: 1 origin not finite, 2 direction not finite, 3 direction zero.
+    """
+    for i in range(origins.shape[0]):
+        ox = origins[i, 0]
+        oy = origins[i, 1]
+        oz = origins[i, 2]
+        if not (np.isfinite(ox) and np.isfinite(oy) and np.isfinite(oz)):
+            return i, 1
+        dx = directions[i, 0]
+        dy = directions[i, 1]
+        dz = directions[i, 2]
+        if not (np.isfinite(dx) and np.isfinite(dy) and np.isfinite(dz)):
+            return i, 2
+        n = np.sqrt(dx * dx + dy * dy + dz * dz)
+        if not n > 0.0:
+            return i, 3
+        out[i, 0] = dx / n
+        out[i, 1] = dy / n
+        out[i, 2] = dz / n
+    return -1, 0
+
+
+@njit(**JIT)
+def _first_bad_exclude(exclude, n_facets):
+    for i in range(exclude.shape[0]):
+        if exclude[i] < -1 or exclude[i] >= n_facets:
+            return i
+    return -1
+
+
 def _clean_rays(origins, directions, tmax, exclude, n_facets, name):
-    origins = np.asarray(origins, dtype=np.float64)
-    directions = np.asarray(directions, dtype=np.float64)
+    origins = np.ascontiguousarray(origins, dtype=np.float64)
+    directions = np.ascontiguousarray(directions, dtype=np.float64)
     if origins.ndim != 2 or origins.shape[1] != 3:
         raise ValueError(f"Scene.{name}: origins must have shape (r, 3), got {origins.shape}")
     if directions.shape != origins.shape:
         raise ValueError(f"Scene.{name}: directions must have shape {origins.shape}, "
                          f"got {directions.shape}")
     r = origins.shape[0]
-    if not np.isfinite(origins).all():
-        i = int(np.flatnonzero(~np.isfinite(origins).all(axis=1))[0])
-        raise ValueError(f"Scene.{name}: origin {i} is not finite: {origins[i].tolist()}")
-    if not np.isfinite(directions).all():
-        i = int(np.flatnonzero(~np.isfinite(directions).all(axis=1))[0])
-        raise ValueError(f"Scene.{name}: direction {i} is not finite: {directions[i].tolist()}")
-    norm = np.sqrt(np.einsum("ij,ij->i", directions, directions))
-    if r and not (norm > 0.0).all():
-        i = int(np.flatnonzero(~(norm > 0.0))[0])
-        raise ValueError(f"Scene.{name}: direction {i} is zero")
-    directions = np.ascontiguousarray(directions / norm[:, None])
-    origins = np.ascontiguousarray(origins)
+    unit = np.empty_like(directions)
+    bad, reason = _normalise_rays(origins, directions, unit)
+    if bad >= 0:
+        what = {1: f"origin {bad} is not finite: {origins[bad].tolist()}",
+                2: f"direction {bad} is not finite: {directions[bad].tolist()}",
+                3: f"direction {bad} is zero"}[reason]
+        raise ValueError(f"Scene.{name}: {what}")
     tmax = np.asarray(tmax, dtype=np.float64)
     if tmax.ndim == 0:
+        if np.isnan(tmax) or tmax < 0:
+            raise ValueError(f"Scene.{name}: tmax must be >= 0, got {float(tmax)}")
         tmax = np.full(r, float(tmax))
     if tmax.shape != (r,):
         raise ValueError(f"Scene.{name}: tmax must be a scalar or shape ({r},), got {tmax.shape}")
-    if np.isnan(tmax).any() or (tmax < 0).any():
-        i = int(np.flatnonzero(np.isnan(tmax) | (tmax < 0))[0])
+    if not (tmax >= 0).all():
+        i = int(np.flatnonzero(~(tmax >= 0))[0])
         raise ValueError(f"Scene.{name}: tmax[{i}] must be >= 0, got {tmax[i]}")
     tmax = np.ascontiguousarray(tmax)
     if exclude is None:
@@ -171,11 +203,11 @@ def _clean_rays(origins, directions, tmax, exclude, n_facets, name):
             raise ValueError(f"Scene.{name}: exclude must be None or ({r},) int, got "
                              f"shape {exclude.shape} dtype {exclude.dtype}")
         exclude = np.ascontiguousarray(exclude, dtype=np.int64)
-        if exclude.size and ((exclude < -1) | (exclude >= n_facets)).any():
-            i = int(np.flatnonzero((exclude < -1) | (exclude >= n_facets))[0])
+        i = _first_bad_exclude(exclude, n_facets)
+        if i >= 0:
             raise ValueError(f"Scene.{name}: exclude[{i}] = {exclude[i]} is not -1 or a "
                              f"facet index below {n_facets}")
-    return origins, directions, tmax, exclude
+    return origins, unit, tmax, exclude
 
 
 @njit(**JIT_PARALLEL)
@@ -294,7 +326,8 @@ class Scene:
         distance = np.empty(r)
         front = np.empty(r, dtype=np.bool_)
         if r:
-            _closest_kernel(self.arrays, o, d, tm, ex, facet, distance, front)
+            with numba.parallel_chunksize(RAY_CHUNK):
+                _closest_kernel(self.arrays, o, d, tm, ex, facet, distance, front)
         return Hits(facet, distance, front)
 
     def occluded(self, origins, directions, tmax, exclude=None):
@@ -311,7 +344,8 @@ class Scene:
                                    "occluded")
         out = np.empty(o.shape[0], dtype=np.bool_)
         if o.shape[0]:
-            _occluded_kernel(self.arrays, o, d, tm, ex, out)
+            with numba.parallel_chunksize(RAY_CHUNK):
+                _occluded_kernel(self.arrays, o, d, tm, ex, out)
         return out
 
 
@@ -387,9 +421,11 @@ def cosine_rays(scene, ray_counts, seed, side=1, stream_offset=0, counter_start=
     origins = np.empty((r, 3))
     directions = np.empty((r, 3))
     emitter = np.empty(r, dtype=np.int64)
-    _cosine_rays_kernel(scene.vertices, scene.triangles, scene.normals, starts, counts,
-                        np.uint64(seed), np.uint64(stream_offset), np.uint64(counter_start),
-                        float(side), origins, directions, emitter)
+    with numba.parallel_chunksize(EMITTER_CHUNK):
+        _cosine_rays_kernel(scene.vertices, scene.triangles, scene.normals, starts, counts,
+                            np.uint64(seed), np.uint64(stream_offset),
+                            np.uint64(counter_start), float(side), origins, directions,
+                            emitter)
     return origins, directions, emitter
 
 
@@ -443,7 +479,8 @@ def count_cosine_hits(scene, ray_counts, seed, side=1, stream_offset=0, counter_
     hits = np.zeros(f, dtype=np.int64)
     front_hits = np.zeros(f, dtype=np.int64)
     facet_sum = np.zeros(f, dtype=np.int64)
-    _count_kernel(scene.arrays, scene.vertices, scene.triangles, scene.normals, counts,
-                  np.uint64(seed), np.uint64(stream_offset), np.uint64(counter_start),
-                  float(side), hits, front_hits, facet_sum)
+    with numba.parallel_chunksize(EMITTER_CHUNK):
+        _count_kernel(scene.arrays, scene.vertices, scene.triangles, scene.normals, counts,
+                      np.uint64(seed), np.uint64(stream_offset), np.uint64(counter_start),
+                      float(side), hits, front_hits, facet_sum)
     return CosineTally(counts, hits, front_hits, facet_sum)

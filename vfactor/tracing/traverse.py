@@ -30,7 +30,7 @@ entry distance so that it is skipped when a closer hit has been found since.
 from __future__ import annotations
 
 import numpy as np
-from numba import carray, njit, types
+from numba import njit, types
 from numba.core import cgutils
 from numba.extending import intrinsic
 
@@ -170,10 +170,10 @@ def closest_hit(arrays, ox, oy, oz, dx, dy, dz, tmax, exclude):
     fx = 3 - nx
     fy = 5 - ny
     fz = 7 - nz
-    stack_n = carray(_stack_alloca(STACK_SIZE, np.int32), STACK_SIZE)
-    stack_t = carray(_stack_alloca(STACK_SIZE, np.float64), STACK_SIZE)
+    stack_n = _stack_alloca(STACK_SIZE, np.int32)
+    stack_t = _stack_alloca(STACK_SIZE, np.float64)
     best_t = tmax
-    best_r = -1
+    best_id = np.int64(-1)
     best_det = 0.0
     sp = 0
     ref = np.int32(0)
@@ -218,10 +218,12 @@ def closest_hit(arrays, ox, oy, oz, dx, dy, dz, tmax, exclude):
             first = code >> 4
             for r in range(first, first + (code & 15)):
                 hit, t, det = _triangle(tri, r, kx, ky, kz, okx, oky, okz, sx, sy, sz)
-                if hit and t > 0.0 and t < best_t and tri_ids[r] != exclude:
-                    best_t = t
-                    best_r = r
-                    best_det = det
+                if hit and t > 0.0 and t < best_t:
+                    fid = tri_ids[r]
+                    if fid != exclude:
+                        best_t = t
+                        best_id = fid
+                        best_det = det
         # Pop the next subtree that may still hold a closer hit.
         found = False
         while sp > 0:
@@ -232,11 +234,11 @@ def closest_hit(arrays, ox, oy, oz, dx, dy, dz, tmax, exclude):
                 break
         if not found:
             break
-    if best_r < 0:
-        return np.int64(-1), tmax, False
+    if best_id < 0:
+        return best_id, tmax, False
     # det > 0 means the ray sees A, B, C counter-clockwise in the sheared frame, i.e.
     # it travels against n = (B - A) x (C - A): front side.
-    return tri_ids[best_r], best_t, best_det > 0.0
+    return best_id, best_t, best_det > 0.0
 
 
 @njit(**JIT)
@@ -260,7 +262,7 @@ def any_hit(arrays, ox, oy, oz, dx, dy, dz, tmax, exclude):
     fx = 3 - nx
     fy = 5 - ny
     fz = 7 - nz
-    stack_n = carray(_stack_alloca(STACK_SIZE, np.int32), STACK_SIZE)
+    stack_n = _stack_alloca(STACK_SIZE, np.int32)
     sp = 0
     ref = np.int32(0)
     while True:
