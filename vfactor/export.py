@@ -188,8 +188,9 @@ def _mesh_target(path, suffix) -> Path:
 def export_vtk(results: Results, path) -> Path:
     """Write the facets with their :func:`facet_fields` as VTK cell data (meshio).
 
-    A path without a suffix gets ``.vtu``. Field units are listed in the field names'
-    companion ``field_data`` entry ``units`` (VTK has no per-array unit attribute).
+    A path without a suffix gets ``.vtu``. VTK arrays carry no unit attribute; the units
+    are those of :func:`facet_fields` (``absorbed_*`` in W m-2, ``area`` in m2, indices 1),
+    as the README's CSV layout section lists them.
     """
     import meshio
 

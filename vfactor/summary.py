@@ -198,9 +198,20 @@ def summarize(results: Results, top: int = 15) -> dict:
             "cautions": list(CAUTIONS)}
 
 
+def _finite(value):
+    """``value`` with every non-finite float replaced by None (JSON has no NaN)."""
+    if isinstance(value, dict):
+        return {k: _finite(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_finite(v) for v in value]
+    if isinstance(value, float) and not np.isfinite(value):
+        return None
+    return value
+
+
 def to_json(summary: dict) -> str:
-    """The summary as indented JSON text."""
-    return json.dumps(summary, indent=2, allow_nan=False)
+    """The summary as indented JSON text (non-finite numbers become ``null``)."""
+    return json.dumps(_finite(summary), indent=2, allow_nan=False)
 
 
 # ---------------------------------------------------------------------------------------
