@@ -544,6 +544,8 @@ def test_trace_tallies_any_round_order_and_thread_count_give_identical_bits():
         np.testing.assert_array_equal(a, b)
         assert a.dtype == np.int64 and np.all(a.sum(axis=1) == 3000)
     np.testing.assert_array_equal(split, one[2])          # node subsets: same bits
+    pairs = radiation.trace_pairs(g, sc, [3, 0, 4], [1, 3, 0], 5, 3000)
+    np.testing.assert_array_equal(pairs, [one[1][3], one[3][0], one[0][4]])
     forward, backward = TallySums.empty(g.n_nodes, 3000), TallySums.empty(g.n_nodes, 3000)
     for r in range(4):
         forward.add(nodes, one[r])

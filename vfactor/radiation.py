@@ -33,6 +33,8 @@ import numpy as np
 __all__ = [
     "compute_view_factors",
     "trace_tallies",
+    "trace_pairs",
+    "plan_rounds",
     "view_factors_from_tallies",
     "compute_exchange",
     "monte_carlo_gebhart",
@@ -195,6 +197,27 @@ class TallySums:
         self.counts[idx] += t
         self.squares[idx] += t * t
         self.rounds[idx] += 1
+
+    def add_pairs(self, node_indices, tallies) -> None:
+        """Add tallies of (node, round) pairs; a node may appear once per round it got.
+
+        Parameters
+        ----------
+        node_indices : (k,) int — node of each pair
+        tallies : (k, n + 2) int64 — hit counts of each pair (one round each)
+        """
+        idx = np.asarray(node_indices, dtype=np.int64)
+        t = np.asarray(tallies)
+        if t.shape != (idx.size, self.counts.shape[1]) or t.dtype.kind not in "iu":
+            raise ValueError(f"TallySums.add_pairs: tallies must be integer of shape "
+                             f"({idx.size}, {self.counts.shape[1]}), got {t.dtype} {t.shape}")
+        t = t.astype(np.int64)
+        if np.any(t.sum(axis=1) != self.rays_per_round):
+            raise ValueError(f"TallySums.add_pairs: every tally row must sum to "
+                             f"rays_per_round = {self.rays_per_round}")
+        np.add.at(self.counts, idx, t)
+        np.add.at(self.squares, idx, t * t)
+        np.add.at(self.rounds, idx, 1)
 
     def merge(self, other: "TallySums") -> None:
         """Add the sums of ``other`` (another worker's rounds, disjoint from ours)."""
@@ -627,18 +650,18 @@ def _check_round_args(n, node_indices, seed, rays_per_node, round_index):
     return nodes
 
 
-def _node_batches(nodes, m, n):
-    """Split ``nodes`` so that one kernel call traces about ``_RAYS_PER_CALL`` rays."""
+def _pair_batches(count, m, n):
+    """Slices of ``count`` (node, round) pairs so that one kernel call traces about
+    ``_RAYS_PER_CALL`` rays and holds at most ~4e6 partial tallies."""
     from .tracing.vf_kernels import CHUNK
 
     per_call = max(1, _RAYS_PER_CALL // max(m, 1))
-    # bound the kernel's partial tallies to ~4e6 integers
     per_call = max(1, min(per_call, 4_000_000 // (max(1, -(-m // CHUNK)) * (n + 2))))
-    return [nodes[i:i + per_call] for i in range(0, nodes.size, per_call)]
+    return [slice(i, min(count, i + per_call)) for i in range(0, count, per_call)]
 
 
 def _j_ranges(m, k):
-    """Split the rays 0..m of a round so that ``k`` nodes trace ~_RAYS_PER_CALL per call."""
+    """Split the rays 0..m of a round so that ``k`` pairs trace ~_RAYS_PER_CALL per call."""
     step = max(1, _RAYS_PER_CALL // max(k, 1))
     return [(j, min(m, j + step)) for j in range(0, m, step)]
 
@@ -665,34 +688,63 @@ def trace_tallies(geometry, scene, node_indices, seed, rays_per_node, round_inde
     -----
     A pure function of its arguments: the same call gives the same bits on any thread
     count, and rounds (or node subsets) computed anywhere and summed in any order give
-    identical totals. The emission design (stratified by area over the node's facet sides,
-    randomised quasi-Monte Carlo positions and cosine-weighted directions) is described in
+    identical totals. The emission design (randomised quasi-Monte Carlo over side,
+    position and cosine-weighted direction) is described in
     :mod:`vfactor.tracing.vf_kernels`. Sum rounds with :class:`TallySums` and turn them
     into view factors with :func:`view_factors_from_tallies`; every round of one
-    computation must use the same ``rays_per_node``.
+    computation must use the same ``rays_per_node``. :func:`trace_pairs` does many
+    (node, round) pairs in one call.
     """
-    from .tracing.vf_kernels import vf_round
+    nodes = np.asarray(node_indices, dtype=np.int64).reshape(-1)
+    return trace_pairs(geometry, scene, nodes, np.full(nodes.size, int(round_index)), seed,
+                       rays_per_node, _unique_nodes=True)
 
+
+def trace_pairs(geometry, scene, node_indices, round_indices, seed, rays_per_node, *,
+                _unique_nodes=False):
+    """Hit counts of many (node, round) units of work in one parallel call.
+
+    Parameters
+    ----------
+    node_indices, round_indices : (k,) int — the pairs (no pair twice)
+    Others as for :func:`trace_tallies`.
+
+    Returns
+    -------
+    (k, n + 2) int64 — row ``p`` equals ``trace_tallies(geometry, scene, [node_indices[p]],
+        seed, rays_per_node, round_indices[p])[0]``, bit for bit.
+    """
     kin = _kernel_inputs(geometry, scene)
-    nodes = _check_round_args(kin.n_nodes, node_indices, seed, rays_per_node, round_index)
-    return _trace_round(scene, kin, nodes, int(seed), int(rays_per_node), int(round_index),
-                        vf_round, None, None)
+    nodes = np.asarray(node_indices, dtype=np.int64).reshape(-1)
+    rounds = np.asarray(round_indices, dtype=np.int64).reshape(-1)
+    if rounds.shape != nodes.shape:
+        raise ValueError(f"trace_pairs: {nodes.size} nodes but {rounds.size} rounds")
+    _check_round_args(kin.n_nodes, nodes if _unique_nodes else [], seed, rays_per_node,
+                      int(rounds.max()) if rounds.size else 0)
+    if nodes.size and (nodes.min() < 0 or nodes.max() >= kin.n_nodes):
+        raise ValueError(f"node_indices must be in 0..{kin.n_nodes - 1}")
+    if rounds.size and rounds.min() < 0:
+        raise ValueError(f"round_indices must be >= 0, got {int(rounds.min())}")
+    if np.unique(nodes * (1 << 20) + rounds).size != nodes.size:
+        raise ValueError("trace_pairs: a (node, round) pair is repeated")
+    return _trace_pairs(scene, kin, nodes, rounds, int(seed), int(rays_per_node), None, None)
 
 
-def _trace_round(scene, kin, nodes, seed, m, round_index, vf_round, bar, facet_acc):
+def _trace_pairs(scene, kin, nodes, rounds, seed, m, bar, facet_acc):
+    from .tracing.vf_kernels import vf_pairs
+
     out = np.zeros((nodes.size, kin.n_nodes + 2), np.int64)
-    pos = 0
-    for batch in _node_batches(nodes, m, kin.n_nodes):
-        for j_lo, j_hi in _j_ranges(m, batch.size):
-            counts, ray_side, ray_col = vf_round(scene.arrays, kin.emit, kin.geo, batch, seed,
-                                                 round_index, m, j_lo, j_hi,
+    for sl in _pair_batches(nodes.size, m, kin.n_nodes):
+        k = sl.stop - sl.start
+        for j_lo, j_hi in _j_ranges(m, k):
+            counts, ray_side, ray_col = vf_pairs(scene.arrays, kin.emit, kin.geo, nodes[sl],
+                                                 rounds[sl], seed, m, j_lo, j_hi,
                                                  record=facet_acc is not None)
-            out[pos:pos + batch.size] += counts
+            out[sl] += counts
             if facet_acc is not None:
                 facet_acc.add(kin.side_id[ray_side], ray_col)
             if bar is not None:
-                bar.advance(batch.size * (j_hi - j_lo))
-        pos += batch.size
+                bar.advance(k * (j_hi - j_lo))
     return out
 
 
@@ -729,6 +781,38 @@ def _row_error_ratio(stats, target_error, significance):
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = np.where(sig, stats.stderr / (target_error * stats.mean), 0.0)
     return ratio.max(axis=1) if n else np.zeros(0)
+
+
+def plan_rounds(sums: TallySums, target_error, max_rounds, significance=SIGNIFICANCE):
+    """The (node, round) pairs to trace next to reach ``target_error``.
+
+    Parameters
+    ----------
+    sums : TallySums — rounds traced so far
+    target_error : float — one-sigma relative error wanted on significant entries [1]
+    max_rounds : int — most rounds any node may have (its ray budget / rays per round)
+    significance : float — threshold of significant entries [1]
+
+    Returns
+    -------
+    pair_node, pair_round : (k,) int64 — empty when every row passes or is at its budget
+
+    Notes
+    -----
+    A row whose worst significant entry has ``stderr / (target F) = q > 1`` after ``K``
+    rounds gets rounds up to ``ceil(1.1 K q^2)`` (the variance falls as 1/rounds; 10 %
+    margin), at least one more, at most ``max_rounds``.
+    """
+    stats = tally_statistics(sums)
+    ratio = _row_error_ratio(stats, target_error, significance)
+    want = np.ceil(sums.rounds * ratio ** 2 * 1.1).astype(np.int64)
+    want = np.minimum(np.maximum(want, sums.rounds + 1), int(max_rounds))
+    need = np.flatnonzero((ratio > 1.0) & (sums.rounds < max_rounds))
+    if need.size == 0:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64)
+    nodes = np.concatenate([np.full(want[i] - sums.rounds[i], i, np.int64) for i in need])
+    rounds = np.concatenate([np.arange(sums.rounds[i], want[i], dtype=np.int64) for i in need])
+    return nodes, rounds
 
 
 def compute_view_factors(geometry, scene, *, rays_per_node, seed, target_error=None,
@@ -778,7 +862,7 @@ def compute_view_factors(geometry, scene, *, rays_per_node, seed, target_error=N
     tallies are kept.
     """
     from .progress import NullReporter
-    from .tracing.vf_kernels import MAX_ROUNDS, vf_round
+    from .tracing.vf_kernels import MAX_ROUNDS
 
     kin = _kernel_inputs(geometry, scene)
     n = kin.n_nodes
@@ -797,30 +881,23 @@ def compute_view_factors(geometry, scene, *, rays_per_node, seed, target_error=N
     seed = int(seed)
     sums = TallySums.empty(n, m)
     acc = _FacetAccumulator(2 * kin.n_facets, n + 2) if facet_factors else None
-    all_nodes = np.arange(n, dtype=np.int64)
     with reporter.stage("view factors", total=n * MIN_ROUNDS * m, unit="rays") as bar:
         done = n * MIN_ROUNDS * m
-        for r in range(MIN_ROUNDS):
-            sums.add(all_nodes, _trace_round(scene, kin, all_nodes, seed, m, r, vf_round,
-                                             bar, acc))
+        pair_node = np.tile(np.arange(n, dtype=np.int64), MIN_ROUNDS)
+        pair_round = np.repeat(np.arange(MIN_ROUNDS, dtype=np.int64), n)
+        sums.add_pairs(pair_node, _trace_pairs(scene, kin, pair_node, pair_round, seed, m,
+                                               bar, acc))
         converged = True
         if target_error is not None:
             for _ in range(50):
-                stats = tally_statistics(sums)
-                ratio = _row_error_ratio(stats, target_error, significance)
-                want = np.ceil(sums.rounds * ratio ** 2 * 1.1).astype(np.int64)
-                want = np.minimum(np.maximum(want, sums.rounds + 1), max_rounds)
-                need = (ratio > 1.0) & (sums.rounds < max_rounds)
-                if not need.any():
+                pair_node, pair_round = plan_rounds(sums, target_error, max_rounds,
+                                                    significance)
+                if pair_node.size == 0:
                     break
-                extra = int((np.where(need, want - sums.rounds, 0)).sum()) * m
-                done += extra
+                done += pair_node.size * m
                 bar.set_total(done)
-                for r in range(int(sums.rounds[need].min()), int(want[need].max())):
-                    rows = np.flatnonzero(need & (sums.rounds == r) & (want > r))
-                    if rows.size:
-                        sums.add(rows, _trace_round(scene, kin, rows, seed, m, r, vf_round,
-                                                    bar, acc))
+                sums.add_pairs(pair_node, _trace_pairs(scene, kin, pair_node, pair_round,
+                                                       seed, m, bar, acc))
             stats = tally_statistics(sums)
             converged = bool(np.all(_row_error_ratio(stats, target_error, significance) <= 1))
     facet_matrix = acc.factors() if acc is not None else None
@@ -912,7 +989,7 @@ def gebhart_tallies(geometry, scene, *, band="ir", rays_per_node, seed, reporter
         :data:`vfactor.tracing.vf_kernels.MAX_BOUNCES` reflections).
     """
     from .progress import NullReporter
-    from .tracing.vf_kernels import gebhart_round
+    from .tracing.vf_kernels import gebhart_pairs
 
     absorb, specular = _band_properties(geometry, band)
     kin = _kernel_inputs(geometry, scene)
@@ -931,18 +1008,16 @@ def gebhart_tallies(geometry, scene, *, band="ir", rays_per_node, seed, reporter
                              f"[0, 1], got {float(v[i])!r}")
     reporter = reporter or NullReporter()
     sums = TallySums.empty(n, m)
+    pair_node = np.tile(nodes, MIN_ROUNDS)
+    pair_round = np.repeat(np.arange(MIN_ROUNDS, dtype=np.int64), nodes.size)
     with reporter.stage(f"Gebhart factors ({band}, reflection tracing)",
-                        total=nodes.size * MIN_ROUNDS * m, unit="rays") as bar:
-        for r in range(MIN_ROUNDS):
-            out = np.zeros((nodes.size, n + 2), np.int64)
-            pos = 0
-            for batch in _node_batches(nodes, m, n):
-                out[pos:pos + batch.size] = gebhart_round(scene.arrays, kin.emit, kin.geo,
-                                                          absorb, specular, batch, int(seed),
-                                                          r, m)
-                pos += batch.size
-                bar.advance(batch.size * m)
-            sums.add(nodes, out)
+                        total=pair_node.size * m, unit="rays") as bar:
+        out = np.zeros((pair_node.size, n + 2), np.int64)
+        for sl in _pair_batches(pair_node.size, m, n):
+            out[sl] = gebhart_pairs(scene.arrays, kin.emit, kin.geo, absorb, specular,
+                                    pair_node[sl], pair_round[sl], int(seed), m)
+            bar.advance((sl.stop - sl.start) * m)
+        sums.add_pairs(pair_node, out)
     return sums
 
 

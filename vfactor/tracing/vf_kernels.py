@@ -53,8 +53,8 @@ from .sampling import cosine_direction, triangle_point
 from .traverse import closest_hit
 
 __all__ = [
-    "vf_round",
-    "gebhart_round",
+    "vf_pairs",
+    "gebhart_pairs",
     "emitter_table",
     "r5_shift",
     "r5_point",
@@ -261,22 +261,21 @@ def _column(geo, g, front, n):
 
 
 @njit(**JIT_PARALLEL)
-def _vf_kernel(arrays, emit, geo, nodes, seed, round_index, m, j_lo, j_hi, record,
+def _vf_kernel(arrays, emit, geo, pair_node, pair_round, seed, m, j_lo, j_hi, record,
                sorted_x, perm, counts, ray_side, ray_col):
-    k = nodes.shape[0]
+    k = pair_node.shape[0]
     ncol = counts.shape[1]
     n = ncol - 2
     span = j_hi - j_lo
     nchunks = (span + CHUNK - 1) // CHUNK
     partial = np.zeros((k * nchunks, ncol), np.int64)
-    side_ptr = emit[0]
-    side_cum = emit[3]
     for item in prange(k * nchunks):
         a = item // nchunks
         c = item - a * nchunks
-        node = nodes[a]
+        node = pair_node[a]
         shift = np.empty(5, np.uint64)
-        r5_shift(seed, np.uint64(PURPOSE_VF) * _STRIDE + np.uint64(node), round_index, shift)
+        r5_shift(seed, np.uint64(PURPOSE_VF) * _STRIDE + np.uint64(node),
+                 np.uint64(pair_round[a]), shift)
         j0 = j_lo + c * CHUNK
         size = min(j_hi, j0 + CHUNK) - j0
         p0 = _chunk_start(sorted_x, shift[0], j0)
@@ -299,9 +298,9 @@ def _vf_kernel(arrays, emit, geo, nodes, seed, round_index, m, j_lo, j_hi, recor
                 counts[a, q] += partial[a * nchunks + c, q]
 
 
-def vf_round(scene_arrays, emit, geo, nodes, seed, round_index, rays_per_round, j_lo=0,
+def vf_pairs(scene_arrays, emit, geo, pair_node, pair_round, seed, rays_per_round, j_lo=0,
              j_hi=None, record=False):
-    """Hit counts of one round of view-factor rays for a list of nodes.
+    """Hit counts of view-factor rays for a list of (node, round) pairs.
 
     Parameters
     ----------
@@ -310,51 +309,51 @@ def vf_round(scene_arrays, emit, geo, nodes, seed, round_index, rays_per_round, 
         :func:`emitter_table`
     geo : tuple — ``(vertices (v,3), triangles (f,3) int64, normals (f,3), front_node (f,)
         int64, back_node (f,) int64)``
-    nodes : (k,) int64 — emitting nodes
-    seed, round_index : int — randomisation (round = replicate)
-    rays_per_round : int — ``m``, rays per node in the round
-    j_lo, j_hi : int — emit only rays ``j_lo <= j < j_hi`` of the round (default all)
+    pair_node, pair_round : (k,) int64 — emitting node and round (replicate) of each pair
+    seed : int — randomisation
+    rays_per_round : int — ``m``, rays per node in a round
+    j_lo, j_hi : int — emit only rays ``j_lo <= j < j_hi`` of each round (default all)
     record : bool — also return the side index and column of every ray
 
     Returns
     -------
     counts : (k, n + 2) int64 — hits per column (nodes, space, inert)
-    ray_side, ray_col : (k * (j_hi - j_lo),) int64 — per ray (empty unless ``record``)
+    ray_side, ray_col : (k * (j_hi - j_lo),) int64 — per ray, pair-major (empty unless
+        ``record``)
     """
     m = int(rays_per_round)
     j_hi = m if j_hi is None else int(j_hi)
-    nodes = np.ascontiguousarray(nodes, dtype=np.int64)
+    pair_node = np.ascontiguousarray(pair_node, dtype=np.int64)
+    pair_round = np.ascontiguousarray(pair_round, dtype=np.int64)
     n = emit[0].shape[0] - 1
-    counts = np.zeros((nodes.shape[0], n + 2), np.int64)
-    size = nodes.shape[0] * (j_hi - int(j_lo)) if record else 0
+    counts = np.zeros((pair_node.shape[0], n + 2), np.int64)
+    size = pair_node.shape[0] * (j_hi - int(j_lo)) if record else 0
     ray_side = np.empty(size, np.int64)
     ray_col = np.empty(size, np.int64)
-    if nodes.shape[0] and j_hi > j_lo:
-        _vf_kernel(scene_arrays, emit, geo, nodes, np.uint64(seed), np.uint64(round_index),
+    if pair_node.shape[0] and j_hi > j_lo:
+        _vf_kernel(scene_arrays, emit, geo, pair_node, pair_round, np.uint64(seed),
                    np.int64(m), np.int64(j_lo), np.int64(j_hi), bool(record), _SORTED_X,
                    _PERM, counts, ray_side, ray_col)
     return counts, ray_side, ray_col
 
 
 @njit(**JIT_PARALLEL)
-def _gebhart_kernel(arrays, emit, geo, absorb, specular, nodes, seed, round_index, m,
+def _gebhart_kernel(arrays, emit, geo, absorb, specular, pair_node, pair_round, seed, m,
                     sorted_x, perm, counts):
-    k = nodes.shape[0]
+    k = pair_node.shape[0]
     ncol = counts.shape[1]
     n = ncol - 2
     nchunks = (m + CHUNK - 1) // CHUNK
     partial = np.zeros((k * nchunks, ncol), np.int64)
-    side_ptr = emit[0]
-    side_cum = emit[3]
     normals = geo[2]
-    rshift = np.uint64(round_index) << np.uint64(48)
     for item in prange(k * nchunks):
         a = item // nchunks
         c = item - a * nchunks
-        node = nodes[a]
+        node = pair_node[a]
+        rnd = np.uint64(pair_round[a])
+        rshift = rnd << np.uint64(48)
         shift = np.empty(5, np.uint64)
-        r5_shift(seed, np.uint64(PURPOSE_GEBHART) * _STRIDE + np.uint64(node), round_index,
-                 shift)
+        r5_shift(seed, np.uint64(PURPOSE_GEBHART) * _STRIDE + np.uint64(node), rnd, shift)
         bounce_stream = np.uint64(PURPOSE_BOUNCE) * _STRIDE + np.uint64(node)
         j0 = c * CHUNK
         size = min(m, j0 + CHUNK) - j0
@@ -400,34 +399,35 @@ def _gebhart_kernel(arrays, emit, geo, absorb, specular, nodes, seed, round_inde
                 counts[a, q] += partial[a * nchunks + c, q]
 
 
-def gebhart_round(scene_arrays, emit, geo, absorb, specular, nodes, seed, round_index,
+def gebhart_pairs(scene_arrays, emit, geo, absorb, specular, pair_node, pair_round, seed,
                   rays_per_round):
-    """Absorption counts of one round of reflection tracing for a list of nodes.
+    """Absorption counts of reflection tracing for a list of (node, round) pairs.
 
     Each ray leaves the node diffusely (emission design of the module notes); at every hit
     on a node side it is absorbed with probability ``absorb[node]``, else reflected:
     specularly with probability ``specular[node]``, diffusely (cosine-weighted about the
     side's normal) otherwise (analogue Monte Carlo: Russian roulette with the absorptivity
     as the survival test; Howell, "The Monte Carlo method in radiative heat transfer",
-    J. Heat Transfer 120 (1998) 547-560, section on exchange factors). Misses escape to
-    space; inert sides absorb and lose the ray.
+    J. Heat Transfer 120 (1998) 547-560). Misses escape to space; inert sides absorb and
+    lose the ray; a ray still alive after :data:`MAX_BOUNCES` reflections is lost.
 
     Parameters
     ----------
     absorb : (n,) float — absorption probability of each node (eps or alpha) [1]
     specular : (n,) float — specular share of the reflected energy [1]
-    Others as for :func:`vf_round`.
+    Others as for :func:`vf_pairs`.
 
     Returns
     -------
     counts : (k, n + 2) int64 — absorbed per column (nodes, space, lost)
     """
     m = int(rays_per_round)
-    nodes = np.ascontiguousarray(nodes, dtype=np.int64)
+    pair_node = np.ascontiguousarray(pair_node, dtype=np.int64)
+    pair_round = np.ascontiguousarray(pair_round, dtype=np.int64)
     n = emit[0].shape[0] - 1
-    counts = np.zeros((nodes.shape[0], n + 2), np.int64)
-    if nodes.shape[0] and m > 0:
+    counts = np.zeros((pair_node.shape[0], n + 2), np.int64)
+    if pair_node.shape[0] and m > 0:
         _gebhart_kernel(scene_arrays, emit, geo, np.ascontiguousarray(absorb, np.float64),
-                        np.ascontiguousarray(specular, np.float64), nodes, np.uint64(seed),
-                        np.uint64(round_index), np.int64(m), _SORTED_X, _PERM, counts)
+                        np.ascontiguousarray(specular, np.float64), pair_node, pair_round,
+                        np.uint64(seed), np.int64(m), _SORTED_X, _PERM, counts)
     return counts
