@@ -175,3 +175,13 @@ def test_run_with_orbit_writes_heating(write_model, tmp_path):
         assert h["heating/facet/planet_ir"].shape == (6, f)
         # node power is what the heating stage computed, stored unchanged
         np.testing.assert_array_equal(h["heating/planet_ir"][()], res.heating.node_planet_ir)
+
+
+def test_scheduler_without_dask_is_one_line(box, tmp_path, monkeypatch):
+    import sys
+
+    monkeypatch.setitem(sys.modules, "distributed", None)  # as if not installed
+    with pytest.raises(ArgumentError, match=r"pip install 'vfactor\[dask\]'") as err:
+        pipeline.run(box, tmp_path / "o.h5", scheduler="tcp://127.0.0.1:8786")
+    assert "\n" not in str(err.value)
+    assert not (tmp_path / "o.h5").exists()

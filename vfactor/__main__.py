@@ -4,4 +4,5 @@ import sys
 
 from vfactor.cli import main
 
-sys.exit(main())
+if __name__ == "__main__":  # guarded: worker processes (spawn) import this module again
+    sys.exit(main())
