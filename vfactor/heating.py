@@ -61,7 +61,10 @@ Statistical error
 Each side's rays (and its Sun sample points) form ``replicates`` independently randomised
 quasi-Monte Carlo sequences; the per-node one-sigma error is the spread of the replicate
 estimates (``std(ddof=1) / sqrt(M)``; Owen 2013, "Monte Carlo theory, methods and
-examples", ch. 17). It is reported for the directly absorbed part of each source.
+examples", ch. 17). Specular chains and diffuse pools are tallied per replicate too, so the
+reported error covers the reflected part as well; it does not include the error of the node
+view factors used in the diffuse redistribution (see :class:`vfactor.radiation.ViewFactors`
+``stderr``), which is the same for every replicate.
 
 Approximations (documented, common practice): the Sun is a uniform disk at the Sun
 distance of the step, and its direction is the same at the vehicle and over the planet;
@@ -105,8 +108,9 @@ class Heating:
     planet_ir : float — planet outgoing long-wave flux used [W m-2]
     case : str — environment case name
     node_solar_stderr, node_albedo_stderr, node_planet_ir_stderr : (t, n) float or None —
-        one-sigma Monte Carlo error of the directly absorbed power of each node [W]
-        (spread of independent replicates; reflected contributions not included)
+        one-sigma Monte Carlo error of the absorbed power of each node [W] (spread of
+        independent replicates, reflections included; the error of the node view factors
+        used for the diffuse redistribution is not included)
     escaped_solar, escaped_albedo, escaped_planet_ir : (t,) float or None — power reflected
         by the vehicle that left it [W]
     inert_solar, inert_albedo, inert_planet_ir : (t,) float or None — reflected power that
@@ -598,9 +602,11 @@ def _bands(model: _Model, geometry, view_factors) -> dict:
         d = model.esc_dir[rows]
         nrm = s.normal[owner]
         dn = np.einsum("ij,ij->i", d, nrm)
+        segment = np.searchsorted(model.segment_start, rows, side="right") - 1
         bands[band] = dict(
             gebhart=None if black else _gebhart(view, node_abs), f_abs=f_abs, f_spec=f_spec,
             s_abs=s_abs, s_spec=s_spec, spec_sides=spec_sides, rows=rows, owner=owner,
+            replicate=(segment % model.m).astype(np.int64),
             mirror=np.ascontiguousarray(-d + 2.0 * dn[:, None] * nrm),
             mirror_origin=np.ascontiguousarray(model.esc_origin[rows]))
     return bands
@@ -647,25 +653,31 @@ def _one_step(model: _Model, bands, step: _Step, use_cache: bool, k: int, out: d
         absorbed_side = absorb * incident_side
         out[f"incident_{src}"][k] = np.bincount(s.node, weights=incident_side,
                                                 minlength=n_nodes)
-        # independent replicate estimates of each node's directly absorbed power -> stderr
-        node_rep = np.stack([np.bincount(s.node, weights=absorb * rep[:, r], minlength=n_nodes)
-                             for r in range(m)], axis=1)
-        out[f"node_{src}_stderr"][k] = node_rep.std(axis=1, ddof=1) / math.sqrt(m)
+        # independent replicate estimates (m, n) of each node's absorbed power
+        node_rep = _per_replicate(s.node, absorb[:, None] * rep, n_nodes)
         absorbed_node = np.bincount(s.node, weights=absorbed_side, minlength=n_nodes)
         facet_power = np.bincount(s.facet, weights=absorbed_side,
                                   minlength=model.facet_area.shape[0])
         if bands is not None and s.count:
             band = bands["ir" if src == "planet_ir" else "solar"]
-            extra, escaped, lost = _reflect(model, src, band, step, incident_side, lit_mask,
-                                            cos_t)
+            extra_rep, escaped, lost = _reflect(model, src, band, step, rep, lit_mask, cos_t)
+            node_rep = node_rep + extra_rep
+            extra = extra_rep.mean(axis=0)
             absorbed_node = absorbed_node + extra
             share = np.where(model.node_area > 0.0, extra / node_area_safe, 0.0)
             facet_power = facet_power + np.bincount(
                 s.facet, weights=share[s.node] * s.area, minlength=model.facet_area.shape[0])
             out[f"escaped_{src}"][k] = escaped
             out[f"inert_{src}"][k] = lost
+        out[f"node_{src}_stderr"][k] = node_rep.std(axis=0, ddof=1) / math.sqrt(m)
         out[f"node_{src}"][k] = absorbed_node
         out[f"facet_{src}"][k] = np.where(model.facet_area > 0.0, facet_power / area_safe, 0.0)
+
+
+def _per_replicate(node, values, n_nodes):
+    """(m, n) sums per node of the columns of ``values`` (s, m)."""
+    return np.stack([np.bincount(node, weights=values[:, r], minlength=n_nodes)
+                     for r in range(values.shape[1])])
 
 
 def _rows_of_sides(side_list, segment_start, m):
@@ -681,64 +693,81 @@ def _rows_of_sides(side_list, segment_start, m):
 _CHUNK = 4096
 
 
-def _run_chains(model: _Model, band, origin, direction, exclude, weight):
-    """Specular chains of a batch of rays: (absorbed (n,), diffuse (n,), escaped, inert) [W]."""
+def _run_chains(model: _Model, band, origin, direction, exclude, weight, replicate):
+    """Specular chains of a batch of rays.
+
+    Returns (absorbed (m, n), diffuse (m, n), escaped, inert) [W]: the sums over the rays
+    of each replicate of the power absorbed by / left diffusely on each node, and the
+    totals that escaped and that ended on inert sides.
+    """
     from vfactor.tracing import heat_kernels as hk
 
     n = model.n_nodes
     count = origin.shape[0]
     if count == 0:
-        return np.zeros(n), np.zeros(n), 0.0, 0.0
+        return np.zeros((model.m, n)), np.zeros((model.m, n)), 0.0, 0.0
     chunks = -(-count // _CHUNK)
-    absorbed = np.empty((chunks, n))
-    diffuse = np.empty((chunks, n))
+    absorbed = np.empty((chunks, model.m, n))
+    diffuse = np.empty((chunks, model.m, n))
     esc = np.empty(chunks)
     lost = np.empty(chunks)
     hk.specular_chains(model.arrays, model.normals, model.facet_node, band["f_abs"],
                        band["f_spec"], np.ascontiguousarray(origin),
                        np.ascontiguousarray(direction),
                        np.ascontiguousarray(exclude, dtype=np.int64),
-                       np.ascontiguousarray(weight), _CHUNK, model.max_bounces, absorbed,
-                       diffuse, esc, lost)
+                       np.ascontiguousarray(weight),
+                       np.ascontiguousarray(replicate, dtype=np.int64), _CHUNK,
+                       model.max_bounces, absorbed, diffuse, esc, lost)
     return absorbed.sum(axis=0), diffuse.sum(axis=0), float(esc.sum()), float(lost.sum())
 
 
-def _reflect(model: _Model, src, band, step: _Step, incident_side, lit_mask, cos_t):
-    """Power absorbed after reflection inside the vehicle, per node, for one source.
+def _reflect(model: _Model, src, band, step: _Step, rep, lit_mask, cos_t):
+    """Power absorbed after reflection inside the vehicle, per replicate and node.
 
-    Returns (absorbed (n,) [W], escaped [W], inert [W]).
+    Parameters
+    ----------
+    rep : (s, m) — replicate estimates of the power incident on each side [W]
+
+    Returns
+    -------
+    (absorbed (m, n) [W], escaped [W], inert [W]); ``absorbed[r]`` is replicate ``r``'s
+    estimate, the estimate itself is the mean over the replicates.
     """
     s = model.sides
+    m = model.m
     s_abs = band["s_abs"]
     s_spec = band["s_spec"]
-    reflected = (1.0 - s_abs) * incident_side
-    diffuse = np.bincount(s.node, weights=reflected * (1.0 - s_spec), minlength=model.n_nodes)
-    absorbed = np.zeros(model.n_nodes)
+    reflected_rep = (1.0 - s_abs)[:, None] * rep
+    pool = _per_replicate(s.node, (1.0 - s_spec)[:, None] * reflected_rep, model.n_nodes)
+    absorbed = np.zeros((m, model.n_nodes))
     escaped = 0.0
     lost = 0.0
     spec_sides = band["spec_sides"]
-    if spec_sides.size and reflected[spec_sides].sum() > 0.0:
+    if spec_sides.size and reflected_rep[spec_sides].sum() > 0.0:
         if src == "solar":
             rays = _sun_mirror(model, band, step, lit_mask, cos_t)
         else:
             rays = _planet_mirror(model, src, band, step)
         a, d, e, q = _run_chains(model, band, *rays)
-        absorbed += a
-        diffuse += d
+        # ray weights are shares of the mean over replicates: m times the sum over one
+        # replicate's rays is that replicate's estimate
+        absorbed += m * a
+        pool += m * d
         escaped += e
         lost += q
     if band["gebhart"] is not None:
         b, b_space, b_inert = band["gebhart"]
-        absorbed += diffuse @ b
-        escaped += float(diffuse @ b_space)
-        lost += float(diffuse @ b_inert)
+        absorbed += pool @ b
+        escaped += float((pool @ b_space).mean())
+        lost += float((pool @ b_inert).mean())
     else:
-        escaped += float(diffuse.sum())
+        escaped += float(pool.sum(axis=1).mean())
     return absorbed, escaped, lost
 
 
 def _sun_mirror(model: _Model, band, step: _Step, lit_mask, cos_t):
-    """Mirror rays of the unshadowed Sun samples of the specular sides, with their power."""
+    """Mirror rays of the unshadowed Sun samples of the specular sides, with their power
+    and replicate."""
     from vfactor.tracing import heat_kernels as hk
 
     s = model.sides
@@ -755,11 +784,13 @@ def _sun_mirror(model: _Model, band, step: _Step, lit_mask, cos_t):
                   * (1.0 - band["s_abs"][spec]) * band["s_spec"][spec])
     weight = np.broadcast_to(per_sample[:, None], sub_mask.shape)[sub_mask]
     exclude = np.broadcast_to(sub_facet[:, None], sub_mask.shape)[sub_mask]
-    return origin[sub_mask], direction[sub_mask], exclude, weight
+    replicate = np.broadcast_to((np.arange(n) // model.k_sun)[None, :], sub_mask.shape)[sub_mask]
+    return origin[sub_mask], direction[sub_mask], exclude, weight, replicate
 
 
 def _planet_mirror(model: _Model, src, band, step: _Step):
-    """Mirror rays of the cached planet rays of the specular sides, with their power."""
+    """Mirror rays of the cached planet rays of the specular sides, with their power and
+    replicate."""
     from vfactor.tracing import heat_kernels as hk
 
     s = model.sides
@@ -775,4 +806,4 @@ def _planet_mirror(model: _Model, src, band, step: _Step):
     weight = base * (step.albedo * step.solar * mu if src == "albedo" else step.olr)
     keep = hit & (weight > 0.0)
     return (band["mirror_origin"][keep], band["mirror"][keep], s.facet[owner[keep]],
-            weight[keep])
+            weight[keep], band["replicate"][keep])

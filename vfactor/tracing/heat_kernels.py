@@ -289,7 +289,7 @@ def _chain(arrays, normals, facet_node, facet_absorptivity, facet_specular, ox, 
 
 @njit(**JIT_PARALLEL)
 def specular_chains(arrays, normals, facet_node, facet_absorptivity, facet_specular,
-                    origin, direction, exclude, weight, chunk, max_bounces,
+                    origin, direction, exclude, weight, replicate, chunk, max_bounces,
                     out_absorbed, out_diffuse, out_escaped, out_inert):
     """Specular reflection chains of a batch of rays, tallied per fixed chunk of rays.
 
@@ -302,23 +302,27 @@ def specular_chains(arrays, normals, facet_node, facet_absorptivity, facet_specu
     origin, direction : (m, 3) float64 — start of each reflected ray [m], unit direction [1]
     exclude : (m,) int64 — facet the ray leaves
     weight : (m,) float64 — power carried [W]
+    replicate : (m,) int64 — replicate the ray belongs to (tally column)
     chunk : int — rays per tally row (fixed, so sums do not depend on the thread count)
     max_bounces : int
-    out_absorbed, out_diffuse : (c, n) float64, written — per chunk and node [W]
+    out_absorbed, out_diffuse : (c, replicates, n) float64, written — per chunk,
+        replicate and node [W]
     out_escaped, out_inert : (c,) float64, written [W]
     """
     m = origin.shape[0]
     for c in prange(out_escaped.shape[0]):
-        for j in range(out_absorbed.shape[1]):
-            out_absorbed[c, j] = 0.0
-            out_diffuse[c, j] = 0.0
+        for r in range(out_absorbed.shape[1]):
+            for j in range(out_absorbed.shape[2]):
+                out_absorbed[c, r, j] = 0.0
+                out_diffuse[c, r, j] = 0.0
         esc = 0.0
         ine = 0.0
         for i in range(c * chunk, min(m, (c + 1) * chunk)):
+            r = replicate[i]
             e, q = _chain(arrays, normals, facet_node, facet_absorptivity, facet_specular,
                           origin[i, 0], origin[i, 1], origin[i, 2], direction[i, 0],
                           direction[i, 1], direction[i, 2], exclude[i], weight[i],
-                          max_bounces, out_absorbed[c], out_diffuse[c])
+                          max_bounces, out_absorbed[c, r], out_diffuse[c, r])
             esc += e
             ine += q
         out_escaped[c] = esc
