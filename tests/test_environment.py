@@ -96,3 +96,10 @@ def test_bad_values_name_key_and_value(table, where, value):
     assert message.startswith("sat.toml: " + where)
     assert value in message
     assert "\n" not in message
+
+
+def test_file_may_be_a_path():
+    from pathlib import Path
+
+    with pytest.raises(ModelError, match=r"^sat.toml: \[environment\] albedo"):
+        environment_from_table({"albedo": -1}, file=Path("sat.toml"))

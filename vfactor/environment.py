@@ -188,7 +188,7 @@ def environment_from_table(table, file=None) -> Environment:
     ----------
     table : dict or None
         The parsed table; None (no table) gives the nominal case.
-    file : str, optional
+    file : str or os.PathLike, optional
         Model file named in error messages.
 
     Returns
@@ -206,7 +206,7 @@ def environment_from_table(table, file=None) -> Environment:
     try:
         return _from_table(table)
     except ModelError as err:
-        raise err.with_file(file) if file else err
+        raise err.with_file(str(file)) if file else err
 
 
 def _from_table(table) -> Environment:
