@@ -9,33 +9,40 @@ from vfactor.tracing.scene import Scene
 
 
 def _walk(tree):
-    """Yield (node, slot, ref) over the tree from the root, each reference once."""
+    """Yield (node, lane, ref) over the tree from the root, each reference once."""
     stack = [0]
     while stack:
         n = stack.pop()
-        for c in range(2):
-            ref = int(tree.nodes_i[n, 12 + c])
+        for c in range(4):
+            ref = int(tree.nodes_i[n, 24 + c])
             yield n, c, ref
             if ref >= 0:
                 stack.append(ref)
+
+
+def _lane_box(tree, n, c):
+    row = tree.nodes[n].astype(np.float64)
+    return np.array([row[4 * q + c] for q in range(6)])
 
 
 def _check_tree(tree, vertices, triangles, max_leaf):
     seen = np.zeros(tree.tri.shape[0], dtype=int)
     visited = {0}
     for n, c, ref in _walk(tree):
-        box = tree.nodes[n, 6 * c:6 * c + 6].astype(np.float64)
+        box = _lane_box(tree, n, c)
         if ref >= 0:
             assert ref > n                      # depth-first numbering
             visited.add(ref)
-            child = tree.nodes[ref, :12].astype(np.float64).reshape(2, 6)
-            for cb in child:
+            for cc in range(4):
+                cb = _lane_box(tree, ref, cc)
                 if cb[0] <= cb[3]:
                     assert (box[:3] <= cb[:3]).all() and (box[3:] >= cb[3:]).all()
         else:
             code = -1 - ref
             first, count = code >> 4, code & 15
             assert count <= max_leaf
+            if count == 0:
+                assert (box[:3] == np.inf).all() and (box[3:] == -np.inf).all()
             seen[first:first + count] += 1
             for r in range(first, first + count):
                 p = tree.tri[r].reshape(3, 3)
@@ -46,7 +53,9 @@ def _check_tree(tree, vertices, triangles, max_leaf):
     # Rows of tri are the original facets given by tri_ids.
     np.testing.assert_array_equal(tree.tri.reshape(-1, 3, 3),
                                   vertices[triangles[tree.tri_ids]])
-    assert tree.depth() <= bvh.STACK_SIZE
+    # A visit pushes at most 3 more entries than it pops.
+    assert 3 * tree.depth() + 1 <= bvh.STACK_SIZE
+    assert tree.nodes.ctypes.data % 64 == 0
 
 
 @pytest.mark.parametrize("max_leaf", [1, 4, 15])

@@ -2,27 +2,28 @@
 
 Layout (what :mod:`vfactor.tracing.traverse` reads)
 ----------------------------------------------------
-A binary tree whose nodes each hold the boxes of BOTH children, so one 64-byte node (one
-cache line) answers the box tests of a traversal step:
+A 4-wide tree: each 128-byte node (two cache lines) holds the boxes of its up to 4
+children in "structure of arrays" order, so one node visit tests 4 boxes with 4-lane
+vector instructions:
 
-``nodes`` : (n, 16) float32, 64-byte aligned
-    ``[0:6]`` box of child 0 (min x, y, z, max x, y, z) [m], ``[6:12]`` box of child 1.
-    Boxes are rounded OUTWARD to float32 (minimum rounded down, maximum up), so a box
-    never shrinks by the rounding and no ray is missed. An empty child has the box
-    (+inf, +inf, +inf, -inf, -inf, -inf).
-``nodes_i`` : (n, 16) int32, the same memory viewed as int32
-    ``[12]``, ``[13]``: child references. ``ref >= 0`` is an inner node (row of
-    ``nodes``); ``ref < 0`` is a leaf, ``-1 - ref = (first << 4) | count`` with the
-    triangle range ``first .. first + count - 1`` of ``tri`` (count 0..15).
+``nodes`` : (n, 32) float32, 64-byte aligned
+    ``[0:4]`` minimum x of children 0..3, ``[4:8]`` minimum y, ``[8:12]`` minimum z,
+    ``[12:16]`` maximum x, ``[16:20]`` maximum y, ``[20:24]`` maximum z [m]. Boxes are
+    rounded OUTWARD to float32 (minimum rounded down, maximum up), so a box never shrinks
+    by the rounding and no ray is missed. An empty child has the box (+inf, -inf).
+``nodes_i`` : (n, 32) int32, the same memory viewed as int32
+    ``[24:28]``: child references. ``ref >= 0`` is an inner node (row of ``nodes``);
+    ``ref < 0`` is a leaf, ``-1 - ref = (first << 4) | count`` with the triangle range
+    ``first .. first + count - 1`` of ``tri`` (count 0..15; -1 is an empty child).
 ``tri`` : (m, 9) float64
     The 3 vertices (A, B, C, each x y z) [m] of each triangle in leaf order.
 ``tri_ids`` : (m,) int64
     Original facet index of each row of ``tri``.
 
-Row 0 is the root. Nodes are numbered depth-first (a child after its parent, the left
-subtree before the right), which keeps a traversal path close in memory and lets
-:func:`refit` work in one backward sweep. Degenerate triangles (zero area to rounding)
-are left out of the tree at build time: they can never be hit.
+Row 0 is the root. Nodes are numbered depth-first (a child after its parent), which keeps
+a traversal path close in memory and lets :func:`refit` work in one backward sweep.
+Degenerate triangles (zero area to rounding) are left out of the tree at build time:
+they can never be hit.
 
 Build
 -----
@@ -34,7 +35,8 @@ SAH-based bounding volume hierarchies", IEEE Symp. Interactive Ray Tracing, sect
 MacDonald & Booth 1990, "Heuristics for ray tracing using space subdivision", The Visual
 Computer 6(3), for the cost model). Below depth 48, or when all centroids fall in one bin,
 the split is at the median centroid of the widest axis, which bounds the depth (<= 48 +
-log2 m) and so the traversal stack.
+log2 m) and so the traversal stack. The binary tree is then collapsed into the 4-wide
+layout (see ``_collapse_kernel``).
 """
 
 from __future__ import annotations
@@ -44,18 +46,17 @@ from numba import njit
 
 from .config import JIT
 
-__all__ = ["BVH", "build", "refit", "MAX_LEAF_LIMIT", "STACK_SIZE"]
+__all__ = ["BVH", "build", "refit", "MAX_LEAF_LIMIT", "STACK_SIZE", "NODE_WIDTH"]
 
 #: Largest leaf size the reference encoding allows.
 MAX_LEAF_LIMIT = 15
 #: Depth below which SAH splits give way to median splits.
 _SAH_MAX_DEPTH = 48
-#: Traversal stack entries needed for any tree this module builds (>= max depth).
-STACK_SIZE = 96
-
-
-def _empty_box():
-    return np.array([np.inf, np.inf, np.inf, -np.inf, -np.inf, -np.inf])
+#: Floats (4 bytes) per 4-wide node: 24 lane bounds, 4 references, 4 unused (128 bytes).
+NODE_WIDTH = 32
+#: Traversal stack entries enough for any tree this module builds: a visit pushes at most
+#: 3 entries more than it pops, over at most 48 + 27 levels.
+STACK_SIZE = 256
 
 
 @njit(**JIT)
@@ -348,10 +349,80 @@ def _build_kernel(tri_min, tri_max, cent, max_leaf, n_bins, trav_cost,
 
 
 @njit(**JIT)
-def _refit_kernel(tri, boxes, refs, n_nodes):
-    """Recompute node boxes bottom-up (children have larger rows than their parent)."""
-    for n in range(n_nodes - 1, -1, -1):
+def _collapse_kernel(boxes2, refs2, boxes4, refs4):
+    """Collapse the binary tree into a 4-wide one; returns the number of 4-wide nodes.
+
+    Each 4-wide node takes the two children of a binary node and, while it has fewer than
+    4, replaces its inner child of largest surface area by that child's two children (the
+    usual greedy collapse, e.g. Wald, Benthin & Boulos 2008, "Getting rid of packets",
+    IEEE Symp. Interactive Ray Tracing, section 3). Numbered depth-first.
+    """
+    st_n = np.empty(512, np.int64)
+    st_p = np.empty(512, np.int64)
+    st_s = np.empty(512, np.int64)
+    cb = np.empty((4, 6))
+    cr = np.empty(4, np.int64)
+    sp = 1
+    st_n[0] = 0
+    st_p[0] = -1
+    st_s[0] = 0
+    count = 0
+    while sp > 0:
+        sp -= 1
+        n = st_n[sp]
+        p = st_p[sp]
+        s = st_s[sp]
+        me = count
+        count += 1
+        if p >= 0:
+            refs4[p, s] = me
         for c in range(2):
+            for q in range(6):
+                cb[c, q] = boxes2[n, 6 * c + q]
+            cr[c] = refs2[n, c]
+        k = 2
+        while k < 4:
+            best = -1
+            best_area = -1.0
+            for c in range(k):
+                if cr[c] >= 0:
+                    a = _area(cb[c, 0], cb[c, 1], cb[c, 2], cb[c, 3], cb[c, 4], cb[c, 5])
+                    if a > best_area:
+                        best_area = a
+                        best = c
+            if best < 0:
+                break
+            m = cr[best]
+            for q in range(6):
+                cb[best, q] = boxes2[m, q]
+                cb[k, q] = boxes2[m, 6 + q]
+            cr[best] = refs2[m, 0]
+            cr[k] = refs2[m, 1]
+            k += 1
+        for c in range(4):
+            if c < k:
+                for q in range(6):
+                    boxes4[me, 4 * q + c] = cb[c, q]
+                refs4[me, c] = cr[c]          # inner references are fixed when visited
+            else:
+                for q in range(3):
+                    boxes4[me, 4 * q + c] = np.inf
+                    boxes4[me, 4 * (q + 3) + c] = -np.inf
+                refs4[me, c] = -1
+        for c in range(k - 1, -1, -1):
+            if cr[c] >= 0:
+                st_n[sp] = cr[c]
+                st_p[sp] = me
+                st_s[sp] = c
+                sp += 1
+    return count
+
+
+@njit(**JIT)
+def _refit_kernel(tri, boxes, refs, n_nodes):
+    """Recompute 4-wide node boxes bottom-up (children have larger rows than parents)."""
+    for n in range(n_nodes - 1, -1, -1):
+        for c in range(4):
             ref = refs[n, c]
             lo0 = np.inf
             lo1 = np.inf
@@ -360,13 +431,13 @@ def _refit_kernel(tri, boxes, refs, n_nodes):
             hi1 = -np.inf
             hi2 = -np.inf
             if ref >= 0:
-                for cc in range(2):
-                    lo0 = min(lo0, boxes[ref, 6 * cc + 0])
-                    lo1 = min(lo1, boxes[ref, 6 * cc + 1])
-                    lo2 = min(lo2, boxes[ref, 6 * cc + 2])
-                    hi0 = max(hi0, boxes[ref, 6 * cc + 3])
-                    hi1 = max(hi1, boxes[ref, 6 * cc + 4])
-                    hi2 = max(hi2, boxes[ref, 6 * cc + 5])
+                for cc in range(4):
+                    lo0 = min(lo0, boxes[ref, 0 + cc])
+                    lo1 = min(lo1, boxes[ref, 4 + cc])
+                    lo2 = min(lo2, boxes[ref, 8 + cc])
+                    hi0 = max(hi0, boxes[ref, 12 + cc])
+                    hi1 = max(hi1, boxes[ref, 16 + cc])
+                    hi2 = max(hi2, boxes[ref, 20 + cc])
             else:
                 code = -1 - ref
                 first = code >> 4
@@ -379,20 +450,20 @@ def _refit_kernel(tri, boxes, refs, n_nodes):
                         hi0 = max(hi0, tri[r, 3 * j + 0])
                         hi1 = max(hi1, tri[r, 3 * j + 1])
                         hi2 = max(hi2, tri[r, 3 * j + 2])
-            boxes[n, 6 * c + 0] = lo0
-            boxes[n, 6 * c + 1] = lo1
-            boxes[n, 6 * c + 2] = lo2
-            boxes[n, 6 * c + 3] = hi0
-            boxes[n, 6 * c + 4] = hi1
-            boxes[n, 6 * c + 5] = hi2
+            boxes[n, 0 + c] = lo0
+            boxes[n, 4 + c] = lo1
+            boxes[n, 8 + c] = lo2
+            boxes[n, 12 + c] = hi0
+            boxes[n, 16 + c] = hi1
+            boxes[n, 20 + c] = hi2
 
 
 def _to_float32_outward(boxes):
-    """float64 boxes (n, 12) -> float32 rounded outward (min down, max up)."""
+    """float64 lane boxes (n, 24) -> float32 rounded outward (minimum down, maximum up)."""
     f = boxes.astype(np.float32)
     back = f.astype(np.float64)
-    lo = np.zeros(12, dtype=bool)
-    lo[[0, 1, 2, 6, 7, 8]] = True
+    lo = np.zeros(boxes.shape[1], dtype=bool)
+    lo[:12] = True
     lo_cols = np.broadcast_to(lo, boxes.shape)
     down = lo_cols & (back > boxes)
     up = ~lo_cols & (back < boxes)
@@ -402,10 +473,10 @@ def _to_float32_outward(boxes):
 
 
 def _aligned_nodes(n):
-    """Zeroed (n, 16) float32 array whose start is 64-byte aligned."""
-    raw = np.zeros(n * 16 + 16, dtype=np.float32)
+    """Zeroed (n, 32) float32 array whose start is 64-byte aligned."""
+    raw = np.zeros(n * NODE_WIDTH + 16, dtype=np.float32)
     off = (-raw.ctypes.data % 64) // 4
-    return raw[off:off + n * 16].reshape(n, 16)
+    return raw[off:off + n * NODE_WIDTH].reshape(n, NODE_WIDTH)
 
 
 @njit(**JIT)
@@ -419,39 +490,44 @@ def _collapse_degenerate(tri, bad):
 
 
 class BVH:
-    """Flat BVH arrays (see the module notes for the layout).
+    """Flat 4-wide BVH arrays (see the module notes for the layout).
 
     Attributes
     ----------
-    nodes : (n, 16) float32
-    nodes_i : (n, 16) int32 (same memory as ``nodes``)
+    nodes : (n, 32) float32
+    nodes_i : (n, 32) int32 (same memory as ``nodes``)
     tri : (m, 9) float64 [m]
     tri_ids : (m,) int64
     n_facets : int
         Number of rows of the ``triangles`` array the tree was built from.
     """
 
-    def __init__(self, nodes, tri, tri_ids, n_facets, boxes64, refs):
+    def __init__(self, nodes, tri, tri_ids, n_facets):
         self.nodes = nodes
         self.nodes_i = nodes.view(np.int32)
         self.tri = tri
         self.tri_ids = tri_ids
         self.n_facets = n_facets
-        self._refs = refs
 
     @property
     def n_nodes(self):
         return self.nodes.shape[0]
 
+    @property
+    def refs(self):
+        """(n, 4) int32 child references (a view)."""
+        return self.nodes_i[:, 24:28]
+
     def depth(self):
-        """Largest number of inner nodes on a root-to-leaf path."""
+        """Largest number of nodes on a root-to-leaf path."""
         best = 0
         stack = [(0, 1)]
+        refs = self.refs
         while stack:
             n, d = stack.pop()
             best = max(best, d)
-            for c in range(2):
-                ref = int(self._refs[n, c])
+            for c in range(4):
+                ref = int(refs[n, c])
                 if ref >= 0:
                     stack.append((ref, d + 1))
         return best
@@ -495,15 +571,17 @@ def build(vertices, triangles, max_leaf=4, n_bins=16, traversal_cost=1.0):
     boxes = np.empty((cap, 12))
     refs = np.empty((cap, 2), dtype=np.int32)
     order = np.empty(m, dtype=np.int64)
-    n_nodes = _build_kernel(tri_min, tri_max, cent, int(max_leaf), int(n_bins),
-                            float(traversal_cost), order, boxes, refs)
-    nodes = _aligned_nodes(n_nodes)
-    nodes[:, :12] = _to_float32_outward(boxes[:n_nodes])
-    nodes_i = nodes.view(np.int32)
-    nodes_i[:, 12:14] = refs[:n_nodes]
+    n2 = _build_kernel(tri_min, tri_max, cent, int(max_leaf), int(n_bins),
+                       float(traversal_cost), order, boxes, refs)
+    boxes4 = np.empty((n2, 24))
+    refs4 = np.empty((n2, 4), dtype=np.int64)
+    n4 = _collapse_kernel(boxes, refs, boxes4, refs4)
+    nodes = _aligned_nodes(n4)
+    nodes[:, :24] = _to_float32_outward(boxes4[:n4])
+    nodes.view(np.int32)[:, 24:28] = refs4[:n4]
     tri = np.ascontiguousarray(tri[order])
     tri_ids = np.ascontiguousarray(ids[order])
-    return BVH(nodes, tri, tri_ids, triangles.shape[0], None, refs[:n_nodes].copy())
+    return BVH(nodes, tri, tri_ids, triangles.shape[0])
 
 
 def refit(bvh, vertices, triangles):
@@ -530,6 +608,6 @@ def refit(bvh, vertices, triangles):
     _collapse_degenerate(tri, bad)
     bvh.tri[...] = tri
     n = bvh.n_nodes
-    boxes = np.empty((n, 12))
-    _refit_kernel(bvh.tri, boxes, bvh._refs, n)
-    bvh.nodes[:, :12] = _to_float32_outward(boxes)
+    boxes = np.empty((n, 24))
+    _refit_kernel(bvh.tri, boxes, np.ascontiguousarray(bvh.refs), n)
+    bvh.nodes[:, :24] = _to_float32_outward(boxes)

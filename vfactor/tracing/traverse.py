@@ -22,19 +22,22 @@ Robustness
 - Only hits with ``0 < t < tmax`` count; ``exclude`` (original facet index) is skipped, so
   a ray leaving a facet never hits it, at any model scale.
 
-Traversal visits the nearer child first and keeps the farther one on a fixed stack of
-:data:`vfactor.tracing.bvh.STACK_SIZE` entries in the function's stack frame, with its
-entry distance so that it is skipped when a closer hit has been found since.
+Traversal of the 4-wide tree tests the 4 child boxes of a node at once (``_box4``: 4-lane
+float64 vector instructions on the float32 bounds), visits the hit children nearest
+first and keeps the others on a fixed stack of :data:`vfactor.tracing.bvh.STACK_SIZE`
+entries in the function's stack frame (no heap, no reference counting), with their entry
+distance so that they are skipped when a closer hit has been found since.
 """
 
 from __future__ import annotations
 
 import numpy as np
+from llvmlite import ir
 from numba import njit, types
 from numba.core import cgutils
 from numba.extending import intrinsic
 
-from .bvh import STACK_SIZE
+from .bvh import NODE_WIDTH, STACK_SIZE
 from .config import JIT
 
 __all__ = ["closest_hit", "any_hit"]
@@ -128,6 +131,84 @@ def _triangle(tri, r, kx, ky, kz, okx, oky, okz, sx, sy, sz):
     return True, tt / det, det
 
 
+@intrinsic
+def _box4(typingctx, nodes, base, nx, ny, nz, oxn, oyn, ozn, oxf, oyf, ozf, ix, iy, iz,
+          tbest):
+    """Slab test of the 4 child boxes of one node, as 4-lane float64 vector code.
+
+    ``nodes`` is the (n, 32) float32 node array, ``base`` the flat index of the node's
+    first float, ``nx, ny, nz`` the offsets of the near-plane rows (0/12, 4/16, 8/20; the
+    far rows are 12 apart on the other side). Returns ``(mask, t0, t1, t2, t3)``: bit j of
+    ``mask`` is set when the ray enters box j at ``t_j <= min(t_exit * (1 + 2 gamma3),
+    tbest)``, with ``t_j`` clamped to >= 0. Maximum/minimum are compare-and-select, the
+    same semantics as the scalar ``max``/``min`` (no NaN can occur, see ``_slab``).
+    """
+    ret = types.Tuple((types.int64, types.float64, types.float64, types.float64,
+                       types.float64))
+    sig = ret(nodes, base, nx, ny, nz, oxn, oyn, ozn, oxf, oyf, ozf, ix, iy, iz, tbest)
+
+    def codegen(context, builder, signature, args):
+        ary = context.make_array(signature.args[0])(context, builder, args[0])
+        data = ary.data
+        f4 = ir.VectorType(ir.FloatType(), 4)
+        d4 = ir.VectorType(ir.DoubleType(), 4)
+        i32 = ir.IntType(32)
+        i64 = ir.IntType(64)
+        base_ = args[1]
+
+        def load(off):
+            p = builder.gep(data, [builder.add(base_, off)])
+            v = builder.load(builder.bitcast(p, f4.as_pointer()), align=4, typ=f4)
+            return builder.fpext(v, d4)
+
+        def splat(x):
+            v = builder.insert_element(ir.Constant(d4, ir.Undefined), x, ir.Constant(i32, 0))
+            return builder.shuffle_vector(v, ir.Constant(d4, ir.Undefined),
+                                          ir.Constant(ir.VectorType(i32, 4), [0, 0, 0, 0]))
+
+        def vmax(a, c):
+            return builder.select(builder.fcmp_ordered(">", a, c), a, c)
+
+        def vmin(a, c):
+            return builder.select(builder.fcmp_ordered("<", a, c), a, c)
+
+        nx_, ny_, nz_ = args[2:5]
+        # far row = the other row of the same axis: near 0 -> far 12, near 12 -> far 0.
+        fx_ = builder.sub(ir.Constant(i64, 12), nx_)
+        fy_ = builder.sub(ir.Constant(i64, 20), ny_)
+        fz_ = builder.sub(ir.Constant(i64, 28), nz_)
+        oxn_, oyn_, ozn_, oxf_, oyf_, ozf_ = [splat(a) for a in args[5:11]]
+        ix_, iy_, iz_ = [splat(a) for a in args[11:14]]
+        tb = splat(args[14])
+        tx = builder.fmul(builder.fsub(load(nx_), oxn_), ix_)
+        ty = builder.fmul(builder.fsub(load(ny_), oyn_), iy_)
+        tz = builder.fmul(builder.fsub(load(nz_), ozn_), iz_)
+        ux = builder.fmul(builder.fsub(load(fx_), oxf_), ix_)
+        uy = builder.fmul(builder.fsub(load(fy_), oyf_), iy_)
+        uz = builder.fmul(builder.fsub(load(fz_), ozf_), iz_)
+        zero = ir.Constant(d4, [0.0] * 4)
+        slack = ir.Constant(d4, [_BOX_SLACK] * 4)
+        tn = vmax(vmax(tx, ty), vmax(tz, zero))
+        tf = vmin(builder.fmul(vmin(vmin(ux, uy), uz), slack), tb)
+        hit = builder.fcmp_ordered("<=", tn, tf)
+        mask = builder.zext(builder.bitcast(hit, ir.IntType(4)), i64)
+        vals = [mask] + [builder.extract_element(tn, ir.Constant(i32, j)) for j in range(4)]
+        return context.make_tuple(builder, signature.return_type, vals)
+
+    return sig, codegen
+
+
+@njit(**JIT, inline="always")
+def _ray_setup(ox, oy, oz, dx, dy, dz):
+    ix, oxn, oxf = _slab(ox, dx)
+    iy, oyn, oyf = _slab(oy, dy)
+    iz, ozn, ozf = _slab(oz, dz)
+    nx = 0 if ix >= 0.0 else 12
+    ny = 4 if iy >= 0.0 else 16
+    nz = 8 if iz >= 0.0 else 20
+    return ix, iy, iz, oxn, oyn, ozn, oxf, oyf, ozf, nx, ny, nz
+
+
 @njit(**JIT)
 def closest_hit(arrays, ox, oy, oz, dx, dy, dz, tmax, exclude):
     """Nearest facet hit by the ray ``o + t d``, ``0 < t < tmax``.
@@ -160,16 +241,7 @@ def closest_hit(arrays, ox, oy, oz, dx, dy, dz, tmax, exclude):
     tri = arrays[2]
     tri_ids = arrays[3]
     kx, ky, kz, okx, oky, okz, sx, sy, sz = _setup(ox, oy, oz, dx, dy, dz)
-    ix, oxn, oxf = _slab(ox, dx)
-    iy, oyn, oyf = _slab(oy, dy)
-    iz, ozn, ozf = _slab(oz, dz)
-    # Offsets of the near and far slab planes within a 6-float box.
-    nx = 0 if ix >= 0.0 else 3
-    ny = 1 if iy >= 0.0 else 4
-    nz = 2 if iz >= 0.0 else 5
-    fx = 3 - nx
-    fy = 5 - ny
-    fz = 7 - nz
+    ix, iy, iz, oxn, oyn, ozn, oxf, oyf, ozf, nx, ny, nz = _ray_setup(ox, oy, oz, dx, dy, dz)
     stack_n = _stack_alloca(STACK_SIZE, np.int32)
     stack_t = _stack_alloca(STACK_SIZE, np.float64)
     best_t = tmax
@@ -179,39 +251,25 @@ def closest_hit(arrays, ox, oy, oz, dx, dy, dz, tmax, exclude):
     ref = np.int32(0)
     while True:
         if ref >= 0:
-            # Inner node: test both child boxes.
-            t0 = max(max((np.float64(nodes[ref, nx]) - oxn) * ix,
-                         (np.float64(nodes[ref, ny]) - oyn) * iy),
-                     max((np.float64(nodes[ref, nz]) - ozn) * iz, 0.0))
-            t1 = min(min((np.float64(nodes[ref, fx]) - oxf) * ix,
-                         (np.float64(nodes[ref, fy]) - oyf) * iy),
-                     (np.float64(nodes[ref, fz]) - ozf) * iz) * _BOX_SLACK
-            s0 = max(max((np.float64(nodes[ref, 6 + nx]) - oxn) * ix,
-                         (np.float64(nodes[ref, 6 + ny]) - oyn) * iy),
-                     max((np.float64(nodes[ref, 6 + nz]) - ozn) * iz, 0.0))
-            s1 = min(min((np.float64(nodes[ref, 6 + fx]) - oxf) * ix,
-                         (np.float64(nodes[ref, 6 + fy]) - oyf) * iy),
-                     (np.float64(nodes[ref, 6 + fz]) - ozf) * iz) * _BOX_SLACK
-            h0 = t0 <= t1 and t0 <= best_t
-            h1 = s0 <= s1 and s0 <= best_t
-            c0 = nodes_i[ref, 12]
-            c1 = nodes_i[ref, 13]
-            if h0 and h1:
-                if s0 < t0:
-                    stack_n[sp] = c0
-                    stack_t[sp] = t0
-                    ref = c1
-                else:
-                    stack_n[sp] = c1
-                    stack_t[sp] = s0
-                    ref = c0
-                sp += 1
-                continue
-            elif h0:
-                ref = c0
-                continue
-            elif h1:
-                ref = c1
+            m, t0, t1, t2, t3 = _box4(nodes, np.int64(ref) * NODE_WIDTH, nx, ny, nz,
+                                      oxn, oyn, ozn, oxf, oyf, ozf, ix, iy, iz, best_t)
+            if m != 0:
+                # Push the hit children sorted so that the nearest is on top, take it.
+                base = sp
+                for j in range(4):
+                    if (m >> j) & 1:
+                        t = t0 if j == 0 else (t1 if j == 1 else (t2 if j == 2 else t3))
+                        c = nodes_i[ref, 24 + j]
+                        q = sp
+                        while q > base and stack_t[q - 1] < t:
+                            stack_t[q] = stack_t[q - 1]
+                            stack_n[q] = stack_n[q - 1]
+                            q -= 1
+                        stack_t[q] = t
+                        stack_n[q] = c
+                        sp += 1
+                sp -= 1
+                ref = stack_n[sp]
                 continue
         else:
             code = -1 - ref
@@ -253,47 +311,18 @@ def any_hit(arrays, ox, oy, oz, dx, dy, dz, tmax, exclude):
     tri = arrays[2]
     tri_ids = arrays[3]
     kx, ky, kz, okx, oky, okz, sx, sy, sz = _setup(ox, oy, oz, dx, dy, dz)
-    ix, oxn, oxf = _slab(ox, dx)
-    iy, oyn, oyf = _slab(oy, dy)
-    iz, ozn, ozf = _slab(oz, dz)
-    nx = 0 if ix >= 0.0 else 3
-    ny = 1 if iy >= 0.0 else 4
-    nz = 2 if iz >= 0.0 else 5
-    fx = 3 - nx
-    fy = 5 - ny
-    fz = 7 - nz
+    ix, iy, iz, oxn, oyn, ozn, oxf, oyf, ozf, nx, ny, nz = _ray_setup(ox, oy, oz, dx, dy, dz)
     stack_n = _stack_alloca(STACK_SIZE, np.int32)
     sp = 0
     ref = np.int32(0)
     while True:
         if ref >= 0:
-            t0 = max(max((np.float64(nodes[ref, nx]) - oxn) * ix,
-                         (np.float64(nodes[ref, ny]) - oyn) * iy),
-                     max((np.float64(nodes[ref, nz]) - ozn) * iz, 0.0))
-            t1 = min(min((np.float64(nodes[ref, fx]) - oxf) * ix,
-                         (np.float64(nodes[ref, fy]) - oyf) * iy),
-                     (np.float64(nodes[ref, fz]) - ozf) * iz) * _BOX_SLACK
-            s0 = max(max((np.float64(nodes[ref, 6 + nx]) - oxn) * ix,
-                         (np.float64(nodes[ref, 6 + ny]) - oyn) * iy),
-                     max((np.float64(nodes[ref, 6 + nz]) - ozn) * iz, 0.0))
-            s1 = min(min((np.float64(nodes[ref, 6 + fx]) - oxf) * ix,
-                         (np.float64(nodes[ref, 6 + fy]) - oyf) * iy),
-                     (np.float64(nodes[ref, 6 + fz]) - ozf) * iz) * _BOX_SLACK
-            h0 = t0 <= t1 and t0 <= tmax
-            h1 = s0 <= s1 and s0 <= tmax
-            c0 = nodes_i[ref, 12]
-            c1 = nodes_i[ref, 13]
-            if h0 and h1:
-                stack_n[sp] = c1
-                sp += 1
-                ref = c0
-                continue
-            elif h0:
-                ref = c0
-                continue
-            elif h1:
-                ref = c1
-                continue
+            m, t0, t1, t2, t3 = _box4(nodes, np.int64(ref) * NODE_WIDTH, nx, ny, nz,
+                                      oxn, oyn, ozn, oxf, oyf, ozf, ix, iy, iz, tmax)
+            for j in range(4):
+                if (m >> j) & 1:
+                    stack_n[sp] = nodes_i[ref, 24 + j]
+                    sp += 1
         else:
             code = -1 - ref
             first = code >> 4
