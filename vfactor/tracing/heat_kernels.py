@@ -27,7 +27,8 @@ References
 ----------
 Ray-sphere intersection in the cancellation-free form ``t = c / (b + sqrt(b^2 - c))``:
 Haines, Guenther, Akenine-Moller (2019), "Precision improvements for ray/sphere
-intersection", Ray Tracing Gems, ch. 7, eq. 7-8 (the ``q`` form of the quadratic).
+intersection", Ray Tracing Gems, ch. 7 (the stable ``q`` form of the quadratic roots;
+section from memory).
 Mirror reflection ``r = d - 2 (d.n) n``: law of specular reflection (common practice).
 """
 
