@@ -348,6 +348,12 @@ def _check_inputs(geometry, scene, trajectory, environment, rays_per_facet, sun_
         if t and not np.all(norm > 0.0):
             raise ValueError(f"compute_heating: trajectory.{name} is a zero vector at step "
                              f"{int(np.flatnonzero(~(norm > 0.0))[0])}")
+    frac = np.asarray(trajectory.sun_fraction, dtype=np.float64)
+    bad = (frac < 0.0) | (frac > 1.0)
+    if bad.any():
+        k = int(np.flatnonzero(bad)[0])
+        raise ValueError(f"compute_heating: trajectory.sun_fraction must be in [0, 1], step {k} "
+                         f"has {frac[k]!r}")
     radius = float(trajectory.planet.radius)
     below = np.asarray(trajectory.planet_distance) <= radius
     if below.any():
