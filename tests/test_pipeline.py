@@ -116,16 +116,16 @@ def test_two_workers_bit_identical(box_converging, tmp_path):
 def test_resume_after_interruption_bit_identical(box_converging, tmp_path, monkeypatch):
     fresh = pipeline.run(box_converging, tmp_path / "fresh.h5")
     out = tmp_path / "resumed.h5"
-    real = radiation.trace_tallies
+    real = radiation.trace_pairs
     calls = {"n": 0}
 
     def flaky(*args, **kwargs):
         calls["n"] += 1
-        if calls["n"] == 5:
+        if calls["n"] == 4:
             raise KeyboardInterrupt  # as if the user pressed Ctrl-C mid-way
         return real(*args, **kwargs)
 
-    monkeypatch.setattr(radiation, "trace_tallies", flaky)
+    monkeypatch.setattr(radiation, "trace_pairs", flaky)
     with pytest.raises(KeyboardInterrupt):
         pipeline.run(box_converging, out, resume=True)
     ckpt = pipeline.checkpoint_path(out)
@@ -134,7 +134,7 @@ def test_resume_after_interruption_bit_identical(box_converging, tmp_path, monke
     with pytest.raises(VfactorError, match="another computation") as err:
         pipeline.run(box_converging, out, resume=True, seed=12)
     assert "\n" not in str(err.value)
-    monkeypatch.setattr(radiation, "trace_tallies", real)
+    monkeypatch.setattr(radiation, "trace_pairs", real)
     resumed = pipeline.run(box_converging, out, resume=True)
     assert resumed.resumed_jobs > 0
     assert not ckpt.exists()  # removed once the results file is complete

@@ -8,9 +8,11 @@ trajectory and the absorbed heat loads; then writes everything to one HDF5 file
 Sharing the ray tracing
 -----------------------
 The view factors are summed from integer tallies of independent *rounds*
-(:func:`vfactor.radiation.trace_tallies`): one round of one node is a pure function of
-(geometry, seed, node, round, rays per round). The pipeline cuts the work into
-(round, block of nodes) jobs and sends them to
+(:func:`vfactor.radiation.trace_pairs`): one round of one node is a pure function of
+(geometry, seed, node, round, rays per round). The pipeline asks
+:func:`vfactor.radiation.plan_rounds` which (node, round) pairs to trace — the same pairs
+:func:`vfactor.radiation.compute_view_factors` traces — cuts them into jobs
+(:func:`vfactor.radiation.trace_pairs`) and sends them to
 
 * this process (``workers=1``),
 * ``workers`` processes on this machine (:class:`concurrent.futures.ProcessPoolExecutor`,
@@ -140,12 +142,18 @@ def _check_arguments(output_path, rays, seed, workers, scheduler):
 _WORKER_STATE: dict = {}
 
 
-def _node_blocks(n_nodes: int, parallel: int) -> list:
-    """Contiguous blocks of node indices; several per worker so that the load balances."""
-    if n_nodes == 0:
+def _pair_chunks(count: int, parallel: int, checkpointed: bool = False) -> list:
+    """Slices cutting ``count`` (node, round) pairs into jobs: one job in this process,
+    four per worker otherwise (so that the load balances); at least eight when a
+    checkpoint is kept, so that an interrupted batch leaves finished jobs behind."""
+    if count == 0:
         return []
-    count = min(n_nodes, max(1, 4 * parallel)) if parallel > 1 else 1
-    return [b for b in np.array_split(np.arange(n_nodes, dtype=np.int64), count) if b.size]
+    pieces = 1 if parallel <= 1 else 4 * parallel
+    if checkpointed:
+        pieces = max(pieces, 8)
+    pieces = min(count, pieces)
+    bounds = np.linspace(0, count, pieces + 1).round().astype(np.int64)
+    return [slice(int(a), int(b)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
 
 
 def _init_worker(geometry, key):
@@ -158,18 +166,18 @@ def _init_worker(geometry, key):
     _WORKER_STATE["scene"] = Scene.build(geometry.vertices, geometry.triangles)
 
 
-def _job_in_worker(nodes, seed, rays_per_round, round_index):
-    from .radiation import trace_tallies
+def _job_in_worker(nodes, rounds, seed, rays_per_round):
+    from .radiation import trace_pairs
 
-    return trace_tallies(_WORKER_STATE["geometry"], _WORKER_STATE["scene"], nodes, seed,
-                         rays_per_round, round_index)
+    return trace_pairs(_WORKER_STATE["geometry"], _WORKER_STATE["scene"], nodes, rounds, seed,
+                       rays_per_round)
 
 
-def _job_on_dask(geometry, key, nodes, seed, rays_per_round, round_index):
+def _job_on_dask(geometry, key, nodes, rounds, seed, rays_per_round):
     """Run one job on a dask worker, building the scene once per worker process."""
     if _WORKER_STATE.get("key") != key:
         _init_worker(geometry, key)
-    return _job_in_worker(nodes, seed, rays_per_round, round_index)
+    return _job_in_worker(nodes, rounds, seed, rays_per_round)
 
 
 class _SerialRunner:
@@ -179,11 +187,11 @@ class _SerialRunner:
         self.geometry, self.scene = geometry, scene
 
     def map(self, jobs, seed, rays_per_round):
-        from .radiation import trace_tallies
+        from .radiation import trace_pairs
 
-        for job in jobs:
-            nodes, r = job
-            yield job, trace_tallies(self.geometry, self.scene, nodes, seed, rays_per_round, r)
+        for nodes, rounds in jobs:
+            yield (nodes, rounds), trace_pairs(self.geometry, self.scene, nodes, rounds, seed,
+                                               rays_per_round)
 
     def close(self):
         pass
@@ -202,8 +210,8 @@ class _ProcessRunner:
     def map(self, jobs, seed, rays_per_round):
         from concurrent.futures import as_completed
 
-        futures = {self._pool.submit(_job_in_worker, nodes, seed, rays_per_round, r): (nodes, r)
-                   for nodes, r in jobs}
+        futures = {self._pool.submit(_job_in_worker, nodes, rounds, seed, rays_per_round):
+                   (nodes, rounds) for nodes, rounds in jobs}
         for fut in as_completed(futures):
             yield futures[fut], fut.result()
 
@@ -231,10 +239,10 @@ class _DaskRunner:
         from distributed import as_completed
 
         futures = {}
-        for nodes, r in jobs:
-            fut = self._client.submit(_job_on_dask, self._geometry, self._key, nodes, seed,
-                                      rays_per_round, r, pure=False)
-            futures[fut] = (nodes, r)
+        for nodes, rounds in jobs:
+            fut = self._client.submit(_job_on_dask, self._geometry, self._key, nodes, rounds,
+                                      seed, rays_per_round, pure=False)
+            futures[fut] = (nodes, rounds)
         for fut in as_completed(list(futures), loop=self._client.loop):
             yield futures[fut], fut.result()
 
@@ -281,9 +289,9 @@ class _Checkpoint:
             self.tallies[(int(r), int(i))] = row.astype(np.int64)
         return len(self.tallies)
 
-    def add(self, round_index, nodes, tallies, force=False):
-        for i, row in zip(nodes, tallies):
-            self.tallies[(int(round_index), int(i))] = np.asarray(row, dtype=np.int64)
+    def add(self, rounds, nodes, tallies, force=False):
+        for r, i, row in zip(rounds, nodes, tallies):
+            self.tallies[(int(r), int(i))] = np.asarray(row, dtype=np.int64)
         if force or time.monotonic() - self._last >= _CHECKPOINT_EVERY_S:
             self.save()
 
@@ -356,61 +364,54 @@ def _view_factors(radiation, model, geometry, scene, *, rays_per_node, seed, wor
         runner = _SerialRunner(geometry, scene)
     try:
         with reporter.stage("view factors", total=n * min_rounds * m, unit="rays") as bar:
-            pairs = [(r, i) for r in range(min_rounds) for i in range(n)]
-            resumed += _run_pairs(runner, pairs, sums, ckpt, seed, m, bar)
-            converged = True
+            # the first rounds, then the rounds radiation.plan_rounds asks for: the same
+            # (node, round) pairs as radiation.compute_view_factors traces
+            pair_node = np.tile(np.arange(n, dtype=np.int64), min_rounds)
+            pair_round = np.repeat(np.arange(min_rounds, dtype=np.int64), n)
+            resumed += _run_pairs(runner, pair_node, pair_round, sums, ckpt, seed, m, bar)
             if target is not None:
                 total = n * min_rounds * m
                 for _ in range(50):
-                    stats = radiation.tally_statistics(sums)
-                    ratio = radiation._row_error_ratio(stats, target, radiation.SIGNIFICANCE)
-                    want = np.ceil(sums.rounds * ratio ** 2 * 1.1).astype(np.int64)
-                    want = np.minimum(np.maximum(want, sums.rounds + 1), max_rounds)
-                    need = (ratio > 1.0) & (sums.rounds < max_rounds)
-                    if not need.any():
+                    pair_node, pair_round = radiation.plan_rounds(sums, target, max_rounds)
+                    if pair_node.size == 0:
                         break
-                    pairs = [(r, int(i)) for i in np.flatnonzero(need)
-                             for r in range(int(sums.rounds[i]), int(want[i]))]
-                    total += len(pairs) * m
+                    total += pair_node.size * m
                     bar.set_total(total)
-                    resumed += _run_pairs(runner, pairs, sums, ckpt, seed, m, bar)
-                stats = radiation.tally_statistics(sums)
-                converged = bool(np.all(radiation._row_error_ratio(
-                    stats, target, radiation.SIGNIFICANCE) <= 1))
+                    resumed += _run_pairs(runner, pair_node, pair_round, sums, ckpt, seed, m,
+                                          bar)
     finally:
         runner.close()
         if ckpt is not None:
             ckpt.save()
+    # converged=None: decided from target_error as compute_view_factors decides it
     vf = radiation.view_factors_from_tallies(geometry, sums, target_error=target,
-                                             converged=converged)
+                                             converged=None)
     return vf, resumed
 
 
-def _run_pairs(runner, pairs, sums, ckpt, seed, m, bar) -> int:
-    """Trace the (round, node) pairs not in the checkpoint; add all of them to ``sums``.
+def _run_pairs(runner, pair_node, pair_round, sums, ckpt, seed, m, bar) -> int:
+    """Trace the (node, round) pairs not in the checkpoint; add all of them to ``sums``.
 
     Returns the number of pairs taken from the checkpoint.
     """
-    by_round: dict = {}
-    from_ckpt = 0
-    for r, i in pairs:
-        if ckpt is not None and (r, i) in ckpt.tallies:
-            sums.add([i], ckpt.tallies[(r, i)][None, :])
-            bar.advance(m)
-            from_ckpt += 1
-        else:
-            by_round.setdefault(r, []).append(i)
+    todo = np.ones(pair_node.size, bool)
+    if ckpt is not None:
+        for p, (i, r) in enumerate(zip(pair_node.tolist(), pair_round.tolist())):
+            row = ckpt.tallies.get((r, i))
+            if row is not None:
+                sums.add_pairs([i], row[None, :])
+                bar.advance(m)
+                todo[p] = False
+    nodes, rounds = pair_node[todo], pair_round[todo]
     parallel = max(1, getattr(runner, "workers", 1) or 4)
-    jobs = []
-    for r, nodes in sorted(by_round.items()):
-        for block in _node_blocks(len(nodes), parallel):
-            jobs.append((np.asarray(nodes, np.int64)[block], r))
-    for (nodes, r), tallies in runner.map(jobs, seed, m):
-        sums.add(nodes, tallies)
+    jobs = [(nodes[sl], rounds[sl])
+            for sl in _pair_chunks(nodes.size, parallel, checkpointed=ckpt is not None)]
+    for (job_nodes, job_rounds), tallies in runner.map(jobs, seed, m):
+        sums.add_pairs(job_nodes, tallies)
         if ckpt is not None:
-            ckpt.add(r, nodes, tallies)
-        bar.advance(len(nodes) * m)
-    return from_ckpt
+            ckpt.add(job_rounds, job_nodes, tallies)
+        bar.advance(len(job_nodes) * m)
+    return int((~todo).sum())
 
 
 # ---------------------------------------------------------------------------------------
