@@ -309,3 +309,25 @@ def test_random_parts_never_crash_check(tmp_path, parts):
         pytest.fail("check_model raised for bad input")
     text = format_check_report(report)
     assert text.splitlines()[-1].startswith(("OK", "FAILED"))
+
+
+# ---------------------------------------------------------------------------------------
+# Optional settings tables are validated by their own readers and reported as lines.
+
+@pytest.mark.parametrize("section, needles", [
+    ('[orbit]\naltitude_km = 500.0\ninclination_deg = 51.6\n', ("[orbit] epoch", "required")),
+    ('[orbit]\naltitude_km = -5.0\ninclination_deg = 51.6\nepoch = "2027-01-01T00:00:00Z"\n',
+     ("[orbit] altitude_km", "-5")),
+    ('[orbit]\naltitude_km = 500.0\ninclination_deg = 51.6\nepoch = "2027-01-01T00:00:00Z"\n'
+     '[attitude]\nmode = "tumble"\n', ("[attitude] mode", "tumble")),
+    ('[environment]\nalbedo = 3.0\n', ("[environment] albedo", "3")),
+])
+def test_bad_settings_tables_give_one_line(write_model, section, needles):
+    report = check_model(write_model(BOX + section))
+    only_error(report, *needles)
+
+
+def test_attitude_without_orbit_is_a_warning(write_model):
+    report = check_model(write_model(BOX + '[attitude]\nmode = "nadir"\n'))
+    assert report.ok
+    assert any("[attitude]" in p.line() for p in report.warnings)

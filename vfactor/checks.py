@@ -48,7 +48,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from vfactor.errors import Problem
+from vfactor.errors import ModelError, Problem
 from vfactor.geometry import Geometry, build_geometry
 from vfactor.model import Model, load_model
 from vfactor.shapes import CURVED_SHAPES, exact_area, mesh_is_watertight, mesh_winding_consistent
@@ -136,10 +136,37 @@ def check_model(path) -> CheckReport:
     report = CheckReport(path=file, model=model, geometry=None, problems=problems)
     if model is None:
         return report
+    _check_settings(model, report)
     geometry = build_geometry(model, problems=problems)
     report.geometry = geometry
     check_geometry(model, geometry, report)
     return report
+
+
+def _check_settings(model: Model, report: CheckReport) -> None:
+    """Validate the optional ``[orbit]``, ``[attitude]`` and ``[environment]`` tables.
+
+    Each table is read by the module that owns it; the first problem of each table becomes
+    one error line (the owning reader stops at the first bad key).
+    """
+    from vfactor.attitude import attitude_from_table
+    from vfactor.environment import environment_from_table
+    from vfactor.orbit import orbit_from_table
+
+    file = report.path
+    readers = (("[orbit]", model.orbit_table, orbit_from_table),
+               ("[attitude]", model.attitude_table, attitude_from_table),
+               ("[environment]", model.environment_table, environment_from_table))
+    for section, table, reader in readers:
+        if table is None:
+            continue
+        try:
+            reader(table, file=file)
+        except ModelError as err:
+            report.problems.append(Problem("error", file, err.where or section, err.message))
+    if model.attitude_table is not None and model.orbit_table is None:
+        report.problems.append(Problem("warning", file, "[attitude]",
+                                       "has no effect without an [orbit] section"))
 
 
 def check_geometry(model: Model, geometry: Geometry, report: CheckReport) -> None:
