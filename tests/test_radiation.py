@@ -557,6 +557,34 @@ def test_trace_tallies_any_round_order_and_thread_count_give_identical_bits():
     np.testing.assert_array_equal(vf1.matrix, vf2.matrix)
     # different rounds are different replicates
     assert not np.array_equal(one[0], one[1])
+    # reflection tracing: same bits on 1 and 2 threads
+    gg = _open_box_geometry([0.3, 0.5, 0.7, 0.9, 0.4], specular=[0.5, 0, 0, 0.2, 0])
+    scg = _scene(gg)
+    try:
+        numba.set_num_threads(1)
+        b1 = radiation.gebhart_tallies(gg, scg, rays_per_node=4000, seed=9).counts
+        numba.set_num_threads(min(2, numba.config.NUMBA_NUM_THREADS))
+        b2 = radiation.gebhart_tallies(gg, scg, rays_per_node=4000, seed=9).counts
+    finally:
+        numba.set_num_threads(old)
+    np.testing.assert_array_equal(b1, b2)
+
+
+def test_inert_sides_take_the_rays_that_meet_them():
+    # The upper plate faces away (its front up, back inert and toward the lower plate):
+    # the lower plate's rays that meet it are lost on an inert side, F_inert = F_parallel
+    # ([I&D] Table 13.2), and the upper plate sees only space.
+    g = make_geometry([
+        dict(mesh=rectangle([0, 0, 0], [1, 0, 0], [0, 1, 0], 2, 2), front=("lower", "black")),
+        dict(mesh=rectangle([0, 0, 1], [1, 0, 0], [0, 1, 0], 2, 2), front=("upper", "black")),
+    ])
+    vf = radiation.compute_view_factors(g, _scene(g), rays_per_node=40_000, seed=17)
+    assert vf.raw_matrix[0, 1] == 0 and vf.raw_space[1] == 1.0
+    sig_inert = np.sqrt(max(vf.raw_inert[0] * (1 - vf.raw_inert[0]), 1e-12) / vf.rays[0])
+    # binomial bound (conservative) for the inert column, which has no stderr field
+    _within(vf.raw_inert[0], f_parallel_rectangles(1, 1, 1), sig_inert)
+    np.testing.assert_allclose(vf.raw_inert[0] + vf.raw_space[0], 1.0, atol=4e-16)
+    assert vf.inert[0] > 0.19
 
 
 def test_target_error_adds_rounds_until_significant_entries_meet_it():
