@@ -622,6 +622,16 @@ def _kernel_inputs(geometry, scene) -> _Kernels:
         raise ValueError("radiation: the geometry has no nodes")
     if scene.n_facets != f:
         raise ValueError(f"radiation: scene has {scene.n_facets} facets, geometry {f}")
+    live = np.zeros(n, bool)
+    for side in (geometry.front_node, geometry.back_node):
+        ok = (np.asarray(side) >= 0) & (np.asarray(geometry.areas) > 0)
+        live[np.asarray(side)[ok]] = True
+    if not live.all():
+        from .errors import GeometryError
+
+        name = geometry.nodes.names[int(np.flatnonzero(~live)[0])]
+        raise GeometryError(f"node {name!r} has no facet side with positive area, so it "
+                            f"cannot emit rays", where=f"node {name!r}")
     ptr, facet, sign, cum, side_id = emitter_table(geometry.front_node, geometry.back_node,
                                                     geometry.areas, n)
     geo = (np.ascontiguousarray(geometry.vertices, np.float64),
@@ -838,10 +848,12 @@ def compute_view_factors(geometry, scene, *, rays_per_node, seed, target_error=N
     Returns
     -------
     ViewFactors
-        ``facet_matrix`` (when asked): ``scipy.sparse.csr_matrix`` of shape ``(2 f, n + 2)``;
-        row ``f`` is the front side of facet ``f``, row ``f + F`` its back side (``F`` the
-        facet count); columns are the nodes, then space and inert; entry = share of the
-        side's rays whose first hit is that column. Rows of inert sides are empty.
+        ``facet_matrix`` (when asked): ``scipy.sparse.csr_matrix`` of shape ``(2 F, n + 2)``
+        (``F`` facets): row ``k`` is the front side of facet ``k``, row ``F + k`` its back
+        side; columns are the nodes, then space and inert; entry = share of the side's rays
+        (from the same rays as the node factors) whose first hit is that column. Rows of
+        inert sides are empty. Facet-side factors rest on few rays each (the node's rays
+        spread by area), so their relative error is larger than the node factors'.
 
     Notes
     -----
@@ -1088,7 +1100,8 @@ def compute_exchange(geometry, scene, view_factors: ViewFactors, *, rays_per_nod
     ----------
     geometry : vfactor.geometry.Geometry
     scene : vfactor.tracing.scene.Scene
-    view_factors : ViewFactors — from :func:`compute_view_factors`
+    view_factors : ViewFactors — from :func:`compute_view_factors` (unused, may be None,
+        when reflection tracing is chosen)
     rays_per_node, seed : int — for reflection tracing
     band : {"ir", "solar"}
     reporter : vfactor.progress.Reporter or None
