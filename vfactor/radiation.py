@@ -358,7 +358,8 @@ def smooth_view_factors(raw_matrix, raw_space, raw_inert, variance, variance_spa
     ``a = w_ij / A_i^2``, ``b = w_ji / A_j^2``, ``g_hat = (w_ij F_ij / A_i + w_ji F_ji /
     A_j) / (a + b)``, ``h = 1 / (2 (a + b))`` (``w = 1/var``); the diagonal and the space
     and inert entries follow likewise; the row constraints become one symmetric positive
-    definite ``n x n`` system for the multipliers ``mu``. Non-negativity is kept by a
+    definite, sparse ``n x n`` system for the multipliers ``mu`` (one off-diagonal entry
+    per coupled pair). Non-negativity is kept by a
     primal active set: entries that come out negative are fixed at zero and the system is
     solved again; fixed entries whose unconstrained value turns positive are released.
     Entries that are zero in both directions (never hit) are structural zeros and stay
@@ -384,86 +385,101 @@ def smooth_view_factors(raw_matrix, raw_space, raw_inert, variance, variance_spa
     if np.any(A <= 0):
         raise ValueError(f"smooth_view_factors: node areas must be > 0, got min {float(A.min())!r}")
 
-    # Free variables: entries hit in at least one direction.
-    pair_free0 = (F > 0) | (F.T > 0)
-    diag_free0 = np.diag(F) > 0
+    # Unknowns: one g = A_i F_ij = A_j F_ji per pair i < j hit in at least one direction
+    # (others are structural zeros), the diagonal, space and inert entries of each row.
+    iu, ju = np.nonzero(np.triu((F > 0) | (F.T > 0), k=1))
+    fij, fji = F[iu, ju], F[ju, iu]
+    vij, vji = V[iu, ju], V[ju, iu]
+    if np.any((vij <= 0) & (fij > 0)) or np.any((vji <= 0) & (fji > 0)) or \
+            np.any((vij <= 0) & (vji <= 0)):
+        raise ValueError("smooth_view_factors: variance must be > 0 where an entry or its "
+                         "reciprocal is hit")
+    fd, vd = np.diag(F).copy(), np.diag(V).copy()
+    diag_free0 = fd > 0
     s_free0 = s_hat > 0
     l_free0 = l_hat > 0
-    for name, v, free in (("variance", V, pair_free0), ("variance_space", vs, s_free0),
+    for name, v, free in (("variance", vd, diag_free0), ("variance_space", vs, s_free0),
                           ("variance_inert", vl, l_free0)):
         if np.any(v[free] <= 0):
             raise ValueError(f"smooth_view_factors: {name} must be > 0 where an entry is hit")
-
-    with np.errstate(divide="ignore", invalid="ignore"):
-        W = np.where(V > 0, 1.0 / V, 0.0)
-        a = W / (A[:, None] ** 2)
-        ab = a + a.T
-        c = W * F / A[:, None]
-        cc = c + c.T
-        g_hat = np.where(ab > 0, cc / ab, 0.0)
-        h = np.where(ab > 0, 0.5 / ab, 0.0)
-    np.fill_diagonal(g_hat, 0.0)
-    np.fill_diagonal(h, 0.0)
-    gd_hat = A * np.diag(F)
-    hd = 0.5 * A * A * np.diag(V)
+    with np.errstate(divide="ignore"):
+        wij = np.where(vij > 0, 1.0 / vij, 0.0)
+        wji = np.where(vji > 0, 1.0 / vji, 0.0)
+    a = wij / A[iu] ** 2
+    b = wji / A[ju] ** 2
+    g_hat = (wij * fij / A[iu] + wji * fji / A[ju]) / (a + b)
+    h = 0.5 / (a + b)
+    gd_hat = A * fd
+    hd = 0.5 * A * A * vd
     hs = 0.5 * A * A * vs
     hl = 0.5 * A * A * vl
     As_hat = A * s_hat
     Al_hat = A * l_hat
 
-    off = ~np.eye(n, dtype=bool)
-    pair_free = pair_free0 & off
+    pair_free = np.ones(iu.size, bool)
     diag_free = diag_free0.copy()
     s_free = s_free0.copy()
     l_free = l_free0.copy()
     iterations = 0
     for iterations in range(1, 4 * n + 20):
-        Hf = np.where(pair_free, h, 0.0)
-        diag = Hf.sum(axis=1) + hd * diag_free + hs * s_free + hl * l_free
-        M = Hf + np.diag(diag)
-        r = (np.where(pair_free, g_hat, 0.0).sum(axis=1) + gd_hat * diag_free
-             + As_hat * s_free + Al_hat * l_free - A)
-        empty = diag <= 0
-        if np.any(empty):                  # row with nothing left to adjust
-            M[empty, :] = 0.0
-            M[:, empty] = 0.0
-            M[empty, empty] = 1.0
-            r = np.where(empty, 0.0, r)
-        mu = np.linalg.solve(M, r)
-        G = g_hat - h * (mu[:, None] + mu[None, :])
+        mu = _multipliers(n, iu, ju, np.where(pair_free, h, 0.0),
+                          np.where(pair_free, g_hat, 0.0),
+                          hd * diag_free + hs * s_free + hl * l_free,
+                          gd_hat * diag_free + As_hat * s_free + Al_hat * l_free - A)
+        G = g_hat - h * (mu[iu] + mu[ju])
         gd = gd_hat - hd * mu
         As = As_hat - hs * mu
         Al = Al_hat - hl * mu
-        neg_pair = pair_free & (G < 0)
-        neg_d = diag_free & (gd < 0)
-        neg_s = s_free & (As < 0)
-        neg_l = l_free & (Al < 0)
-        if neg_pair.any() or neg_d.any() or neg_s.any() or neg_l.any():
-            pair_free &= ~neg_pair
-            diag_free &= ~neg_d
-            s_free &= ~neg_s
-            l_free &= ~neg_l
+        neg = [pair_free & (G < 0), diag_free & (gd < 0), s_free & (As < 0),
+               l_free & (Al < 0)]
+        if any(x.any() for x in neg):
+            pair_free &= ~neg[0]
+            diag_free &= ~neg[1]
+            s_free &= ~neg[2]
+            l_free &= ~neg[3]
             continue
         # Release fixed entries whose unconstrained value at these multipliers is positive.
-        rel_pair = pair_free0 & off & ~pair_free & (G > 0)
-        rel_d = diag_free0 & ~diag_free & (gd > 0)
-        rel_s = s_free0 & ~s_free & (As > 0)
-        rel_l = l_free0 & ~l_free & (Al > 0)
-        if rel_pair.any() or rel_d.any() or rel_s.any() or rel_l.any():
-            pair_free |= rel_pair
-            diag_free |= rel_d
-            s_free |= rel_s
-            l_free |= rel_l
+        rel = [~pair_free & (G > 0), diag_free0 & ~diag_free & (gd > 0),
+               s_free0 & ~s_free & (As > 0), l_free0 & ~l_free & (Al > 0)]
+        if any(x.any() for x in rel):
+            pair_free |= rel[0]
+            diag_free |= rel[1]
+            s_free |= rel[2]
+            l_free |= rel[3]
             continue
         break
     G = np.where(pair_free, G, 0.0)
-    G = 0.5 * (G + G.T)
-    gd = np.where(diag_free, gd, 0.0)
-    matrix = G / A[:, None]
-    matrix[np.diag_indices(n)] = gd / A
+    matrix = np.zeros((n, n))
+    matrix[iu, ju] = G / A[iu]
+    matrix[ju, iu] = G / A[ju]
+    matrix[np.diag_indices(n)] = np.where(diag_free, gd, 0.0) / A
     space = np.where(s_free, As, 0.0) / A
     inert = np.where(l_free, Al, 0.0) / A
     return SmoothedViewFactors(matrix=matrix, space=space, inert=inert, iterations=iterations)
+
+
+def _multipliers(n, iu, ju, h, g_hat, d, r0):
+    """Solve the row constraints for the Lagrange multipliers (sparse SPD system).
+
+    ``M = sum_pairs h (e_i + e_j)(e_i + e_j)^T + diag(d)``, right-hand side
+    ``r_i = sum_{pairs at i} g_hat + r0_i``. Rows with nothing left to adjust get mu = 0.
+    """
+    import scipy.sparse as sp
+    from scipy.sparse.linalg import spsolve
+
+    diag = d + np.bincount(iu, h, minlength=n) + np.bincount(ju, h, minlength=n)
+    r = r0 + np.bincount(iu, g_hat, minlength=n) + np.bincount(ju, g_hat, minlength=n)
+    empty = diag <= 0
+    diag = np.where(empty, 1.0, diag)
+    r = np.where(empty, 0.0, r)
+    keep = (h > 0) & ~empty[iu] & ~empty[ju]
+    rows = np.concatenate([iu[keep], ju[keep], np.arange(n)])
+    cols = np.concatenate([ju[keep], iu[keep], np.arange(n)])
+    vals = np.concatenate([h[keep], h[keep], diag])
+    M = sp.csc_matrix((vals, (rows, cols)), shape=(n, n))
+    if n <= 64:
+        return np.linalg.solve(M.toarray(), r)
+    return np.asarray(spsolve(M, r)).reshape(n)
 
 
 # --------------------------------------------------------------------------------------
