@@ -439,6 +439,14 @@ def compute_heating(geometry, scene, trajectory, environment, *, view_factors=No
     ------
     TypeError, ValueError
         Inputs of the wrong type, shape or value (the message names the argument).
+
+    Notes
+    -----
+    Cost: once, ``rays_per_facet`` closest-hit rays per facet side; per step,
+    ``sun_samples`` occlusion rays per sunlit side, one ray-sphere test per cached escaping
+    ray, and the mirror chains of specular sides. Memory of the cache: 4 bytes per ray
+    (first hit) plus 48 bytes per escaping ray (origin and direction in float64), about
+    10 kB per facet side at 256 rays. See the module notes for the physics and sources.
     """
     from vfactor.progress import NullReporter
 
