@@ -213,8 +213,9 @@ def catalog(seeds, ray_counts):
         print(f"{N:>10d} {rms:>16.3e} {rows[-1][2]:>15.3e} {tv / seeds:>9.3f} {prms:>17.3e} "
               f"{tp / seeds:>9.3f}")
     r = np.array(rows)
-    print(f"fitted slope of log(rms error) vs log(rays): vfactor {fit_slope(r[:, 0], r[:, 1]):.3f}, "
-          f"plain MC (Embree) {fit_slope(r[:, 0], r[:, 4]):.3f} (expected -0.5)")
+    print(f"fitted slope of log(rms error) vs log(rays): vfactor "
+          f"{fit_slope(r[:, 0], r[:, 1]):.3f}, plain MC (Embree) "
+          f"{fit_slope(r[:, 0], r[:, 4]):.3f} (expected -0.5)")
     print(f"fitted slope of log(reported sigma) vs log(rays): vfactor "
           f"{fit_slope(r[:, 0], r[:, 2]):.3f}")
 

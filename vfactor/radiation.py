@@ -24,7 +24,6 @@ Statistical errors come from the spread between rounds (see :func:`tally_statist
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 from typing import NamedTuple
 
