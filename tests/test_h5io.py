@@ -149,3 +149,13 @@ def test_bad_results_files(tmp_path, kind):
         h5io.read_results(path)
     msg = str(err.value)
     assert "\n" not in msg and str(path) in msg
+
+
+def test_written_file_has_ordinary_permissions(tmp_path):
+    import os
+    import stat
+
+    path = h5io.write_results(tmp_path / "p.h5", **sample_results(with_orbit=False))
+    mask = os.umask(0o022)
+    os.umask(mask)
+    assert stat.S_IMODE(path.stat().st_mode) == 0o666 & ~mask

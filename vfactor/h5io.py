@@ -273,9 +273,11 @@ def _write_heating(root, heat: Heating, time):
         if value is not None:
             _put(g, f"inert_{src}", value, "W",
                  f"reflected {names[src]} power that ended on inert sides, per step")
-    for key in ("rays_per_facet", "sun_samples", "seed"):
+    for key in ("rays_per_facet", "sun_samples"):
         if hasattr(heat, key):
             g.attrs[key] = int(getattr(heat, key))
+    if hasattr(heat, "seed"):
+        g.attrs["seed"] = np.uint64(heat.seed)  # seeds span [0, 2**64)
     f = g.create_group("facet")
     for src in _SOURCES:
         _put(f, src, getattr(heat, f"facet_{src}"), "W m-2",
@@ -377,6 +379,7 @@ def write_results(path, *, model, geometry, view_factors=None, exchange=None,
         _write_all(tmp, model=model, geometry=geometry, view_factors=view_factors,
                    exchange=exchange, trajectory=trajectory, heating=heating,
                    provenance=provenance)
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; results are ordinary files
         os.replace(tmp, path)
     except BaseException:
         try:
@@ -385,6 +388,13 @@ def write_results(path, *, model, geometry, view_factors=None, exchange=None,
             pass
         raise
     return path
+
+
+def _umask() -> int:
+    """The process umask (read by setting and restoring it)."""
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
 
 
 # ---------------------------------------------------------------------------------------

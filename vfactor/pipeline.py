@@ -156,10 +156,18 @@ def _pair_chunks(count: int, parallel: int, checkpointed: bool = False) -> list:
     return [slice(int(a), int(b)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
 
 
-def _init_worker(geometry, key):
-    """Process-pool initializer: keep the geometry and build its scene once per process."""
+def _init_worker(geometry, key, threads=None):
+    """Process-pool initializer: keep the geometry and build its scene once per process.
+
+    ``threads``: numba threads of this process (the machine's cores shared among the
+    workers, so that N workers do not each start one thread per core).
+    """
     from .tracing.scene import Scene
 
+    if threads is not None:
+        import numba
+
+        numba.set_num_threads(max(1, min(int(threads), numba.config.NUMBA_NUM_THREADS)))
     _WORKER_STATE.clear()
     _WORKER_STATE["key"] = key
     _WORKER_STATE["geometry"] = geometry
@@ -205,7 +213,9 @@ class _ProcessRunner:
         self.workers = workers
         self._pool = ProcessPoolExecutor(max_workers=workers,
                                          mp_context=multiprocessing.get_context("spawn"),
-                                         initializer=_init_worker, initargs=(geometry, key))
+                                         initializer=_init_worker,
+                                         initargs=(geometry, key,
+                                                   max(1, (os.cpu_count() or 1) // workers)))
 
     def map(self, jobs, seed, rays_per_round):
         from concurrent.futures import as_completed
