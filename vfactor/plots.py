@@ -138,7 +138,10 @@ def _paint(fig, axes_slots, geometry, values, cmap, norm, title, label, views):
 
     tri = geometry.vertices[geometry.triangles]
     lo, hi = geometry.vertices.min(axis=0), geometry.vertices.max(axis=0)
-    centre, half = 0.5 * (lo + hi), 0.5 * float((hi - lo).max())
+    # axes half-size = radius of the sphere about the box centre holding every vertex: the
+    # model then stays inside the drawn area from any viewpoint at the zoom used below
+    centre = 0.5 * (lo + hi)
+    half = max(float(np.linalg.norm(geometry.vertices - centre, axis=1).max()), 1e-9)
     # light shading: darken facets that face away from a fixed light in the view
     mappable = None
     axes = []
@@ -156,16 +159,17 @@ def _paint(fig, axes_slots, geometry, values, cmap, norm, title, label, views):
         ax.add_collection3d(poly)
         for setter, c in zip((ax.set_xlim, ax.set_ylim, ax.set_zlim), centre):
             setter(c - half, c + half)
-        ax.set_box_aspect((1, 1, 1), zoom=1.4)
+        ax.set_box_aspect((1, 1, 1), zoom=1.5)
         ax.view_init(elev=elev, azim=azim)
         ax.set_title(name, fontsize=9)
         ax.set_axis_off()
-        # body-axis triad at the corner nearest the viewer's lower left, 20 % of the size
-        origin = centre - 0.9 * half
-        if elev < 0:  # seen from below: put the triad at the far upper corner instead
-            origin = centre + np.array([-np.sign(np.cos(np.radians(azim))),
-                                        -np.sign(np.sin(np.radians(azim))), 0.9]) * 0.9 * half
-        length = 0.35 * half
+        # body-axis triad in the lower left of the picture: screen right and up vectors of
+        # a matplotlib camera at (elev, azim)
+        el, az = np.radians(elev), np.radians(azim)
+        right = np.array([-np.sin(az), np.cos(az), 0.0])
+        up = np.array([-np.sin(el) * np.cos(az), -np.sin(el) * np.sin(az), np.cos(el)])
+        origin = centre - 0.8 * half * right - 0.7 * half * up
+        length = 0.22 * half
         for k, (axis_name, colour) in enumerate((("x", "#c0392b"), ("y", "#27ae60"),
                                                  ("z", "#2e86c1"))):
             d = np.zeros(3)
