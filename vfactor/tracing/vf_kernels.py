@@ -68,16 +68,19 @@ PURPOSE_VF = 1
 PURPOSE_GEBHART = 3
 PURPOSE_BOUNCE = 5
 
-#: Reflections after which a ray is cut and counted as lost (inert column). A ray that
-#: survives this many reflections carries less than (1 - eps_min)**MAX_BOUNCES of its energy.
+#: Reflections after which a ray is cut and counted as lost (inert column). The chance of
+#: surviving this many reflections is at most (1 - a_min)**MAX_BOUNCES, a_min the smallest
+#: absorptivity met (only nearly lossless mirrors get near it).
 MAX_BOUNCES = 4096
 #: Largest round index (the counter layout of reflection tracing holds 16 bits of round).
 MAX_ROUNDS = 1 << 16
 #: Largest number of rays per node in one round (32 bits of ray index).
 MAX_RAYS_PER_ROUND = 1 << 32
 #: Rays per parallel work item; within an item the rays are traced in increasing order of
-#: their side coordinate u0, so that consecutive rays start close together (about 3x faster
-#: traversal than rays in sequence order, which jump across the node).
+#: their side coordinate u0, so that consecutive rays start close together (rays in
+#: sequence order jump across the node; measured on the demo model, shared 2-core machine:
+#: 2.8 -> 3.5 M rays/s for the fused kernel; the tracer's batch query ran 3x slower on
+#: shuffled rays than on facet-ordered ones).
 CHUNK = 4096
 
 _STRIDE = np.uint64(STREAM_STRIDE)
