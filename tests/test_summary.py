@@ -64,3 +64,18 @@ def test_couplings_only(tmp_path):
     assert s["orbit"] is None and s["heat_loads"] is None
     assert "Orbit" not in summary.format_summary(r)
     assert np.isfinite(s["accuracy"]["largest_relative_stderr_significant"])
+
+
+def test_heat_load_error_is_reported(tmp_path):
+    import dataclasses
+
+    kw = sample_results()
+    err = np.zeros_like(kw["heating"].node_solar)
+    err[3, 1] = 0.75  # W, made up for the test
+    kw["heating"] = dataclasses.replace(kw["heating"], node_solar_stderr=err,
+                                        node_albedo_stderr=err / 2,
+                                        node_planet_ir_stderr=err / 3)
+    r = h5io.read_results(h5io.write_results(tmp_path / "e.h5", **kw))
+    w = summary.summarize(r)["heat_loads"]["largest_stderr"]
+    assert w == {"stderr_W": 0.75, "node": "top", "source": "solar", "step": 3}
+    assert "0.75 W (top, solar, step 3)" in summary.format_summary(r)

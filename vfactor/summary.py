@@ -187,7 +187,15 @@ def summarize(results: Results, top: int = 15) -> dict:
                             "min_W": float(ext.minimum[k, i]),
                             "max_W": float(ext.maximum[k, i])}
             rows.append(row)
-        loads = {"case": heat.case, "albedo": float(heat.albedo),
+        worst = None
+        for src in _SOURCES:
+            err = getattr(heat, f"node_{src}_stderr", None)
+            if err is not None and np.size(err):
+                k, i = np.unravel_index(int(np.argmax(err)), np.shape(err))
+                if worst is None or err[k, i] > worst["stderr_W"]:
+                    worst = {"stderr_W": float(err[k, i]), "node": nodes.names[i],
+                             "source": src, "step": int(k)}
+        loads = {"largest_stderr": worst, "case": heat.case, "albedo": float(heat.albedo),
                  "planet_ir_W_m2": float(heat.planet_ir),
                  "solar_constant_W_m2": [float(heat.solar_constant.min()),
                                          float(heat.solar_constant.max())],
@@ -345,6 +353,11 @@ def format_summary(results: Results, top: int = 15) -> str:
                 for src in _SOURCES + ("total",)])
         lines += _table(header, rows)
         lines.append("  avg = time average over the steps; reflections inside the vehicle included")
+        w = h.get("largest_stderr")
+        if w is not None:
+            lines.append(f"  largest one-sigma Monte Carlo error of a directly absorbed load: "
+                         f"{_g(w['stderr_W'])} W ({w['node']}, {_SOURCE_LABEL[w['source']]}, "
+                         f"step {w['step']})")
 
     lines += ["", "Cautions"]
     for c in CAUTIONS:
