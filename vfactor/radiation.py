@@ -755,21 +755,28 @@ def trace_pairs(geometry, scene, node_indices, round_indices, seed, rays_per_nod
     return _trace_pairs(scene, kin, nodes, rounds, int(seed), int(rays_per_node), None, None)
 
 
-def _trace_pairs(scene, kin, nodes, rounds, seed, m, bar, facet_acc):
+def _trace_pairs(scene, kin, nodes, rounds, seed, m, bar, facet_acc, sums=None):
+    """Trace (node, round) pairs batch by batch; return their (k, n + 2) tallies, or, with
+    ``sums``, add each batch to it as it comes (memory bounded by one batch)."""
     from .tracing.vf_kernels import vf_pairs
 
-    out = np.zeros((nodes.size, kin.n_nodes + 2), np.int64)
+    out = None if sums is not None else np.zeros((nodes.size, kin.n_nodes + 2), np.int64)
     for sl in _pair_batches(nodes.size, m, kin.n_nodes):
         k = sl.stop - sl.start
+        part = np.zeros((k, kin.n_nodes + 2), np.int64)
         for j_lo, j_hi in _j_ranges(m, k):
             counts, ray_side, ray_col = vf_pairs(scene.arrays, kin.emit, kin.geo, nodes[sl],
                                                  rounds[sl], seed, m, j_lo, j_hi,
                                                  record=facet_acc is not None)
-            out[sl] += counts
+            part += counts
             if facet_acc is not None:
                 facet_acc.add(kin.side_id[ray_side], ray_col)
             if bar is not None:
                 bar.advance(k * (j_hi - j_lo))
+        if sums is not None:
+            sums.add_pairs(nodes[sl], part)
+        else:
+            out[sl] = part
     return out
 
 
@@ -912,8 +919,7 @@ def compute_view_factors(geometry, scene, *, rays_per_node, seed, target_error=N
         done = n * MIN_ROUNDS * m
         pair_node = np.tile(np.arange(n, dtype=np.int64), MIN_ROUNDS)
         pair_round = np.repeat(np.arange(MIN_ROUNDS, dtype=np.int64), n)
-        sums.add_pairs(pair_node, _trace_pairs(scene, kin, pair_node, pair_round, seed, m,
-                                               bar, acc))
+        _trace_pairs(scene, kin, pair_node, pair_round, seed, m, bar, acc, sums)
         converged = True
         if target_error is not None:
             for _ in range(50):
@@ -923,8 +929,7 @@ def compute_view_factors(geometry, scene, *, rays_per_node, seed, target_error=N
                     break
                 done += pair_node.size * m
                 bar.set_total(done)
-                sums.add_pairs(pair_node, _trace_pairs(scene, kin, pair_node, pair_round,
-                                                       seed, m, bar, acc))
+                _trace_pairs(scene, kin, pair_node, pair_round, seed, m, bar, acc, sums)
             stats = tally_statistics(sums)
             converged = bool(np.all(_row_error_ratio(stats, target_error, significance) <= 1))
     facet_matrix = acc.factors() if acc is not None else None
@@ -970,10 +975,13 @@ def view_factors_from_tallies(geometry, sums: TallySums, *, target_error=None,
     raw = stats.mean
     sm = smooth_view_factors(raw[:, :n], raw[:, n], raw[:, n + 1], V[:, :n], V[:, n],
                              V[:, n + 1], geometry.nodes.area)
-    smoothed = np.concatenate([sm.matrix, sm.space[:, None], sm.inert[:, None]], axis=1)
-    sig = significant_mask(raw, significance)
-    dev = np.abs(smoothed - raw) / np.sqrt(V)
-    adjustment = float(dev[sig].max()) if sig.any() else 0.0
+    ii, jj = np.nonzero(significant_mask(raw, significance))
+    if ii.size:
+        node_col = jj < n
+        smoothed = np.where(node_col, sm.matrix[ii, np.minimum(jj, n - 1)], sm.space[ii])
+        adjustment = float(np.max(np.abs(smoothed - raw[ii, jj]) / np.sqrt(V[ii, jj])))
+    else:
+        adjustment = 0.0
     if converged is None:
         converged = True if target_error is None else bool(
             np.all(_row_error_ratio(stats, target_error, significance) <= 1))
@@ -1039,12 +1047,11 @@ def gebhart_tallies(geometry, scene, *, band="ir", rays_per_node, seed, reporter
     pair_round = np.repeat(np.arange(MIN_ROUNDS, dtype=np.int64), nodes.size)
     with reporter.stage(f"Gebhart factors ({band}, reflection tracing)",
                         total=pair_node.size * m, unit="rays") as bar:
-        out = np.zeros((pair_node.size, n + 2), np.int64)
         for sl in _pair_batches(pair_node.size, m, n):
-            out[sl] = gebhart_pairs(scene.arrays, kin.emit, kin.geo, absorb, specular,
-                                    pair_node[sl], pair_round[sl], int(seed), m)
+            sums.add_pairs(pair_node[sl],
+                           gebhart_pairs(scene.arrays, kin.emit, kin.geo, absorb, specular,
+                                         pair_node[sl], pair_round[sl], int(seed), m))
             bar.advance((sl.stop - sl.start) * m)
-        sums.add_pairs(pair_node, out)
     return sums
 
 
