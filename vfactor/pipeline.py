@@ -66,7 +66,7 @@ class RunResult:
     rays_per_node : int
     workers : int — processes used for the ray tracing (1 in this process; 0 for dask)
     elapsed_s : dict — stage name -> seconds
-    resumed_jobs : int — (round, node block) jobs taken from a checkpoint
+    resumed_jobs : int — (node, round) pairs taken from a checkpoint
     notes : tuple of str — stages skipped and why
     """
 
@@ -101,7 +101,7 @@ class RunResult:
                  f"  {g.n_nodes} nodes, {g.n_facets} facets, {self.rays_per_node:,} rays per "
                  f"node, seed {self.seed}, {self.elapsed_s.get('total', 0.0):.1f} s"]
         if self.resumed_jobs:
-            lines.append(f"  {self.resumed_jobs} jobs taken from the checkpoint")
+            lines.append(f"  {self.resumed_jobs} (node, round) tallies taken from the checkpoint")
         for n in self.notes:
             lines.append(f"  note: {n}")
         return "\n".join(lines)
@@ -332,7 +332,7 @@ class _Checkpoint:
 # ---------------------------------------------------------------------------------------
 def _view_factors(radiation, model, geometry, scene, *, rays_per_node, seed, workers,
                   scheduler, resume, facet_factors, checkpoint, reporter):
-    """View factors in this process, or by (round, node block) jobs over a runner.
+    """View factors in this process, or by jobs of (node, round) pairs over a runner.
 
     The jobs are exactly the (node, round) pairs that
     :func:`vfactor.radiation.compute_view_factors` traces, convergence rounds included, so
