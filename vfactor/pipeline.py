@@ -100,6 +100,17 @@ class RunResult:
         lines = [f"wrote {self.output} ({size:.1f} MB): {', '.join(done)}",
                  f"  {g.n_nodes} nodes, {g.n_facets} facets, {self.rays_per_node:,} rays per "
                  f"node, seed {self.seed}, {self.elapsed_s.get('total', 0.0):.1f} s"]
+        vf = self.view_factors
+        if vf is not None and np.size(vf.raw_matrix):
+            from .summary import SIGNIFICANT_VIEW_FACTOR as sig_level
+
+            sig = vf.raw_matrix >= sig_level
+            rel = float((vf.stderr[sig] / vf.raw_matrix[sig]).max()) if sig.any() else 0.0
+            target = ("" if vf.target_error is None else
+                      f"; target {vf.target_error:g} " + ("reached" if vf.converged
+                                                         else "NOT reached (budget spent)"))
+            lines.append(f"  view factors >= {sig_level:g}: largest one-sigma relative error "
+                         f"{100 * rel:.2f} %{target}")
         if self.resumed_jobs:
             lines.append(f"  {self.resumed_jobs} (node, round) tallies taken from the checkpoint")
         for n in self.notes:
