@@ -214,9 +214,20 @@ class TallySums:
         if np.any(t.sum(axis=1) != self.rays_per_round):
             raise ValueError(f"TallySums.add_pairs: every tally row must sum to "
                              f"rays_per_round = {self.rays_per_round}")
-        np.add.at(self.counts, idx, t)
-        np.add.at(self.squares, idx, t * t)
-        np.add.at(self.rounds, idx, 1)
+        if idx.size == 0:
+            return
+        if np.unique(idx).size == idx.size:      # each node once: plain indexed add
+            self.counts[idx] += t
+            self.squares[idx] += t * t
+            self.rounds[idx] += 1
+            return
+        order = np.argsort(idx, kind="stable")
+        idx, t = idx[order], t[order]
+        starts = np.flatnonzero(np.r_[True, idx[1:] != idx[:-1]])
+        rows = idx[starts]                       # unique nodes; exact integer sums
+        self.counts[rows] += np.add.reduceat(t, starts, axis=0)
+        self.squares[rows] += np.add.reduceat(t * t, starts, axis=0)
+        self.rounds[rows] += np.diff(np.r_[starts, idx.size])
 
     def merge(self, other: "TallySums") -> None:
         """Add the sums of ``other`` (another worker's rounds, disjoint from ours)."""
@@ -476,7 +487,7 @@ def _multipliers(n, iu, ju, h, g_hat, d, r0):
     cols = np.concatenate([ju[keep], iu[keep], np.arange(n)])
     vals = np.concatenate([h[keep], h[keep], diag])
     M = sp.csc_matrix((vals, (rows, cols)), shape=(n, n))
-    if n <= 64:
+    if n <= 64 or M.nnz > 0.02 * n * n:        # small or dense enough: LAPACK
         return np.linalg.solve(M.toarray(), r)
     return np.asarray(spsolve(M, r)).reshape(n)
 

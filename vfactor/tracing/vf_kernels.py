@@ -282,10 +282,14 @@ def _vf_kernel(arrays, emit, geo, pair_node, pair_round, seed, m, j_lo, j_hi, re
         j0 = j_lo + c * CHUNK
         size = min(j_hi, j0 + CHUNK) - j0
         p0 = _chunk_start(sorted_x, shift[0], j0)
-        for q in range(CHUNK):          # rays in increasing u0: neighbouring origins
-            kk = perm[(p0 + q) % CHUNK]
-            if kk >= size:
-                continue
+        small = size < CHUNK // 8       # few rays: plain order (sorting would not pay)
+        for q in range(size if small else CHUNK):
+            if small:
+                kk = q
+            else:                       # rays in increasing u0: neighbouring origins
+                kk = perm[(p0 + q) % CHUNK]
+                if kk >= size:
+                    continue
             j = j0 + kk
             s, fct, x, y, z, dx, dy, dz = _emit(emit, geo, node, shift, j)
             g, t, front = closest_hit(arrays, x, y, z, dx, dy, dz, np.inf, fct)
@@ -361,10 +365,14 @@ def _gebhart_kernel(arrays, emit, geo, absorb, specular, pair_node, pair_round, 
         j0 = c * CHUNK
         size = min(m, j0 + CHUNK) - j0
         p0 = _chunk_start(sorted_x, shift[0], j0)
-        for q in range(CHUNK):          # rays in increasing u0: neighbouring origins
-            kk = perm[(p0 + q) % CHUNK]
-            if kk >= size:
-                continue
+        small = size < CHUNK // 8       # few rays: plain order (sorting would not pay)
+        for q in range(size if small else CHUNK):
+            if small:
+                kk = q
+            else:                       # rays in increasing u0: neighbouring origins
+                kk = perm[(p0 + q) % CHUNK]
+                if kk >= size:
+                    continue
             j = j0 + kk
             s, fct, x, y, z, dx, dy, dz = _emit(emit, geo, node, shift, j)
             base = rshift | (np.uint64(j) << np.uint64(16))
