@@ -78,11 +78,14 @@ class ViewFactors:
     matrix : (n, n) float — smoothed view factors; row i = from node i [1]
     space : (n,) float — smoothed view factor to deep space [1]
     inert : (n,) float — share of emitted rays lost on inert sides [1]
-    stderr : (n, n) float — one-sigma statistical error of each raw entry [1]
+    stderr : (n, n) float — one-sigma statistical error of each raw entry [1]: standard
+        error of the mean over independent randomised replicates (rounds), see
+        :func:`tally_statistics`
     stderr_space : (n,) float — one-sigma error of ``raw_space`` [1]
     raw_matrix, raw_space, raw_inert : as above, straight from the tallies (no smoothing) [1]
     rays : (n,) int64 — rays emitted per node
-    adjustment_sigma : float — largest |smoothed - raw| / stderr over significant entries [1]
+    adjustment_sigma : float — largest |smoothed - raw| / stderr over significant entries
+        (node and space entries >= :data:`SIGNIFICANCE` of their row) [1]
     method : str — name of the smoothing method
     converged : bool — True when ``target_error`` was reached (True when none was asked)
     target_error : float or None — requested one-sigma error of significant entries [1]
