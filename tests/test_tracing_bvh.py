@@ -13,8 +13,8 @@ def _walk(tree):
     stack = [0]
     while stack:
         n = stack.pop()
-        for c in range(4):
-            ref = int(tree.nodes_i[n, 24 + c])
+        for c in range(bvh.LANES):
+            ref = int(tree.nodes_i[n, 6 * bvh.LANES + c])
             yield n, c, ref
             if ref >= 0:
                 stack.append(ref)
@@ -22,7 +22,7 @@ def _walk(tree):
 
 def _lane_box(tree, n, c):
     row = tree.nodes[n].astype(np.float64)
-    return np.array([row[4 * q + c] for q in range(6)])
+    return np.array([row[bvh.LANES * q + c] for q in range(6)])
 
 
 def _check_tree(tree, vertices, triangles, max_leaf):
@@ -33,7 +33,7 @@ def _check_tree(tree, vertices, triangles, max_leaf):
         if ref >= 0:
             assert ref > n                      # depth-first numbering
             visited.add(ref)
-            for cc in range(4):
+            for cc in range(bvh.LANES):
                 cb = _lane_box(tree, ref, cc)
                 if cb[0] <= cb[3]:
                     assert (box[:3] <= cb[:3]).all() and (box[3:] >= cb[3:]).all()
@@ -53,8 +53,8 @@ def _check_tree(tree, vertices, triangles, max_leaf):
     # Rows of tri are the original facets given by tri_ids.
     np.testing.assert_array_equal(tree.tri.reshape(-1, 3, 3),
                                   vertices[triangles[tree.tri_ids]])
-    # A visit pushes at most 3 more entries than it pops.
-    assert 3 * tree.depth() + 1 <= bvh.STACK_SIZE
+    # A visit pushes at most LANES - 1 more entries than it pops.
+    assert (bvh.LANES - 1) * tree.depth() + 1 <= bvh.STACK_SIZE
     assert tree.nodes.ctypes.data % 64 == 0
 
 

@@ -52,11 +52,13 @@ __all__ = ["BVH", "build", "refit", "MAX_LEAF_LIMIT", "STACK_SIZE", "NODE_WIDTH"
 MAX_LEAF_LIMIT = 15
 #: Depth below which SAH splits give way to median splits.
 _SAH_MAX_DEPTH = 48
-#: Floats (4 bytes) per 4-wide node: 24 lane bounds, 4 references, 4 unused (128 bytes).
-NODE_WIDTH = 32
+#: Children per node (the vector width of the box test).
+LANES = 4
+#: Floats (4 bytes) per node: 6 LANES bounds, LANES references, padding to 8 LANES.
+NODE_WIDTH = 8 * LANES
 #: Traversal stack entries enough for any tree this module builds: a visit pushes at most
-#: 3 entries more than it pops, over at most 48 + 27 levels.
-STACK_SIZE = 256
+#: LANES - 1 entries more than it pops, over at most 48 + 27 levels.
+STACK_SIZE = 80 * (LANES - 1) + 16
 
 
 @njit(**JIT)
@@ -360,8 +362,8 @@ def _collapse_kernel(boxes2, refs2, boxes4, refs4):
     st_n = np.empty(512, np.int64)
     st_p = np.empty(512, np.int64)
     st_s = np.empty(512, np.int64)
-    cb = np.empty((4, 6))
-    cr = np.empty(4, np.int64)
+    cb = np.empty((LANES, 6))
+    cr = np.empty(LANES, np.int64)
     sp = 1
     st_n[0] = 0
     st_p[0] = -1
@@ -381,7 +383,7 @@ def _collapse_kernel(boxes2, refs2, boxes4, refs4):
                 cb[c, q] = boxes2[n, 6 * c + q]
             cr[c] = refs2[n, c]
         k = 2
-        while k < 4:
+        while k < LANES:
             best = -1
             best_area = -1.0
             for c in range(k):
@@ -399,15 +401,15 @@ def _collapse_kernel(boxes2, refs2, boxes4, refs4):
             cr[best] = refs2[m, 0]
             cr[k] = refs2[m, 1]
             k += 1
-        for c in range(4):
+        for c in range(LANES):
             if c < k:
                 for q in range(6):
-                    boxes4[me, 4 * q + c] = cb[c, q]
+                    boxes4[me, LANES * q + c] = cb[c, q]
                 refs4[me, c] = cr[c]          # inner references are fixed when visited
             else:
                 for q in range(3):
-                    boxes4[me, 4 * q + c] = np.inf
-                    boxes4[me, 4 * (q + 3) + c] = -np.inf
+                    boxes4[me, LANES * q + c] = np.inf
+                    boxes4[me, LANES * (q + 3) + c] = -np.inf
                 refs4[me, c] = -1
         for c in range(k - 1, -1, -1):
             if cr[c] >= 0:
@@ -420,9 +422,9 @@ def _collapse_kernel(boxes2, refs2, boxes4, refs4):
 
 @njit(**JIT)
 def _refit_kernel(tri, boxes, refs, n_nodes):
-    """Recompute 4-wide node boxes bottom-up (children have larger rows than parents)."""
+    """Recompute node boxes bottom-up (children have larger rows than parents)."""
     for n in range(n_nodes - 1, -1, -1):
-        for c in range(4):
+        for c in range(LANES):
             ref = refs[n, c]
             lo0 = np.inf
             lo1 = np.inf
@@ -431,13 +433,13 @@ def _refit_kernel(tri, boxes, refs, n_nodes):
             hi1 = -np.inf
             hi2 = -np.inf
             if ref >= 0:
-                for cc in range(4):
-                    lo0 = min(lo0, boxes[ref, 0 + cc])
-                    lo1 = min(lo1, boxes[ref, 4 + cc])
-                    lo2 = min(lo2, boxes[ref, 8 + cc])
-                    hi0 = max(hi0, boxes[ref, 12 + cc])
-                    hi1 = max(hi1, boxes[ref, 16 + cc])
-                    hi2 = max(hi2, boxes[ref, 20 + cc])
+                for cc in range(LANES):
+                    lo0 = min(lo0, boxes[ref, 0 * LANES + cc])
+                    lo1 = min(lo1, boxes[ref, 1 * LANES + cc])
+                    lo2 = min(lo2, boxes[ref, 2 * LANES + cc])
+                    hi0 = max(hi0, boxes[ref, 3 * LANES + cc])
+                    hi1 = max(hi1, boxes[ref, 4 * LANES + cc])
+                    hi2 = max(hi2, boxes[ref, 5 * LANES + cc])
             else:
                 code = -1 - ref
                 first = code >> 4
@@ -450,20 +452,20 @@ def _refit_kernel(tri, boxes, refs, n_nodes):
                         hi0 = max(hi0, tri[r, 3 * j + 0])
                         hi1 = max(hi1, tri[r, 3 * j + 1])
                         hi2 = max(hi2, tri[r, 3 * j + 2])
-            boxes[n, 0 + c] = lo0
-            boxes[n, 4 + c] = lo1
-            boxes[n, 8 + c] = lo2
-            boxes[n, 12 + c] = hi0
-            boxes[n, 16 + c] = hi1
-            boxes[n, 20 + c] = hi2
+            boxes[n, 0 * LANES + c] = lo0
+            boxes[n, 1 * LANES + c] = lo1
+            boxes[n, 2 * LANES + c] = lo2
+            boxes[n, 3 * LANES + c] = hi0
+            boxes[n, 4 * LANES + c] = hi1
+            boxes[n, 5 * LANES + c] = hi2
 
 
 def _to_float32_outward(boxes):
-    """float64 lane boxes (n, 24) -> float32 rounded outward (minimum down, maximum up)."""
+    """float64 lane boxes (n, 6 LANES) -> float32 rounded outward (min down, max up)."""
     f = boxes.astype(np.float32)
     back = f.astype(np.float64)
     lo = np.zeros(boxes.shape[1], dtype=bool)
-    lo[:12] = True
+    lo[:3 * LANES] = True
     lo_cols = np.broadcast_to(lo, boxes.shape)
     down = lo_cols & (back > boxes)
     up = ~lo_cols & (back < boxes)
@@ -473,7 +475,7 @@ def _to_float32_outward(boxes):
 
 
 def _aligned_nodes(n):
-    """Zeroed (n, 32) float32 array whose start is 64-byte aligned."""
+    """Zeroed (n, NODE_WIDTH) float32 array whose start is 64-byte aligned."""
     raw = np.zeros(n * NODE_WIDTH + 16, dtype=np.float32)
     off = (-raw.ctypes.data % 64) // 4
     return raw[off:off + n * NODE_WIDTH].reshape(n, NODE_WIDTH)
@@ -515,8 +517,8 @@ class BVH:
 
     @property
     def refs(self):
-        """(n, 4) int32 child references (a view)."""
-        return self.nodes_i[:, 24:28]
+        """(n, LANES) int32 child references (a view)."""
+        return self.nodes_i[:, 6 * LANES:7 * LANES]
 
     def depth(self):
         """Largest number of nodes on a root-to-leaf path."""
@@ -526,7 +528,7 @@ class BVH:
         while stack:
             n, d = stack.pop()
             best = max(best, d)
-            for c in range(4):
+            for c in range(LANES):
                 ref = int(refs[n, c])
                 if ref >= 0:
                     stack.append((ref, d + 1))
@@ -573,12 +575,12 @@ def build(vertices, triangles, max_leaf=4, n_bins=16, traversal_cost=1.0):
     order = np.empty(m, dtype=np.int64)
     n2 = _build_kernel(tri_min, tri_max, cent, int(max_leaf), int(n_bins),
                        float(traversal_cost), order, boxes, refs)
-    boxes4 = np.empty((n2, 24))
-    refs4 = np.empty((n2, 4), dtype=np.int64)
+    boxes4 = np.empty((n2, 6 * LANES))
+    refs4 = np.empty((n2, LANES), dtype=np.int64)
     n4 = _collapse_kernel(boxes, refs, boxes4, refs4)
     nodes = _aligned_nodes(n4)
-    nodes[:, :24] = _to_float32_outward(boxes4[:n4])
-    nodes.view(np.int32)[:, 24:28] = refs4[:n4]
+    nodes[:, :6 * LANES] = _to_float32_outward(boxes4[:n4])
+    nodes.view(np.int32)[:, 6 * LANES:7 * LANES] = refs4[:n4]
     tri = np.ascontiguousarray(tri[order])
     tri_ids = np.ascontiguousarray(ids[order])
     return BVH(nodes, tri, tri_ids, triangles.shape[0])
@@ -608,6 +610,6 @@ def refit(bvh, vertices, triangles):
     _collapse_degenerate(tri, bad)
     bvh.tri[...] = tri
     n = bvh.n_nodes
-    boxes = np.empty((n, 24))
+    boxes = np.empty((n, 6 * LANES))
     _refit_kernel(bvh.tri, boxes, np.ascontiguousarray(bvh.refs), n)
-    bvh.nodes[:, :24] = _to_float32_outward(boxes)
+    bvh.nodes[:, :6 * LANES] = _to_float32_outward(boxes)

@@ -22,8 +22,8 @@ Robustness
 - Only hits with ``0 < t < tmax`` count; ``exclude`` (original facet index) is skipped, so
   a ray leaving a facet never hits it, at any model scale.
 
-Traversal of the 4-wide tree tests the 4 child boxes of a node at once (``_box4``: 4-lane
-float64 vector instructions on the float32 bounds), visits the hit children nearest
+Traversal of the wide tree tests the LANES child boxes of a node at once (``_box_lanes``:
+vector instructions in float64 on the float32 bounds), visits the hit children nearest
 first and keeps the others on a fixed stack of :data:`vfactor.tracing.bvh.STACK_SIZE`
 entries in the function's stack frame (no heap, no reference counting), with their entry
 distance so that they are skipped when a closer hit has been found since.
@@ -37,7 +37,7 @@ from numba import njit, types
 from numba.core import cgutils
 from numba.extending import intrinsic
 
-from .bvh import NODE_WIDTH, STACK_SIZE
+from .bvh import LANES, NODE_WIDTH, STACK_SIZE
 from .config import JIT
 
 __all__ = ["closest_hit", "any_hit"]
@@ -132,39 +132,40 @@ def _triangle(tri, r, kx, ky, kz, okx, oky, okz, sx, sy, sz):
 
 
 @intrinsic
-def _box4(typingctx, nodes, base, nx, ny, nz, oxn, oyn, ozn, oxf, oyf, ozf, ix, iy, iz,
-          tbest):
-    """Slab test of the 4 child boxes of one node, as 4-lane float64 vector code.
+def _box_lanes(typingctx, nodes, base, nx, ny, nz, oxn, oyn, ozn, oxf, oyf, ozf, ix, iy, iz,
+               tbest, tout):
+    """Slab test of the LANES child boxes of one node, as LANES-wide float64 vector code.
 
-    ``nodes`` is the (n, 32) float32 node array, ``base`` the flat index of the node's
-    first float, ``nx, ny, nz`` the offsets of the near-plane rows (0/12, 4/16, 8/20; the
-    far rows are 12 apart on the other side). Returns ``(mask, t0, t1, t2, t3)``: bit j of
-    ``mask`` is set when the ray enters box j at ``t_j <= min(t_exit * (1 + 2 gamma3),
-    tbest)``, with ``t_j`` clamped to >= 0. Maximum/minimum are compare-and-select, the
-    same semantics as the scalar ``max``/``min`` (no NaN can occur, see ``_slab``).
+    ``nodes`` is the (n, NODE_WIDTH) float32 node array, ``base`` the flat index of the
+    node's first float, ``nx, ny, nz`` the offsets of the near-plane rows (the far row of
+    an axis is the other of its two rows). Writes the entry distances (clamped to >= 0) to
+    ``tout[0:LANES]`` and returns a mask whose bit j is set when the ray enters box j at
+    ``t_j <= min(t_exit * (1 + 2 gamma3), tbest)``. Maximum and minimum are
+    compare-and-select, the semantics of the scalar ``max``/``min`` (no NaN can occur,
+    see ``_slab``).
     """
-    ret = types.Tuple((types.int64, types.float64, types.float64, types.float64,
-                       types.float64))
-    sig = ret(nodes, base, nx, ny, nz, oxn, oyn, ozn, oxf, oyf, ozf, ix, iy, iz, tbest)
+    sig = types.int64(nodes, base, nx, ny, nz, oxn, oyn, ozn, oxf, oyf, ozf, ix, iy, iz,
+                      tbest, tout)
+    w = LANES
 
     def codegen(context, builder, signature, args):
         ary = context.make_array(signature.args[0])(context, builder, args[0])
         data = ary.data
-        f4 = ir.VectorType(ir.FloatType(), 4)
-        d4 = ir.VectorType(ir.DoubleType(), 4)
+        fv = ir.VectorType(ir.FloatType(), w)
+        dv = ir.VectorType(ir.DoubleType(), w)
         i32 = ir.IntType(32)
         i64 = ir.IntType(64)
         base_ = args[1]
 
         def load(off):
             p = builder.gep(data, [builder.add(base_, off)])
-            v = builder.load(builder.bitcast(p, f4.as_pointer()), align=4, typ=f4)
-            return builder.fpext(v, d4)
+            v = builder.load(builder.bitcast(p, fv.as_pointer()), align=4, typ=fv)
+            return builder.fpext(v, dv)
 
         def splat(x):
-            v = builder.insert_element(ir.Constant(d4, ir.Undefined), x, ir.Constant(i32, 0))
-            return builder.shuffle_vector(v, ir.Constant(d4, ir.Undefined),
-                                          ir.Constant(ir.VectorType(i32, 4), [0, 0, 0, 0]))
+            v = builder.insert_element(ir.Constant(dv, ir.Undefined), x, ir.Constant(i32, 0))
+            return builder.shuffle_vector(v, ir.Constant(dv, ir.Undefined),
+                                          ir.Constant(ir.VectorType(i32, w), [0] * w))
 
         def vmax(a, c):
             return builder.select(builder.fcmp_ordered(">", a, c), a, c)
@@ -173,10 +174,10 @@ def _box4(typingctx, nodes, base, nx, ny, nz, oxn, oyn, ozn, oxf, oyf, ozf, ix, 
             return builder.select(builder.fcmp_ordered("<", a, c), a, c)
 
         nx_, ny_, nz_ = args[2:5]
-        # far row = the other row of the same axis: near 0 -> far 12, near 12 -> far 0.
-        fx_ = builder.sub(ir.Constant(i64, 12), nx_)
-        fy_ = builder.sub(ir.Constant(i64, 20), ny_)
-        fz_ = builder.sub(ir.Constant(i64, 28), nz_)
+        # The two rows of axis a are a*w and (a+3)*w: far = (2a+3)*w - near.
+        fx_ = builder.sub(ir.Constant(i64, 3 * w), nx_)
+        fy_ = builder.sub(ir.Constant(i64, 5 * w), ny_)
+        fz_ = builder.sub(ir.Constant(i64, 7 * w), nz_)
         oxn_, oyn_, ozn_, oxf_, oyf_, ozf_ = [splat(a) for a in args[5:11]]
         ix_, iy_, iz_ = [splat(a) for a in args[11:14]]
         tb = splat(args[14])
@@ -186,14 +187,13 @@ def _box4(typingctx, nodes, base, nx, ny, nz, oxn, oyn, ozn, oxf, oyf, ozf, ix, 
         ux = builder.fmul(builder.fsub(load(fx_), oxf_), ix_)
         uy = builder.fmul(builder.fsub(load(fy_), oyf_), iy_)
         uz = builder.fmul(builder.fsub(load(fz_), ozf_), iz_)
-        zero = ir.Constant(d4, [0.0] * 4)
-        slack = ir.Constant(d4, [_BOX_SLACK] * 4)
+        zero = ir.Constant(dv, [0.0] * w)
+        slack = ir.Constant(dv, [_BOX_SLACK] * w)
         tn = vmax(vmax(tx, ty), vmax(tz, zero))
         tf = vmin(builder.fmul(vmin(vmin(ux, uy), uz), slack), tb)
         hit = builder.fcmp_ordered("<=", tn, tf)
-        mask = builder.zext(builder.bitcast(hit, ir.IntType(4)), i64)
-        vals = [mask] + [builder.extract_element(tn, ir.Constant(i32, j)) for j in range(4)]
-        return context.make_tuple(builder, signature.return_type, vals)
+        builder.store(tn, builder.bitcast(args[15], dv.as_pointer()), align=8)
+        return builder.zext(builder.bitcast(hit, ir.IntType(w)), i64)
 
     return sig, codegen
 
@@ -203,9 +203,9 @@ def _ray_setup(ox, oy, oz, dx, dy, dz):
     ix, oxn, oxf = _slab(ox, dx)
     iy, oyn, oyf = _slab(oy, dy)
     iz, ozn, ozf = _slab(oz, dz)
-    nx = 0 if ix >= 0.0 else 12
-    ny = 4 if iy >= 0.0 else 16
-    nz = 8 if iz >= 0.0 else 20
+    nx = 0 if ix >= 0.0 else 3 * LANES
+    ny = LANES if iy >= 0.0 else 4 * LANES
+    nz = 2 * LANES if iz >= 0.0 else 5 * LANES
     return ix, iy, iz, oxn, oyn, ozn, oxf, oyf, ozf, nx, ny, nz
 
 
@@ -244,6 +244,7 @@ def closest_hit(arrays, ox, oy, oz, dx, dy, dz, tmax, exclude):
     ix, iy, iz, oxn, oyn, ozn, oxf, oyf, ozf, nx, ny, nz = _ray_setup(ox, oy, oz, dx, dy, dz)
     stack_n = _stack_alloca(STACK_SIZE, np.int32)
     stack_t = _stack_alloca(STACK_SIZE, np.float64)
+    tl = _stack_alloca(LANES, np.float64)
     best_t = tmax
     best_id = np.int64(-1)
     best_det = 0.0
@@ -251,15 +252,15 @@ def closest_hit(arrays, ox, oy, oz, dx, dy, dz, tmax, exclude):
     ref = np.int32(0)
     while True:
         if ref >= 0:
-            m, t0, t1, t2, t3 = _box4(nodes, np.int64(ref) * NODE_WIDTH, nx, ny, nz,
-                                      oxn, oyn, ozn, oxf, oyf, ozf, ix, iy, iz, best_t)
+            m = _box_lanes(nodes, np.int64(ref) * NODE_WIDTH, nx, ny, nz,
+                           oxn, oyn, ozn, oxf, oyf, ozf, ix, iy, iz, best_t, tl)
             if m != 0:
                 # Push the hit children sorted so that the nearest is on top, take it.
                 base = sp
-                for j in range(4):
+                for j in range(LANES):
                     if (m >> j) & 1:
-                        t = t0 if j == 0 else (t1 if j == 1 else (t2 if j == 2 else t3))
-                        c = nodes_i[ref, 24 + j]
+                        t = tl[j]
+                        c = nodes_i[ref, 6 * LANES + j]
                         q = sp
                         while q > base and stack_t[q - 1] < t:
                             stack_t[q] = stack_t[q - 1]
@@ -313,15 +314,16 @@ def any_hit(arrays, ox, oy, oz, dx, dy, dz, tmax, exclude):
     kx, ky, kz, okx, oky, okz, sx, sy, sz = _setup(ox, oy, oz, dx, dy, dz)
     ix, iy, iz, oxn, oyn, ozn, oxf, oyf, ozf, nx, ny, nz = _ray_setup(ox, oy, oz, dx, dy, dz)
     stack_n = _stack_alloca(STACK_SIZE, np.int32)
+    tl = _stack_alloca(LANES, np.float64)
     sp = 0
     ref = np.int32(0)
     while True:
         if ref >= 0:
-            m, t0, t1, t2, t3 = _box4(nodes, np.int64(ref) * NODE_WIDTH, nx, ny, nz,
-                                      oxn, oyn, ozn, oxf, oyf, ozf, ix, iy, iz, tmax)
-            for j in range(4):
+            m = _box_lanes(nodes, np.int64(ref) * NODE_WIDTH, nx, ny, nz,
+                           oxn, oyn, ozn, oxf, oyf, ozf, ix, iy, iz, tmax, tl)
+            for j in range(LANES):
                 if (m >> j) & 1:
-                    stack_n[sp] = nodes_i[ref, 24 + j]
+                    stack_n[sp] = nodes_i[ref, 6 * LANES + j]
                     sp += 1
         else:
             code = -1 - ref
