@@ -759,3 +759,39 @@ def test_specular_mirror_image_method():
     assert abs(diffuse.mean[0, 0] - expected) > 10 * stats.stderr[0, 0]
     ex = radiation.compute_exchange(g, sc, None, rays_per_node=16_000, seed=42)
     assert ex.method == "monte-carlo"
+
+
+def test_progress_is_reported_per_batch_not_per_ray():
+    from contextlib import contextmanager
+
+    from vfactor.progress import Reporter
+
+    class Recorder(Reporter):
+        def __init__(self):
+            self.stages = []
+
+        @contextmanager
+        def stage(self, description, total, unit="items"):
+            rec = {"description": description, "total": total, "calls": 0, "done": 0}
+            self.stages.append(rec)
+
+            class Bar:
+                def advance(self, k=1):
+                    rec["calls"] += 1
+                    rec["done"] += k
+
+                def set_total(self, t):
+                    rec["total"] = t
+            yield Bar()
+
+    g = make_geometry([
+        dict(mesh=rectangle([0, 0, 0], [1, 0, 0], [0, 1, 0], 2, 2), front=("lower", "black")),
+        dict(mesh=flipped(rectangle([0, 0, 0.5], [0.3, 0, 0], [0, 0.3, 0], 1, 1)),
+             front=("small", "black")),
+    ])
+    rec = Recorder()
+    vf = radiation.compute_view_factors(g, _scene(g), rays_per_node=16_000, seed=3,
+                                        target_error=0.01, reporter=rec)
+    (stage,) = rec.stages
+    assert stage["done"] == stage["total"] == vf.rays.sum()
+    assert stage["calls"] <= 10                   # a few kernel calls, not one per ray
