@@ -176,3 +176,17 @@ def test_rays_by_area():
     assert c.sum() == 10
     with pytest.raises(ValueError):
         rays_by_area([0.0, 0.0], 5)
+
+
+def test_ray_tasks_cover_every_ray_once():
+    from vfactor.tracing.scene import ray_tasks
+    counts = np.array([0, 1, 255, 256, 257, 1000, 0, 3] * 7)
+    f, k, n = ray_tasks(counts, max_rays=256)
+    assert (n >= 1).all() and (n <= 256).all()
+    seen = {}
+    for fi, ki, ni in zip(f, k, n):
+        for j in range(ki, ki + ni):
+            seen[(fi, j)] = seen.get((fi, j), 0) + 1
+    assert set(seen.values()) == {1}
+    assert len(seen) == counts.sum()
+    assert all((fi, j) in seen for fi, c in enumerate(counts) for j in range(c))

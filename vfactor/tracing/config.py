@@ -16,7 +16,7 @@ error model are the same everywhere.
 
 from __future__ import annotations
 
-__all__ = ["JIT", "JIT_PARALLEL", "RAY_CHUNK", "EMITTER_CHUNK"]
+__all__ = ["JIT", "JIT_PARALLEL", "TASK_RAYS"]
 
 #: Flags of every serial (device or kernel) function.
 JIT = dict(cache=True, nogil=True, error_model="numpy")
@@ -24,11 +24,8 @@ JIT = dict(cache=True, nogil=True, error_model="numpy")
 #: Flags of kernels that loop over rays or emitters with ``numba.prange``.
 JIT_PARALLEL = dict(JIT, parallel=True)
 
-#: Iterations handed to a thread at a time in ``prange`` loops over rays, set by the
-#: wrappers with ``numba.parallel_chunksize(RAY_CHUNK)``. Dynamic chunks keep both cores
-#: busy when rays cost unequal time or a core is shared; results do not depend on it
-#: (every iteration writes only its own outputs).
-RAY_CHUNK = 2048
-
-#: Same for ``prange`` loops over emitting facets (a facet holds many rays).
-EMITTER_CHUNK = 4
+#: Most rays in one task of a ``prange`` over emitters (see
+#: :func:`vfactor.tracing.scene.ray_tasks`): numba gives each thread one contiguous block
+#: of iterations, so loops over emitters with unequal ray counts are split into tasks
+#: of about equal size. Results do not depend on it.
+TASK_RAYS = 256

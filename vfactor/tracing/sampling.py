@@ -85,7 +85,7 @@ def triangle_barycentric(u1, u2):
     return b0, b1, b2
 
 
-@njit(**JIT)
+@njit(**JIT, inline="always")
 def triangle_point(vertices, triangles, facet, u1, u2):
     """Uniform point on facet ``facet`` of a triangle mesh.
 

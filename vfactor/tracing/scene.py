@@ -6,16 +6,24 @@ call the device functions of :mod:`vfactor.tracing.traverse` directly with
 :attr:`Scene.arrays`; :func:`count_cosine_hits` is the pattern to copy:
 
 >>> @njit(**JIT_PARALLEL)
-... def kernel(arrays, vertices, triangles, normals, ray_counts, seed, out):
-...     for f in prange(ray_counts.shape[0]):           # one emitter per iteration
-...         for k in range(ray_counts[f]):               # its rays, counter = k
-...             u0, u1, u2, u3 = uniform4(seed, f, k)
+... def kernel(arrays, vertices, triangles, normals, task_f, task_k, task_n, seed, out):
+...     for q in prange(task_f.shape[0]):               # tasks from ray_tasks()
+...         f = task_f[q]                                # the emitting facet
+...         for j in range(task_n[q]):
+...             k = task_k[q] + j                        # ray index = counter
+...             u0, u1, u2, u3 = uniform4(seed, np.uint64(f), np.uint64(k))
 ...             x, y, z = triangle_point(vertices, triangles, f, u0, u1)
 ...             dx, dy, dz = cosine_direction(normals[f, 0], ..., u2, u3)
 ...             hit, t, front = closest_hit(arrays, x, y, z, dx, dy, dz, np.inf, f)
-...             ...                                     # tally into out[f, ...] only
+...             ...                                     # tally into out[q, ...] only
 
-Each iteration writes only its own emitter's tallies, and every random number is a pure
+then sum the per-task rows per emitter. The loop runs over tasks of at most
+:data:`~vfactor.tracing.config.TASK_RAYS` rays rather than over emitters, because numba
+hands each thread one contiguous block of iterations: emitters with unequal ray counts
+would leave a thread idle. Keep stream and counter arithmetic in uint64 (``uint64 +
+int64`` is float64 in numba).
+
+Each iteration writes only its own task's tallies, and every random number is a pure
 function of (seed, stream, ray index), so tallies are bit-identical for any thread count and
 for any split of the ray indices into chunks.
 """
@@ -24,18 +32,17 @@ from __future__ import annotations
 
 from typing import NamedTuple
 
-import numba
 import numpy as np
 from numba import njit, prange
 
 from ..errors import GeometryError
 from . import bvh as _bvh
-from .config import EMITTER_CHUNK, JIT, JIT_PARALLEL, RAY_CHUNK
+from .config import JIT, JIT_PARALLEL, TASK_RAYS
 from .rng import uniform4
 from .sampling import cosine_direction, triangle_point
 from .traverse import any_hit, closest_hit
 
-__all__ = ["Scene", "Hits", "CosineTally", "rays_by_area", "cosine_rays",
+__all__ = ["Scene", "Hits", "CosineTally", "rays_by_area", "ray_tasks", "cosine_rays",
            "count_cosine_hits"]
 
 
@@ -326,8 +333,7 @@ class Scene:
         distance = np.empty(r)
         front = np.empty(r, dtype=np.bool_)
         if r:
-            with numba.parallel_chunksize(RAY_CHUNK):
-                _closest_kernel(self.arrays, o, d, tm, ex, facet, distance, front)
+            _closest_kernel(self.arrays, o, d, tm, ex, facet, distance, front)
         return Hits(facet, distance, front)
 
     def occluded(self, origins, directions, tmax, exclude=None):
@@ -344,8 +350,7 @@ class Scene:
                                    "occluded")
         out = np.empty(o.shape[0], dtype=np.bool_)
         if o.shape[0]:
-            with numba.parallel_chunksize(RAY_CHUNK):
-                _occluded_kernel(self.arrays, o, d, tm, ex, out)
+            _occluded_kernel(self.arrays, o, d, tm, ex, out)
         return out
 
 
@@ -374,19 +379,59 @@ def rays_by_area(areas, n_rays):
     return counts
 
 
+def ray_tasks(ray_counts, max_rays=TASK_RAYS):
+    """Split the rays of every emitter into tasks of at most ``max_rays`` rays.
+
+    A ``prange`` over tasks (rather than over emitters) gives each thread about the same
+    number of rays however unequal the emitters are: numba hands each thread one
+    contiguous block of iterations, whatever the threading layer. For the same reason the
+    tasks come in blocks of 16 (consecutive rays of neighbouring emitters, for memory
+    locality) put in a fixed pseudo-random block order, so that every contiguous share of
+    the task list holds a fair sample of heavy and light emitters. The order is a
+    function of ``ray_counts`` alone; tallies made per task and then summed per emitter
+    (in task-index order, or exactly for integers) are the same for any thread count.
+
+    Parameters
+    ----------
+    ray_counts : (f,) int64
+        Rays of each emitter.
+    max_rays : int
+        Largest task.
+
+    Returns
+    -------
+    emitter, first, count : (t,) int64
+        Emitter of each task, index of its first ray (within the emitter), its rays.
+    """
+    counts = np.asarray(ray_counts, dtype=np.int64)
+    per = -(-counts // int(max_rays))                     # ceil, 0 for no rays
+    emitter = np.repeat(np.arange(counts.size, dtype=np.int64), per)
+    start_of = np.concatenate([[0], np.cumsum(per)[:-1]]).astype(np.int64)
+    j = np.arange(emitter.size, dtype=np.int64) - start_of[emitter]
+    first = j * int(max_rays)
+    count = np.minimum(counts[emitter] - first, int(max_rays))
+    n_blocks = -(-emitter.size // 16)
+    blocks = np.random.default_rng(20261202).permutation(n_blocks)
+    order = (blocks[:, None] * 16 + np.arange(16)).ravel()
+    order = order[order < emitter.size]
+    return emitter[order], first[order], count[order]
+
+
 @njit(**JIT_PARALLEL)
-def _cosine_rays_kernel(vertices, triangles, normals, starts, ray_counts, seed, stream0,
-                        counter0, sign, origins, directions, emitter):
-    for f in prange(ray_counts.shape[0]):
+def _cosine_rays_kernel(vertices, triangles, normals, task_f, task_k, task_n, out_start,
+                        seed, stream0, counter0, sign, origins, directions, emitter):
+    for q in prange(task_f.shape[0]):
+        f = task_f[q]
         nx = sign * normals[f, 0]
         ny = sign * normals[f, 1]
         nz = sign * normals[f, 2]
-        base = starts[f]
-        for k in range(ray_counts[f]):
-            u0, u1, u2, u3 = uniform4(seed, stream0 + f, counter0 + k)
+        stream = stream0 + np.uint64(f)
+        for j in range(task_n[q]):
+            k = task_k[q] + j
+            u0, u1, u2, u3 = uniform4(seed, stream, counter0 + np.uint64(k))
             x, y, z = triangle_point(vertices, triangles, f, u0, u1)
             dx, dy, dz = cosine_direction(nx, ny, nz, u2, u3)
-            i = base + k
+            i = out_start[q] + j
             origins[i, 0] = x
             origins[i, 1] = y
             origins[i, 2] = z
@@ -414,18 +459,19 @@ def cosine_rays(scene, ray_counts, seed, side=1, stream_offset=0, counter_start=
     Returns
     -------
     origins (r, 3) [m], directions (r, 3) [1], emitter (r,) int64
+        Grouped by facet, rays of a facet in counter order.
     """
     counts = _check_counts(scene, ray_counts)
-    starts = np.concatenate([[0], np.cumsum(counts)[:-1]]).astype(np.int64)
+    task_f, task_k, task_n = ray_tasks(counts)
+    facet_start = np.concatenate([[0], np.cumsum(counts)[:-1]]).astype(np.int64)
+    out_start = facet_start[task_f] + task_k
     r = int(counts.sum())
     origins = np.empty((r, 3))
     directions = np.empty((r, 3))
     emitter = np.empty(r, dtype=np.int64)
-    with numba.parallel_chunksize(EMITTER_CHUNK):
-        _cosine_rays_kernel(scene.vertices, scene.triangles, scene.normals, starts, counts,
-                            np.uint64(seed), np.uint64(stream_offset),
-                            np.uint64(counter_start), float(side), origins, directions,
-                            emitter)
+    _cosine_rays_kernel(scene.vertices, scene.triangles, scene.normals, task_f, task_k,
+                        task_n, out_start, np.uint64(seed), np.uint64(stream_offset),
+                        np.uint64(counter_start), float(side), origins, directions, emitter)
     return origins, directions, emitter
 
 
@@ -441,17 +487,20 @@ def _check_counts(scene, ray_counts):
 
 
 @njit(**JIT_PARALLEL)
-def _count_kernel(arrays, vertices, triangles, normals, ray_counts, seed, stream0,
-                  counter0, sign, hits, front_hits, facet_sum):
-    for f in prange(ray_counts.shape[0]):
+def _count_kernel(arrays, vertices, triangles, normals, task_f, task_k, task_n, seed,
+                  stream0, counter0, sign, hits, front_hits, facet_sum):
+    for q in prange(task_f.shape[0]):                 # one task: rays of one emitter
+        f = task_f[q]
         nx = sign * normals[f, 0]
         ny = sign * normals[f, 1]
         nz = sign * normals[f, 2]
+        stream = stream0 + np.uint64(f)
         nh = 0
         nf = 0
         s = 0
-        for k in range(ray_counts[f]):
-            u0, u1, u2, u3 = uniform4(seed, stream0 + f, counter0 + k)
+        for j in range(task_n[q]):
+            k = task_k[q] + j
+            u0, u1, u2, u3 = uniform4(seed, stream, counter0 + np.uint64(k))
             x, y, z = triangle_point(vertices, triangles, f, u0, u1)
             dx, dy, dz = cosine_direction(nx, ny, nz, u2, u3)
             g, t, front = closest_hit(arrays, x, y, z, dx, dy, dz, np.inf, f)
@@ -460,9 +509,9 @@ def _count_kernel(arrays, vertices, triangles, normals, ray_counts, seed, stream
                 s += g
                 if front:
                     nf += 1
-        hits[f] = nh
-        front_hits[f] = nf
-        facet_sum[f] = s
+        hits[q] = nh                                  # per-task tallies, summed after
+        front_hits[q] = nf
+        facet_sum[q] = s
 
 
 def count_cosine_hits(scene, ray_counts, seed, side=1, stream_offset=0, counter_start=0):
@@ -475,12 +524,21 @@ def count_cosine_hits(scene, ray_counts, seed, side=1, stream_offset=0, counter_
     CosineTally
     """
     counts = _check_counts(scene, ray_counts)
+    task_f, task_k, task_n = ray_tasks(counts)
+    t = task_f.shape[0]
+    hits = np.zeros(t, dtype=np.int64)
+    front_hits = np.zeros(t, dtype=np.int64)
+    facet_sum = np.zeros(t, dtype=np.int64)
+    _count_kernel(scene.arrays, scene.vertices, scene.triangles, scene.normals, task_f,
+                  task_k, task_n, np.uint64(seed), np.uint64(stream_offset),
+                  np.uint64(counter_start), float(side), hits, front_hits, facet_sum)
     f = scene.n_facets
-    hits = np.zeros(f, dtype=np.int64)
-    front_hits = np.zeros(f, dtype=np.int64)
-    facet_sum = np.zeros(f, dtype=np.int64)
-    with numba.parallel_chunksize(EMITTER_CHUNK):
-        _count_kernel(scene.arrays, scene.vertices, scene.triangles, scene.normals, counts,
-                      np.uint64(seed), np.uint64(stream_offset), np.uint64(counter_start),
-                      float(side), hits, front_hits, facet_sum)
-    return CosineTally(counts, hits, front_hits, facet_sum)
+    return CosineTally(counts, _sum_by(task_f, hits, f), _sum_by(task_f, front_hits, f),
+                       _sum_by(task_f, facet_sum, f))
+
+
+def _sum_by(index, values, n):
+    """Integer sums of ``values`` grouped by ``index`` (exact, order-independent)."""
+    out = np.zeros(n, dtype=np.int64)
+    np.add.at(out, index, values)
+    return out
