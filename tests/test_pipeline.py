@@ -185,3 +185,39 @@ def test_scheduler_without_dask_is_one_line(box, tmp_path, monkeypatch):
         pipeline.run(box, tmp_path / "o.h5", scheduler="tcp://127.0.0.1:8786")
     assert "\n" not in str(err.value)
     assert not (tmp_path / "o.h5").exists()
+
+
+def test_smoothing_false_keeps_raw_tallies(write_model, tmp_path):
+    # `[radiation] smoothing = false`: the stored factors are the raw tallies themselves
+    # (same rays, same seed), and reciprocity is then only as good as the statistics.
+    raw = pipeline.run(write_model(BOX.replace("seed = 11", "seed = 11\nsmoothing = false"),
+                                   name="raw.toml"), tmp_path / "raw.h5")
+    smoothed = pipeline.run(write_model(BOX, name="sm.toml"), tmp_path / "sm.h5")
+    vr, vs = raw.view_factors, smoothed.view_factors
+    assert vr.method == radiation.NO_SMOOTHING and vr.adjustment_sigma == 0.0
+    assert vr.matrix.tobytes() == vr.raw_matrix.tobytes()
+    assert vr.raw_matrix.tobytes() == vs.raw_matrix.tobytes()  # same tallies
+    assert not np.array_equal(vs.matrix, vs.raw_matrix)  # smoothing moved something
+
+
+def test_run_refuses_a_model_that_check_rejects(write_model, tmp_path):
+    # Two boxes that interpenetrate: the first hit of a ray is meaningless there, so the run
+    # stops with the checker's line (exit 2 on the command line) and writes nothing.
+    text = """
+[[parts]]
+name = "a"
+shape = "box"
+size = [1, 1, 1]
+front = { coating = "w", node = "a" }
+
+[[parts]]
+name = "b"
+shape = "box"
+size = [1, 1, 1]
+center = [0.5, 0.3, 0.2]
+front = { coating = "w", node = "b" }
+"""
+    out = tmp_path / "x.h5"
+    with pytest.raises(VfactorError, match="intersect"):
+        pipeline.run(write_model(text, name="clash.toml"), out)
+    assert not out.exists()

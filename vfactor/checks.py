@@ -143,6 +143,37 @@ def check_model(path) -> CheckReport:
     return report
 
 
+def require_clean(model: Model, geometry: Geometry) -> list:
+    """Run the checks of ``vfactor check`` on a loaded model before a run.
+
+    Parameters
+    ----------
+    model : Model
+    geometry : Geometry — built from ``model``
+
+    Returns
+    -------
+    list of Problem — the warnings (the run may go on)
+
+    Raises
+    ------
+    ModelError
+        For the first error found (intersecting or coincident parts, inward normals, bad
+        settings...), naming how many more there are: Monte Carlo results on such a model
+        would be meaningless, so no run starts.
+    """
+    report = CheckReport(path=str(model.path), model=model, geometry=geometry)
+    _check_settings(model, report)
+    check_geometry(model, geometry, report)
+    errors = report.errors
+    if errors:
+        first = errors[0]
+        more = (f" (and {len(errors) - 1} more error(s); `vfactor check {model.path}` lists "
+                f"them)" if len(errors) > 1 else "")
+        raise ModelError(first.message + more, file=first.file, where=first.where)
+    return report.warnings
+
+
 def _check_settings(model: Model, report: CheckReport) -> None:
     """Validate the optional ``[orbit]``, ``[attitude]`` and ``[environment]`` tables.
 

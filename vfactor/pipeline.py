@@ -358,7 +358,8 @@ def _view_factors(radiation, model, geometry, scene, *, rays_per_node, seed, wor
         vf = radiation.compute_view_factors(geometry, scene, rays_per_node=rays_per_node,
                                             seed=seed, target_error=target,
                                             max_rays_per_node=max_rays,
-                                            facet_factors=facet_factors, reporter=reporter)
+                                            facet_factors=facet_factors, reporter=reporter,
+                                            smooth=settings.smoothing)
         return vf, 0
     from .tracing.vf_kernels import MAX_ROUNDS
 
@@ -406,7 +407,7 @@ def _view_factors(radiation, model, geometry, scene, *, rays_per_node, seed, wor
             ckpt.save()
     # converged=None: decided from target_error as compute_view_factors decides it
     vf = radiation.view_factors_from_tallies(geometry, sums, target_error=target,
-                                             converged=None)
+                                             converged=None, smooth=settings.smoothing)
     return vf, resumed
 
 
@@ -473,6 +474,7 @@ def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=N
         Bad model, mesh or argument (one line naming the file, key or value).
     """
     from . import radiation
+    from .checks import require_clean
     from .geometry import build_geometry
     from .h5io import write_results
     from .model import load_model
@@ -488,6 +490,8 @@ def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=N
     reporter.message(f"loading {model_path}")
     model = load_model(model_path)
     geometry = build_geometry(model)
+    for warning in require_clean(model, geometry):
+        notes.append(warning.line())
     settings = model.radiation
     rays_per_node = int(rays if rays is not None else settings.rays_per_node)
     seed = int(seed if seed is not None else settings.seed)

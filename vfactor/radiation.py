@@ -64,6 +64,9 @@ MIN_ROUNDS = 8
 #: emits. Convergence (``target_error``) and ``adjustment_sigma`` look at these entries only.
 SIGNIFICANCE = 1e-2
 
+#: Method name recorded when smoothing is switched off (``[radiation] smoothing = false``).
+NO_SMOOTHING = "none (raw tallies; reciprocity and closure not enforced)"
+
 #: Name of the reciprocity and closure smoothing method (see :func:`smooth_view_factors`).
 SMOOTHING_METHOD = ("variance-weighted least squares with Lagrange multipliers "
                     "(van Leersum 1989; Taylor & Luck 1995), non-negative active set")
@@ -863,7 +866,7 @@ def plan_rounds(sums: TallySums, target_error, max_rounds, significance=SIGNIFIC
 
 def compute_view_factors(geometry, scene, *, rays_per_node, seed, target_error=None,
                          max_rays_per_node=None, facet_factors=False, reporter=None,
-                         significance=SIGNIFICANCE) -> ViewFactors:
+                         significance=SIGNIFICANCE, smooth=True) -> ViewFactors:
     """Monte Carlo view factors between nodes, to space and to inert sides.
 
     Parameters
@@ -880,6 +883,8 @@ def compute_view_factors(geometry, scene, *, rays_per_node, seed, target_error=N
     facet_factors : bool — also return facet-side-to-node factors (sparse)
     reporter : vfactor.progress.Reporter or None
     significance : float — share of a row above which an entry is significant [1]
+    smooth : bool — enforce reciprocity and closure (``[radiation] smoothing``); when false
+        the returned factors are the raw tallies and ``method`` says so
 
     Returns
     -------
@@ -949,7 +954,7 @@ def compute_view_factors(geometry, scene, *, rays_per_node, seed, target_error=N
     facet_matrix = acc.factors() if acc is not None else None
     return view_factors_from_tallies(geometry, sums, target_error=target_error,
                                      converged=converged, facet_matrix=facet_matrix,
-                                     significance=significance)
+                                     significance=significance, smooth=smooth)
 
 
 def _smoothing_variances(stats):
@@ -961,7 +966,7 @@ def _smoothing_variances(stats):
 
 def view_factors_from_tallies(geometry, sums: TallySums, *, target_error=None,
                               converged=None, facet_matrix=None,
-                              significance=SIGNIFICANCE) -> ViewFactors:
+                              significance=SIGNIFICANCE, smooth=True) -> ViewFactors:
     """View factors, errors and smoothing from summed round tallies.
 
     Parameters
@@ -973,6 +978,8 @@ def view_factors_from_tallies(geometry, sums: TallySums, *, target_error=None,
         from ``target_error``; True when no target)
     facet_matrix : scipy.sparse matrix or None — passed through
     significance : float — threshold of significant entries [1]
+    smooth : bool — enforce reciprocity and closure; when false the factors are the raw
+        tallies, ``adjustment_sigma`` is 0 and ``method`` is :data:`NO_SMOOTHING`
 
     Returns
     -------
@@ -987,6 +994,18 @@ def view_factors_from_tallies(geometry, sums: TallySums, *, target_error=None,
                          f"for {n} nodes")
     V = _smoothing_variances(stats)
     raw = stats.mean
+    if not smooth:
+        if converged is None:
+            converged = True if target_error is None else bool(
+                np.all(_row_error_ratio(stats, target_error, significance) <= 1))
+        return ViewFactors(matrix=raw[:, :n].copy(), space=raw[:, n].copy(),
+                           inert=raw[:, n + 1].copy(), stderr=stats.stderr[:, :n].copy(),
+                           stderr_space=stats.stderr[:, n].copy(),
+                           raw_matrix=raw[:, :n].copy(), raw_space=raw[:, n].copy(),
+                           raw_inert=raw[:, n + 1].copy(), rays=stats.rays.astype(np.int64),
+                           adjustment_sigma=0.0, method=NO_SMOOTHING,
+                           converged=bool(converged), target_error=target_error,
+                           facet_matrix=facet_matrix)
     sm = smooth_view_factors(raw[:, :n], raw[:, n], raw[:, n + 1], V[:, :n], V[:, n],
                              V[:, n + 1], geometry.nodes.area)
     ii, jj = np.nonzero(significant_mask(raw, significance))
