@@ -5,6 +5,7 @@ import os
 import subprocess
 import sys
 import textwrap
+import zlib
 
 import numba
 import numpy as np
@@ -44,7 +45,7 @@ def test_no_ray_escapes_closed_mesh(name, scale):
     v = np.asarray(mesh.vertices, float) * scale
     tris = np.asarray(mesh.faces, np.int64)
     scene = Scene.build(v, tris)
-    g = np.random.default_rng(abs(hash(name)) % 2 ** 32)
+    g = np.random.default_rng(zlib.crc32(name.encode()))   # fixed seed per case
     n = N_LEAK
     # Interior origins: convex combinations of 4 vertices, pulled 1 % toward the centre
     # (the three shapes are convex, so these are strictly inside).
@@ -172,7 +173,7 @@ def test_other_process_one_thread_same_tallies_from_cache():
 
 def test_rays_by_area():
     c = rays_by_area([1.0, 2.0, 0.0, 1.0], 10)
-    assert c.tolist() == [3, 5, 0, 2] or c.tolist() == [2, 5, 0, 3]
+    assert c.tolist() == [3, 5, 0, 2]             # the tie of 0.5 goes to facet 0
     assert c.sum() == 10
     with pytest.raises(ValueError):
         rays_by_area([0.0, 0.0], 5)

@@ -133,8 +133,9 @@ def _clean_mesh(vertices, triangles, where):
         out = (triangles < 0) | (triangles >= vertices.shape[0])
         if out.any():
             f = int(np.flatnonzero(out.any(axis=1))[0])
+            last = vertices.shape[0] - 1
             raise GeometryError(
-                f"facet {f} refers to vertex {triangles[f].tolist()} outside 0..{vertices.shape[0] - 1}",
+                f"facet {f} refers to vertex {triangles[f].tolist()} outside 0..{last}",
                 where=where, facets=np.flatnonzero(out.any(axis=1)))
     return vertices, triangles
 
