@@ -386,9 +386,9 @@ def ray_tasks(ray_counts, max_rays=TASK_RAYS):
     A ``prange`` over tasks (rather than over emitters) gives each thread about the same
     number of rays however unequal the emitters are: numba hands each thread one
     contiguous block of iterations, whatever the threading layer. For the same reason the
-    tasks come in blocks of 16 (consecutive rays of neighbouring emitters, for memory
-    locality) put in a fixed pseudo-random block order, so that every contiguous share of
-    the task list holds a fair sample of heavy and light emitters. The order is a
+    tasks come in blocks of about 2048 rays (consecutive rays of neighbouring emitters,
+    for memory locality) put in a fixed pseudo-random block order, so that every
+    contiguous share of the task list holds a fair sample of heavy and light emitters. The order is a
     function of ``ray_counts`` alone; tallies made per task and then summed per emitter
     (in task-index order, or exactly for integers) are the same for any thread count.
 
@@ -411,10 +411,11 @@ def ray_tasks(ray_counts, max_rays=TASK_RAYS):
     j = np.arange(emitter.size, dtype=np.int64) - start_of[emitter]
     first = j * int(max_rays)
     count = np.minimum(counts[emitter] - first, int(max_rays))
-    n_blocks = -(-emitter.size // 16)
-    blocks = np.random.default_rng(20261202).permutation(n_blocks)
-    order = (blocks[:, None] * 16 + np.arange(16)).ravel()
-    order = order[order < emitter.size]
+    # Blocks of about 2048 consecutive rays, in a fixed pseudo-random order.
+    ray_start = np.cumsum(count) - count
+    block = ray_start // 2048
+    rank = np.random.default_rng(20261202).permutation(int(block[-1]) + 1 if block.size else 0)
+    order = np.lexsort((np.arange(emitter.size), rank[block]))
     return emitter[order], first[order], count[order]
 
 
