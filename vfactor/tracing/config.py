@@ -16,7 +16,12 @@ error model are the same everywhere.
 
 from __future__ import annotations
 
+from vfactor.tracing.cache import register as _register_cache_locator
+
 __all__ = ["JIT", "JIT_PARALLEL", "TASK_RAYS"]
+
+# cached kernels are stamped with all tracing sources together (see vfactor.tracing.cache)
+_register_cache_locator()
 
 #: Flags of every serial (device or kernel) function.
 JIT = dict(cache=True, nogil=True, error_model="numpy")
