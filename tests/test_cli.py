@@ -148,3 +148,21 @@ def test_demo_copy_keeps_user_edits(tmp_path):
     _, notes = demo.copy_demo(tmp_path / "d")
     assert len(notes) == 1 and "kept your own" in notes[0]
     assert model.read_text().endswith("# my edit\n")
+
+
+def test_reader_closing_the_pipe_is_not_an_internal_error(results_file, monkeypatch, capfd):
+    # `vfactor summary OUT.h5 --json | head -1`: the reader goes away; the command must end
+    # quietly (exit 1 as Python's note on SIGPIPE recommends), not report an internal error
+    import io
+    import os
+
+    read_end, write_end = os.pipe()
+    os.close(read_end)
+    stream = io.TextIOWrapper(os.fdopen(write_end, "wb", buffering=0), write_through=True)
+    monkeypatch.setattr(sys, "stdout", stream)
+    code = cli.main(["summary", str(results_file), "--json"])
+    monkeypatch.undo()
+    stream.close()
+    _, err = capfd.readouterr()
+    assert code == 1
+    assert "internal error" not in err and "Broken pipe" not in err

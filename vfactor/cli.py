@@ -8,6 +8,7 @@ used: one line ``vfactor: error: <message>`` on standard error, never a tracebac
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import traceback
 from pathlib import Path
@@ -304,6 +305,16 @@ def main(argv=None) -> int:
             traceback.print_exc()
         print(f"{PROG}: error: {_one_line(exc)}", file=sys.stderr, flush=True)
         return 2
+    except BrokenPipeError:
+        # the reader of standard output went away (`vfactor summary OUT.h5 | head`): stop
+        # quietly; point stdout at devnull so the flush at exit does not fail again
+        # (Python library reference, signal module, "Note on SIGPIPE")
+        try:
+            devnull = os.open(os.devnull, os.O_WRONLY)
+            os.dup2(devnull, sys.stdout.fileno())
+        except (OSError, ValueError, AttributeError):
+            pass
+        return 1
     except KeyboardInterrupt:
         hint = ""
         if getattr(args, "command", None) == "run":
