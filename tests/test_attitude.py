@@ -203,3 +203,14 @@ def test_random_axis_pairs_give_proper_rotations():
         rotation = _triad(b1, b2, d1, d2)
         assert_proper_rotations(rotation)
         assert np.max(angle(rotation @ (b1 / np.linalg.norm(b1)), d1)) < ANGLE_TOL
+
+
+def test_table_without_mode_is_nadir_as_the_readme_says():
+    # README [attitude]: "optional; default nadir" — a table that only sets the nadir axis
+    # (or an empty [attitude]) is nadir pointing, not an error
+    from vfactor.attitude import attitude_from_table
+
+    att = attitude_from_table({"nadir_axis": "-z"}, "m.toml")
+    assert att.mode == "nadir"
+    assert np.array_equal(att.primary_axis, [0.0, 0.0, -1.0])
+    assert attitude_from_table({}, "m.toml").mode == "nadir"

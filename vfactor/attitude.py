@@ -302,7 +302,7 @@ def attitude_from_table(table: dict | None, file: str | None = None) -> Attitude
         return Attitude(mode="nadir", primary_axis=np.array([0.0, 0.0, 1.0]),
                         secondary_axis=np.array([1.0, 0.0, 0.0]), note=DEFAULT_ATTITUDE_NOTE)
     reader = _TableReader(table, file, "[attitude]")
-    mode = reader.string("mode", choices=MODES)
+    mode = reader.string("mode", "nadir", choices=MODES)
     reader.check_keys(_KEYS[mode], f"for mode = {mode!r}")
     if mode == "nadir":
         primary = _axis(reader, "nadir_axis", "+z")
