@@ -242,3 +242,26 @@ rays_per_node = 5000
     assert np.array_equal(r.exchange.gebhart_space, [1.0, 1.0])
     # exchange area to space = eps A B_space = 0.8 * 2 m2 (Gebhart 1971, with B_space = 1)
     assert np.allclose(r.exchange.area_space, [1.6, 1.6], rtol=0, atol=1e-12)
+
+
+def test_side_faces_planet_ir_equals_eps_olr_times_vertical_plate_factor(box_results):
+    # Plate whose normal is perpendicular to the nadir direction, at H = (R + h) / R:
+    # F = 1/2 - (1/pi) asin(sqrt(H^2 - 1) / H) - sqrt(H^2 - 1) / (pi H^2)
+    # (Howell, A Catalog of Radiation Heat Transfer Configuration Factors: differential
+    # planar element to a sphere, element tilted so that its plane cuts the sphere, tilt
+    # 90 deg). A box face cannot shade another face of the same convex box.
+    _, r = box_results
+    radius = float(r.orbit_attrs["planet_radius_m"])
+    big_h = r.trajectory.planet_distance / radius
+    root = np.sqrt(big_h ** 2 - 1.0)
+    f_side = 0.5 - np.arcsin(root / big_h) / np.pi - root / (np.pi * big_h ** 2)
+    areas = {"box.+x": BOX[1] * BOX[2], "box.-x": BOX[1] * BOX[2],
+             "box.+y": BOX[0] * BOX[2], "box.-y": BOX[0] * BOX[2]}
+    for name, area in areas.items():
+        i = _node(r, name)
+        expected = EPS * OLR * area * f_side
+        got = r.heating.node_planet_ir[:, i]
+        sigma = r.heating.node_planet_ir_stderr[:, i]
+        assert np.all(np.abs(got - expected) <= K * sigma + 1e-3), name
+    # at 550 km the factor is 0.2579 (same formula, worked by hand)
+    assert f_side.mean() == pytest.approx(0.2579, abs=5e-4)
