@@ -12,7 +12,7 @@ from vfactor.errors import ResultsFileError
 
 from results_sample import sample_results
 
-CONTRACT = {  # ARCHITECTURE section 6: dataset -> units
+CONTRACT = {  # ARCHITECTURE section 6: dataset -> units ("deg" there = UDUNITS "degree")
     "nodes/name": "", "nodes/area": "m2", "nodes/solar_absorptivity": "1",
     "nodes/ir_emissivity": "1", "facets/vertices": "m", "facets/triangles": "1",
     "facets/front_node": "1", "facets/back_node": "1", "view_factors/matrix": "1",
@@ -20,7 +20,7 @@ CONTRACT = {  # ARCHITECTURE section 6: dataset -> units
     "exchange/gebhart": "1", "exchange/gebhart_space": "1", "exchange/area": "m2",
     "exchange/area_space": "m2", "orbit/time": "s", "orbit/position": "km",
     "orbit/sun_fraction": "1", "orbit/sun_body": "1", "orbit/nadir_body": "1",
-    "orbit/beta": "deg", "heating/solar": "W", "heating/albedo": "W", "heating/planet_ir": "W",
+    "orbit/beta": "degree", "heating/solar": "W", "heating/albedo": "W", "heating/planet_ir": "W",
     "heating/facet/solar": "W m-2", "heating/facet/albedo": "W m-2",
     "heating/facet/planet_ir": "W m-2", "model/source": "",
 }
@@ -159,3 +159,35 @@ def test_written_file_has_ordinary_permissions(tmp_path):
     mask = os.umask(0o022)
     os.umask(mask)
     assert stat.S_IMODE(path.stat().st_mode) == 0o666 & ~mask
+
+
+# Unit symbols of the stock UDUNITS-2 database (lib/SI.xml: m, s, W, K, prefix k;
+# lib/udunits2-accepted.xml: "degree" is an alias of arc_degree, "deg" is not defined there
+# nor in lib/udunits2-common.xml). A units string is a space-separated product of
+# [prefix]symbol[power]; "1" is a dimensionless number, "" text.
+_UDUNITS_SYMBOLS = {"m", "s", "W", "K", "degree"}
+_UDUNITS_PREFIXES = ("", "k")
+
+
+def _is_udunits(units: str) -> bool:
+    import re
+
+    if units in ("", "1"):
+        return True
+    for token in units.split(" "):
+        m = re.fullmatch(r"([A-Za-z]+?)(-?[0-9]+)?", token)
+        if m is None or not any(m.group(1) == p + s for p in _UDUNITS_PREFIXES
+                                for s in _UDUNITS_SYMBOLS):
+            return False
+    return True
+
+
+def test_every_units_attribute_is_a_udunits_string(written):
+    path, _ = written
+    with h5py.File(path, "r") as h:
+        bad = []
+        h.visititems(lambda n, o: bad.append((n, o.attrs["units"]))
+                     if isinstance(o, h5py.Dataset) and not _is_udunits(o.attrs["units"])
+                     else None)
+    assert bad == []
+    assert _is_udunits("W m-2") and _is_udunits("km s-1") and not _is_udunits("deg")

@@ -241,7 +241,8 @@ def _write_trajectory(root, tr: Trajectory):
     _put(g, "sun_distance", np.asarray(tr.sun_distance) / 1e3, "km", "vehicle-to-Sun distance")
     _put(g, "planet_distance", np.asarray(tr.planet_distance) / 1e3, "km",
          "distance from the planet centre")
-    _put(g, "beta", np.degrees(tr.beta), "deg", "beta angle: Sun direction above the orbit plane")
+    _put(g, "beta", np.degrees(tr.beta), "degree",
+         "beta angle: Sun direction above the orbit plane")
     _put(g, "body_to_inertial", tr.body_to_inertial, "1",
          "rotation matrix; columns are the body axes in the inertial frame")
 
