@@ -123,3 +123,18 @@ def test_bad_format_and_threshold(written, tmp_path):
         export.export(r, "xls", tmp_path / "x")
     with pytest.raises(ArgumentError, match="threshold"):
         export.export(r, "csv", tmp_path / "x", threshold=-1.0)
+
+
+def test_mesh_file_with_a_foreign_suffix_is_refused_in_one_line(written, tmp_path):
+    # `export --format vtk -o out.txt` used to end in an internal error from the writer's
+    # format guess, and `--format gltf -o out.gltf` wrote binary glTF under the text-glTF
+    # suffix; both are bad arguments (exit 2) and leave no file behind
+    _, r = written
+    with pytest.raises(ArgumentError, match=r"out\.txt.*\.vtu"):
+        export.export(r, "vtk", tmp_path / "out.txt")
+    with pytest.raises(ArgumentError, match=r"out\.gltf.*\.glb"):
+        export.export(r, "gltf", tmp_path / "out.gltf")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out.h5"]
+    # the suffixes the README names still work, and a bare name gets its suffix
+    assert export.export(r, "vtk", tmp_path / "a.vtu")[0].name == "a.vtu"
+    assert export.export(r, "gltf", tmp_path / "b")[0].name == "b.glb"

@@ -176,27 +176,35 @@ def facet_fields(results: Results) -> dict:
     return out
 
 
-def _mesh_target(path, suffix) -> Path:
+def _mesh_target(path, suffix, allowed=None) -> Path:
+    """Output file of a mesh export: ``suffix`` added to a bare name; a folder, a missing
+    parent folder or a suffix outside ``allowed`` (default ``(suffix,)``) is an
+    :class:`ArgumentError` (one line, exit 2) before anything is written."""
     path = Path(path)
+    allowed = tuple(allowed or (suffix,))
     if path.is_dir():
         raise ArgumentError(f"{path}: is a folder; give a file name ending in {suffix}")
     if not path.parent.is_dir():
         raise ArgumentError(f"{path}: folder {path.parent} does not exist")
+    if path.suffix == "":
+        return path.with_suffix(suffix)
+    if path.suffix.lower() not in allowed:
+        raise ArgumentError(f"{path}: give a file name ending in {' or '.join(allowed)} "
+                            f"(got suffix {path.suffix!r})")
     return path
 
 
 def export_vtk(results: Results, path) -> Path:
     """Write the facets with their :func:`facet_fields` as VTK cell data (meshio).
 
-    A path without a suffix gets ``.vtu``. VTK arrays carry no unit attribute; the units
+    A path without a suffix gets ``.vtu``; ``.vtk`` writes the legacy VTK format; any
+    other suffix is refused. VTK arrays carry no unit attribute; the units
     are those of :func:`facet_fields` (``absorbed_*`` in W m-2, ``area`` in m2, indices 1),
     as the README's CSV layout section lists them.
     """
     import meshio
 
-    path = _mesh_target(path, ".vtu")
-    if path.suffix == "":
-        path = path.with_suffix(".vtu")
+    path = _mesh_target(path, ".vtu", (".vtu", ".vtk"))
     g = results.geometry
     fields = facet_fields(results)
     mesh = meshio.Mesh(points=np.asarray(g.vertices, float),
@@ -227,8 +235,6 @@ def export_gltf(results: Results, path) -> Path:
     import trimesh
 
     path = _mesh_target(path, ".glb")
-    if path.suffix == "":
-        path = path.with_suffix(".glb")
     g = results.geometry
     f = g.n_facets
     if results.facet_average is not None:
