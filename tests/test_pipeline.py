@@ -221,3 +221,27 @@ front = { coating = "w", node = "b" }
     with pytest.raises(VfactorError, match="intersect"):
         pipeline.run(write_model(text, name="clash.toml"), out)
     assert not out.exists()
+
+
+def test_results_file_named_like_an_input_is_refused(box, write_model, tmp_path):
+    # `vfactor run sat.toml -o sat.toml` used to replace the model file by the results;
+    # the same for a mesh file the model reads. Refused in one line, inputs untouched.
+    text = box.read_bytes()
+    with pytest.raises(ArgumentError, match="box.toml.*input"):
+        pipeline.run(box, box)
+    assert box.read_bytes() == text
+    (tmp_path / "tri.obj").write_text("v 0 0 0\nv 1 0 0\nv 0 1 0\nf 1 2 3\n")
+    mesh_model = write_model("""
+[[parts]]
+name = "tri"
+shape = "mesh"
+file = "tri.obj"
+front = { coating = "w" }
+
+[radiation]
+rays_per_node = 800
+""", name="mesh.toml")
+    before = (tmp_path / "tri.obj").read_bytes()
+    with pytest.raises(ArgumentError, match="tri.obj.*input"):
+        pipeline.run(mesh_model, tmp_path / "tri.obj")
+    assert (tmp_path / "tri.obj").read_bytes() == before

@@ -147,6 +147,24 @@ def _check_arguments(output_path, rays, seed, workers, scheduler):
     return out
 
 
+def _refuse_overwriting_inputs(out: Path, model) -> None:
+    """ArgumentError when the results file would replace the model file or a mesh file the
+    model reads (``vfactor run sat.toml -o sat.toml``)."""
+    if not out.exists():
+        return
+    inputs = [Path(model.path)] if getattr(model, "path", None) else []
+    inputs += [Path(p.parameters["file"]) for p in model.parts
+               if p.shape == "mesh" and p.parameters.get("file")]
+    for src in inputs:
+        try:
+            same = src.exists() and os.path.samefile(out, src)
+        except OSError:
+            same = False
+        if same:
+            raise ArgumentError(f"{out}: is an input of the model ({src}); give the results "
+                                "another file name (e.g. run.h5)")
+
+
 # ---------------------------------------------------------------------------------------
 # Jobs: (round, block of nodes) -> integer tallies
 # ---------------------------------------------------------------------------------------
@@ -489,6 +507,7 @@ def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=N
     t0 = time.perf_counter()
     reporter.message(f"loading {model_path}")
     model = load_model(model_path)
+    _refuse_overwriting_inputs(out, model)
     geometry = build_geometry(model)
     for warning in require_clean(model, geometry):
         notes.append(warning.line())
