@@ -355,3 +355,14 @@ def test_tle_trajectory_end_to_end():
     # 15.5 rev/day: about 420 km altitude (Kepler's third law); eclipses every orbit
     assert 380.0 < facts.altitude_min_km < facts.altitude_max_km < 460.0
     assert len(facts.eclipses) >= 2
+
+
+def test_epoch_outside_the_ephemeris_names_the_epoch_not_an_empty_span():
+    # an epoch in 2300 was reported as "the span 2300-... to 2300-..." (same instant twice)
+    with pytest.raises(ModelError) as info:
+        orbit_from_table({"altitude_km": 550.0, "inclination_deg": 50.0,
+                          "epoch": "2300-03-21T00:00:00Z"}, "m.toml")
+    message = str(info.value)
+    assert "m.toml" in message and "[orbit] epoch" in message
+    assert "the epoch 2300-03-21T00:00:00" in message and "lies outside" in message
+    assert " to 2300" not in message

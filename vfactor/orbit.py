@@ -628,8 +628,10 @@ def _check_ephemeris_span(reader, epoch: _dt.datetime, span_s: float):
     start, end = ephemeris.ephemeris_span_utc()
     last = epoch + _dt.timedelta(seconds=span_s)
     if epoch < start or last > end:
-        raise reader.error("epoch", f"the span {ephemeris.format_epoch(epoch)} to "
-                           f"{ephemeris.format_epoch(last)} leaves the shipped ephemeris "
+        what = (f"the epoch {ephemeris.format_epoch(epoch)} lies outside" if last == epoch
+                else f"the span {ephemeris.format_epoch(epoch)} to "
+                     f"{ephemeris.format_epoch(last)} leaves")
+        raise reader.error("epoch", f"{what} the shipped ephemeris "
                            f"{ephemeris.EPHEMERIS_FILE} ({start:%Y-%m-%d} to {end:%Y-%m-%d})")
 
 
