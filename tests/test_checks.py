@@ -331,3 +331,20 @@ def test_attitude_without_orbit_is_a_warning(write_model):
     report = check_model(write_model(BOX + '[attitude]\nmode = "nadir"\n'))
     assert report.ok
     assert any("[attitude]" in p.line() for p in report.warnings)
+
+
+ORBIT = """
+[orbit]
+altitude_km = {alt}
+inclination_deg = 51.6
+epoch = "2027-03-21T00:00:00Z"
+"""
+
+
+def test_altitude_that_looks_like_metres_is_a_warning(write_model):
+    # 550000 "km" is 550 km written in metres: a geocentric orbit 1.4 times the Moon's
+    # distance (384 400 km, from memory) runs, but deserves a line
+    (w,) = warnings_of(check_model(write_model(BOX + ORBIT.format(alt=550000.0))))
+    assert "[orbit] altitude_km" in w and "550000" in w and "metres" in w
+    # geostationary altitude (35 786 km, common practice) is ordinary: no warning
+    assert warnings_of(check_model(write_model(BOX + ORBIT.format(alt=35786.0)))) == []

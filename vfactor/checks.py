@@ -192,12 +192,36 @@ def _check_settings(model: Model, report: CheckReport) -> None:
         if table is None:
             continue
         try:
-            reader(table, file=file)
+            value = reader(table, file=file)
         except ModelError as err:
             report.problems.append(Problem("error", file, err.where or section, err.message))
+            continue
+        if section == "[orbit]":
+            _check_altitude(value, table, file, report)
     if model.attitude_table is not None and model.orbit_table is None:
         report.problems.append(Problem("warning", file, "[attitude]",
                                        "has no effect without an [orbit] section"))
+
+
+ALTITUDE_WARNING_KM = 100_000.0
+"""Apogee altitude [km] above which ``check`` asks whether metres were written as km
+(about 2.8 times the geostationary altitude of 35 786 km, common practice)."""
+
+
+def _check_altitude(orbit, table: dict, file: str, report: CheckReport) -> None:
+    """Warn when the apogee altitude is far beyond Earth orbits in use: most often a value
+    in metres given to a ``*_km`` key (``altitude_km = 550000``)."""
+    apogee_km = (orbit.semi_major_axis * (1.0 + orbit.eccentricity)
+                 - orbit.planet.radius) / 1e3
+    if not apogee_km > ALTITUDE_WARNING_KM:
+        return
+    key = next((k for k in ("altitude_km", "apogee_km", "semi_major_axis_km", "perigee_km")
+                if k in table), "tle")
+    shown = f" = {table[key]!r}" if key in table and key != "tle" else ""
+    report.problems.append(Problem(
+        "warning", file, f"[orbit] {key}",
+        f"apogee altitude {apogee_km:,.0f} km{f' (from {key}{shown})' if shown else ''} "
+        f"is beyond {ALTITUDE_WARNING_KM:,.0f} km; were metres given where km are asked?"))
 
 
 def check_geometry(model: Model, geometry: Geometry, report: CheckReport) -> None:
