@@ -83,10 +83,10 @@ def _node(results, name):
 
 def test_box_orbit_average_direct_solar_equals_projected_area(box_results):
     # A convex body seen from the Sun direction s (body frame) has projected area
-    # A_p(s) = sum over faces of A_f max(0, n_f . s); for a box A_p = A_x|s_x| + A_y|s_y| +
-    # A_z|s_z| (Cauchy's projection formula for convex bodies; e.g. Gilmore, Spacecraft
-    # Thermal Control Handbook Vol. I, 2nd ed., ch. 2, projected-area method). A convex body
-    # cannot see itself, so absorbed direct solar = alpha * S * A_p(s) * sun_fraction.
+    # A_p(s) = sum over faces of A_f max(0, n_f . s) = 1/2 sum A_f |n_f . s| (every line of
+    # sight crosses a convex surface exactly twice; common practice); for a box
+    # A_p = A_x|s_x| + A_y|s_y| + A_z|s_z|. A convex body cannot see itself, so the absorbed
+    # direct solar is alpha * S * A_p(s) * sun_fraction (grey, no self-reflection).
     _, r = box_results
     s = r.trajectory.sun_body                                    # (t, 3)
     ax, ay, az = BOX[1] * BOX[2], BOX[0] * BOX[2], BOX[0] * BOX[1]
