@@ -245,3 +245,30 @@ rays_per_node = 800
     with pytest.raises(ArgumentError, match="tri.obj.*input"):
         pipeline.run(mesh_model, tmp_path / "tri.obj")
     assert (tmp_path / "tri.obj").read_bytes() == before
+
+
+def test_large_share_to_inert_sides_is_noted(write_model, tmp_path):
+    # A plate 1 cm in front of an inert-backed panel: nearly all its emission ends on the
+    # inert side (parallel plates, F ~ 1 for a gap much smaller than the size; Incropera &
+    # DeWitt, Table 13.2), and the run says so.
+    text = """
+[[parts]]
+name = "face"
+shape = "rectangle"
+size = [0.5, 0.5]
+front = { coating = "w", node = "face" }
+
+[[parts]]
+name = "panel"
+shape = "rectangle"
+size = [0.5, 0.5]
+center = [0.0, 0.0, 0.01]
+front = { coating = "w", node = "panel" }
+
+[radiation]
+rays_per_node = 4000
+"""
+    res = pipeline.run(write_model(text, name="inert.toml"), tmp_path / "i.h5")
+    assert res.view_factors.raw_inert[0] > 0.9
+    assert any("'face'" in n and "inert" in n for n in res.notes)
+    assert not any("'panel'" in n for n in res.notes)

@@ -359,6 +359,23 @@ class _Checkpoint:
 # ---------------------------------------------------------------------------------------
 # View factors over a runner
 # ---------------------------------------------------------------------------------------
+#: Share of a node's emission lost on inert sides above which the run says so [1].
+INERT_NOTE_SHARE = 0.10
+
+
+def _inert_notes(geometry, view_factors) -> list:
+    """One note per node that sends more than :data:`INERT_NOTE_SHARE` of its emission to
+    inert sides: in the thermal network that heat disappears, so the inert side should
+    probably be a node of its own (common practice: every surface that sees an active one
+    takes part in the exchange)."""
+    notes = []
+    for name, share in zip(geometry.nodes.names, view_factors.raw_inert):
+        if share > INERT_NOTE_SHARE:
+            notes.append(f"node {name!r} sends {100 * share:.0f} % of its emission to inert "
+                         f"sides (lost in the network); consider giving those sides a node")
+    return notes
+
+
 def _view_factors(radiation, model, geometry, scene, *, rays_per_node, seed, workers,
                   scheduler, resume, facet_factors, checkpoint, reporter):
     """View factors in this process, or by jobs of (node, round) pairs over a runner.
@@ -533,6 +550,8 @@ def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=N
     if facet_factors and (workers > 1 or scheduler is not None or resume):
         notes.append("--facet-factors: view factors traced in this process, without "
                      "workers or checkpoint (the per-ray record is not shared)")
+
+    notes.extend(_inert_notes(geometry, view_factors))
 
     t0 = time.perf_counter()
     exchange = radiation.compute_exchange(geometry, scene, view_factors,
