@@ -29,6 +29,8 @@ CAUTIONS = (
     "The orbital environment is simplified: uniform planet infrared, a Lambertian planet of "
     "uniform albedo, design-case constants. Real environments vary along the orbit.",
     "Geometry is the triangulated model as given; check it with `vfactor check` and by eye.",
+    "Diffuse reflections treat each node as uniformly irradiated; split nodes that are partly "
+    "shadowed or covered (see the README, Accuracy).",
     "These results feed design decisions for flight hardware: correlate the thermal model "
     "with test, and have the analysis reviewed under the applicable project standards and "
     "licensed engineering practice.",
