@@ -396,13 +396,9 @@ def _view_factors(radiation, model, geometry, scene, *, rays_per_node, seed, wor
                                             facet_factors=facet_factors, reporter=reporter,
                                             smooth=settings.smoothing)
         return vf, 0
-    from .tracing.vf_kernels import MAX_ROUNDS
-
     n = geometry.n_nodes
     min_rounds = radiation.MIN_ROUNDS
-    m = -(-rays_per_node // min_rounds)
-    budget = 100 * rays_per_node if max_rays is None else int(max_rays)
-    max_rounds = min(MAX_ROUNDS, max(min_rounds, budget // m))
+    m, max_rounds = radiation.round_sizes(rays_per_node, max_rays)
     sums = radiation.TallySums.empty(n, m)
     ckpt = None
     resumed = 0

@@ -832,6 +832,28 @@ def _row_error_ratio(stats, target_error, significance):
     return ratio.max(axis=1) if n else np.zeros(0)
 
 
+def round_sizes(rays_per_node, max_rays_per_node=None):
+    """Rays per round and the most rounds a node may get.
+
+    Parameters
+    ----------
+    rays_per_node : int — rays each node emits at least (>= 1)
+    max_rays_per_node : int or None — ray budget per node (default 100 x rays_per_node)
+
+    Returns
+    -------
+    rays_per_round : int — ``ceil(rays_per_node / MIN_ROUNDS)``
+    max_rounds : int — ``budget // rays_per_round``, at least :data:`MIN_ROUNDS`, at most the
+        kernels' ``MAX_ROUNDS``
+    """
+    from .tracing.vf_kernels import MAX_ROUNDS
+
+    rays_per_node = int(rays_per_node)
+    m = -(-rays_per_node // MIN_ROUNDS)
+    budget = 100 * rays_per_node if max_rays_per_node is None else int(max_rays_per_node)
+    return m, min(MAX_ROUNDS, max(MIN_ROUNDS, budget // m))
+
+
 def plan_rounds(sums: TallySums, target_error, max_rounds, significance=SIGNIFICANCE):
     """The (node, round) pairs to trace next to reach ``target_error``.
 
@@ -915,21 +937,18 @@ def compute_view_factors(geometry, scene, *, rays_per_node, seed, target_error=N
     tallies are kept.
     """
     from .progress import NullReporter
-    from .tracing.vf_kernels import MAX_ROUNDS
 
     kin = _kernel_inputs(geometry, scene)
     n = kin.n_nodes
     rays_per_node = int(rays_per_node)
     if rays_per_node < 1:
         raise ValueError(f"rays_per_node must be >= 1, got {rays_per_node}")
-    m = -(-rays_per_node // MIN_ROUNDS)
+    m, max_rounds = round_sizes(rays_per_node, max_rays_per_node)
     _check_round_args(n, [], seed, m, 0)
     if target_error is not None:
         target_error = float(target_error)
         if not 0 < target_error < 1:
             raise ValueError(f"target_error must be in (0, 1), got {target_error}")
-    budget = 100 * rays_per_node if max_rays_per_node is None else int(max_rays_per_node)
-    max_rounds = min(MAX_ROUNDS, max(MIN_ROUNDS, budget // m))
     reporter = reporter or NullReporter()
     seed = int(seed)
     sums = TallySums.empty(n, m)

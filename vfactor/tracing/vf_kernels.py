@@ -235,6 +235,20 @@ def _chunk_start(sorted_x, shift0, j0):
 
 
 @njit(**JIT, inline="always")
+def _ray_in_chunk(q, small, perm, p0, size):
+    """Index within its chunk of the q-th ray to trace, or -1 to skip.
+
+    Small chunks go in plain order; full chunks in increasing first coordinate of the
+    sequence (``perm`` rotated to the chunk's start ``p0``), so neighbouring rays start
+    from neighbouring points; the order changes speed only, never the tallies.
+    """
+    if small:
+        return q
+    kk = perm[(p0 + q) % CHUNK]
+    return kk if kk < size else -1
+
+
+@njit(**JIT, inline="always")
 def _emit(emit, geo, node, shift, j):
     """Origin, direction and side index of ray ``j`` of ``node``."""
     side_ptr, side_facet, side_sign, side_cum = emit[0], emit[1], emit[2], emit[3]
@@ -284,12 +298,9 @@ def _vf_kernel(arrays, emit, geo, pair_node, pair_round, seed, m, j_lo, j_hi, re
         p0 = _chunk_start(sorted_x, shift[0], j0)
         small = size < CHUNK // 8       # few rays: plain order (sorting would not pay)
         for q in range(size if small else CHUNK):
-            if small:
-                kk = q
-            else:                       # rays in increasing u0: neighbouring origins
-                kk = perm[(p0 + q) % CHUNK]
-                if kk >= size:
-                    continue
+            kk = _ray_in_chunk(q, small, perm, p0, size)
+            if kk < 0:
+                continue
             j = j0 + kk
             s, fct, x, y, z, dx, dy, dz = _emit(emit, geo, node, shift, j)
             g, t, front = closest_hit(arrays, x, y, z, dx, dy, dz, np.inf, fct)
@@ -367,12 +378,9 @@ def _gebhart_kernel(arrays, emit, geo, absorb, specular, pair_node, pair_round, 
         p0 = _chunk_start(sorted_x, shift[0], j0)
         small = size < CHUNK // 8       # few rays: plain order (sorting would not pay)
         for q in range(size if small else CHUNK):
-            if small:
-                kk = q
-            else:                       # rays in increasing u0: neighbouring origins
-                kk = perm[(p0 + q) % CHUNK]
-                if kk >= size:
-                    continue
+            kk = _ray_in_chunk(q, small, perm, p0, size)
+            if kk < 0:
+                continue
             j = j0 + kk
             s, fct, x, y, z, dx, dy, dz = _emit(emit, geo, node, shift, j)
             base = rshift | (np.uint64(j) << np.uint64(16))
