@@ -1,14 +1,14 @@
 """Small hand-built geometries and trajectories for tests/test_heating.py.
 
-Geometry objects are assembled here directly (not through the model loader), with every
-field filled, so that the heating tests depend only on the documented interfaces.
+Geometry objects are assembled here with vfactor.geometry.assemble_geometry (not through
+the model loader), so that the heating tests depend only on the documented interfaces.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from vfactor.geometry import Coating, Geometry, NodeTable
+from vfactor.geometry import Coating, assemble_geometry
 from vfactor.planet import Planet
 from vfactor.trajectory import Trajectory
 
@@ -66,35 +66,12 @@ def make_geometry(parts, coatings):
             nodes_out.extend([node_names.index(node)] * len(t))
             coats_out.extend([coat_names.index(coat)] * len(t))
         part_idx.extend([p_i] * len(t))
-    vertices = np.concatenate(verts)
-    triangles = np.concatenate(tris)
-    a = vertices[triangles[:, 0]]
-    b = vertices[triangles[:, 1]]
-    c = vertices[triangles[:, 2]]
-    cross = np.cross(b - a, c - a)
-    areas = 0.5 * np.linalg.norm(cross, axis=1)
-    normals = cross / (2 * areas[:, None])
-    front_node = np.array(front_node, np.int32)
-    back_node = np.array(back_node, np.int32)
-    n = len(node_names)
-    node_area = (np.bincount(front_node[front_node >= 0], areas[front_node >= 0], minlength=n)
-                 + np.bincount(back_node[back_node >= 0], areas[back_node >= 0], minlength=n))
-    count = (np.bincount(front_node[front_node >= 0], minlength=n)
-             + np.bincount(back_node[back_node >= 0], minlength=n))
-    cs = [coatings[c] for c in node_coat]
-    nodes = NodeTable(
-        names=tuple(node_names), area=node_area,
-        solar_absorptivity=np.array([c.solar_absorptivity for c in cs]),
-        ir_emissivity=np.array([c.ir_emissivity for c in cs]),
-        solar_specular=np.array([c.solar_specular for c in cs]),
-        ir_specular=np.array([c.ir_specular for c in cs]),
-        coating=tuple(node_coat), facet_count=count)
-    return Geometry(
-        vertices=vertices, triangles=triangles, normals=normals, areas=areas,
-        centroids=(a + b + c) / 3, front_node=front_node, back_node=back_node,
-        front_coating=np.array(front_coat, np.int32), back_coating=np.array(back_coat, np.int32),
-        part=np.array(part_idx, np.int32), part_names=tuple(f"part{i}" for i in range(len(parts))),
-        coatings=tuple(coatings[c] for c in coat_names), nodes=nodes)
+    return assemble_geometry(
+        np.concatenate(verts), np.concatenate(tris), front_node=front_node,
+        back_node=back_node, front_coating=front_coat, back_coating=back_coat, part=part_idx,
+        part_names=tuple(f"part{i}" for i in range(len(parts))),
+        coatings=tuple(coatings[c] for c in coat_names), node_names=node_names,
+        node_coatings=[coatings[c] for c in node_coat])
 
 
 def make_trajectory(sun_body, nadir_body, planet_distance, sun_fraction=None, time=None,

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from vfactor.geometry import Coating, Geometry, NodeTable
+from vfactor.geometry import Coating, assemble_geometry
 
 BLACK = Coating("black", 1.0, 1.0, 0.0, 0.0)
 
@@ -164,30 +164,8 @@ def make_geometry(sheets, coatings=None):
         bc += [b_coat] * m
         part += [k] * m
         part_names.append(sheet.get("part", f"part{k}"))
-    V = np.ascontiguousarray(np.vstack(verts))
-    T = np.ascontiguousarray(np.vstack(tris))
-    cr = np.cross(V[T[:, 1]] - V[T[:, 0]], V[T[:, 2]] - V[T[:, 0]])
-    areas = 0.5 * np.linalg.norm(cr, axis=1)
-    normals = cr / (2.0 * areas[:, None])
-    fn = np.array(fn, np.int32)
-    bn = np.array(bn, np.int32)
-    n = len(node_names)
-    node_area = np.zeros(n)
-    count = np.zeros(n, np.int64)
-    for side in (fn, bn):
-        ok = side >= 0
-        np.add.at(node_area, side[ok], areas[ok])
-        np.add.at(count, side[ok], 1)
-    props = [coatings[c] for c in node_coat]
-    nodes = NodeTable(
-        names=tuple(node_names), area=node_area,
-        solar_absorptivity=np.array([c.solar_absorptivity for c in props]),
-        ir_emissivity=np.array([c.ir_emissivity for c in props]),
-        solar_specular=np.array([c.solar_specular for c in props]),
-        ir_specular=np.array([c.ir_specular for c in props]),
-        coating=tuple(node_coat), facet_count=count)
-    return Geometry(vertices=V, triangles=T, normals=normals, areas=areas,
-                    centroids=V[T].mean(axis=1), front_node=fn, back_node=bn,
-                    front_coating=np.array(fc, np.int32), back_coating=np.array(bc, np.int32),
-                    part=np.array(part, np.int32), part_names=tuple(part_names),
-                    coatings=tuple(coatings[c] for c in coat_names), nodes=nodes)
+    return assemble_geometry(
+        np.vstack(verts), np.vstack(tris), front_node=fn, back_node=bn, front_coating=fc,
+        back_coating=bc, part=part, part_names=part_names,
+        coatings=tuple(coatings[c] for c in coat_names), node_names=node_names,
+        node_coatings=[coatings[c] for c in node_coat])

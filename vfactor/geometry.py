@@ -37,7 +37,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["Coating", "NodeTable", "Geometry", "build_geometry", "part_rotation"]
+__all__ = ["Coating", "NodeTable", "Geometry", "assemble_geometry", "build_geometry",
+           "part_rotation"]
 
 
 @dataclass(frozen=True)
@@ -299,6 +300,40 @@ def build_geometry(model, problems: list | None = None) -> "Geometry":
     front_coat = cat(front_coat_all, np.int32)
     back_coat = cat(back_coat_all, np.int32)
 
+    node_coats = [model.coatings[node_coating[i][0]] for i in range(len(node_names))]
+    return assemble_geometry(
+        vertices, triangles, front_node=front_node, back_node=back_node,
+        front_coating=front_coat, back_coating=back_coat, part=part_idx,
+        part_names=part_names, coatings=coatings, node_names=node_names,
+        node_coatings=node_coats, part_closed=part_closed, part_shapes=part_shapes)
+
+
+def assemble_geometry(vertices, triangles, *, front_node, back_node, front_coating,
+                      back_coating, part, part_names, coatings, node_names, node_coatings,
+                      part_closed=None, part_shapes=None) -> "Geometry":
+    """A :class:`Geometry` from flat facet arrays and side assignments.
+
+    Facet normals, areas and centroids and the node table (areas, facet counts, coating
+    properties) are derived here, once, for the model builder and for hand-made test
+    geometry alike.
+
+    Parameters
+    ----------
+    vertices : (v, 3) float [m]; triangles : (f, 3) int
+    front_node, back_node, front_coating, back_coating, part : (f,) int — -1 = inert side
+    part_names : sequence of str; coatings : sequence of Coating (indexed by *_coating)
+    node_names : sequence of str, (n,); node_coatings : sequence of Coating, (n,)
+    part_closed, part_shapes : sequence, optional — per part
+
+    Returns
+    -------
+    Geometry
+        Zero-area facets get a zero normal (the checks report them).
+    """
+    vertices = np.ascontiguousarray(vertices, np.float64)
+    triangles = np.ascontiguousarray(triangles, np.int64)
+    front_node = np.ascontiguousarray(front_node, np.int32)
+    back_node = np.ascontiguousarray(back_node, np.int32)
     v = vertices[triangles]
     cross = np.cross(v[:, 1] - v[:, 0], v[:, 2] - v[:, 0]).reshape(-1, 3)
     norm = np.linalg.norm(cross, axis=1)
@@ -315,17 +350,21 @@ def build_geometry(model, problems: list | None = None) -> "Geometry":
         active = nodes >= 0
         area += np.bincount(nodes[active], weights=areas[active], minlength=n)
         count += np.bincount(nodes[active], minlength=n)
-    node_coats = [model.coatings[node_coating[i][0]] for i in range(n)]
     table = NodeTable(
         names=tuple(node_names),
         area=area,
-        solar_absorptivity=np.array([c.solar_absorptivity for c in node_coats], float),
-        ir_emissivity=np.array([c.ir_emissivity for c in node_coats], float),
-        solar_specular=np.array([c.solar_specular for c in node_coats], float),
-        ir_specular=np.array([c.ir_specular for c in node_coats], float),
-        coating=tuple(c.name for c in node_coats),
+        solar_absorptivity=np.array([c.solar_absorptivity for c in node_coatings], float),
+        ir_emissivity=np.array([c.ir_emissivity for c in node_coatings], float),
+        solar_specular=np.array([c.solar_specular for c in node_coatings], float),
+        ir_specular=np.array([c.ir_specular for c in node_coatings], float),
+        coating=tuple(c.name for c in node_coatings),
         facet_count=count,
     )
+    extra = {}
+    if part_closed is not None:
+        extra["part_closed"] = tuple(part_closed)
+    if part_shapes is not None:
+        extra["part_shapes"] = tuple(part_shapes)
     return Geometry(
         vertices=vertices,
         triangles=triangles,
@@ -334,12 +373,11 @@ def build_geometry(model, problems: list | None = None) -> "Geometry":
         centroids=np.ascontiguousarray(centroids, np.float64),
         front_node=front_node,
         back_node=back_node,
-        front_coating=front_coat,
-        back_coating=back_coat,
-        part=part_idx,
+        front_coating=np.ascontiguousarray(front_coating, np.int32),
+        back_coating=np.ascontiguousarray(back_coating, np.int32),
+        part=np.ascontiguousarray(part, np.int32),
         part_names=tuple(part_names),
-        coatings=coatings,
+        coatings=tuple(coatings),
         nodes=table,
-        part_closed=tuple(part_closed),
-        part_shapes=tuple(part_shapes),
+        **extra,
     )
