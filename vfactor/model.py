@@ -99,7 +99,7 @@ _SHAPE_KEYS = {
     "cone": ("radius", "top_radius", "length", "caps", "segments"),
     "sphere": ("radius", "segments"),
     "dish": ("radius", "depth", "segments"),
-    "mesh": ("file", "scale", "closed"),
+    "mesh": ("file", "scale", "closed", "file_unit"),
 }
 _REQUIRED_SHAPE_KEYS = {
     "rectangle": ("size",),
@@ -284,6 +284,11 @@ class _Reader:
     def warning(self, where: str, message: str):
         if self.problems is not None:
             self.problems.append(Problem("warning", self.file, where, message))
+
+    def note(self, where: str, message: str):
+        """Information that ``check`` shows (not a problem)."""
+        if self.problems is not None:
+            self.problems.append(Problem("note", self.file, where, message))
 
     # ---- value helpers ---------------------------------------------------------------
     def table(self, value, where: str) -> dict:
@@ -551,11 +556,17 @@ def _read_side(value, where: str, reader: _Reader, coatings: dict) -> Side:
         reader.error(where, "give either 'node' (one named node) or 'nodes' (a mode), not both")
     if "node" in tab:
         node = reader.string(tab["node"], f"{where} node").strip()
+        if node in NODE_MODES:
+            reader.warning(f"{where} node", f"node = {node!r} makes one node literally "
+                           f"named {node!r}; for the node mode write nodes = {node!r}")
         return Side(coating=coating, node=node, nodes="single")
     mode = tab.get("nodes", "single")
     if mode not in NODE_MODES:
-        reader.error(f"{where} nodes", f"unknown node mode {_show(mode)}; use one of "
-                     f"{', '.join(NODE_MODES)}")
+        hint = _hint(mode, NODE_MODES)
+        if not hint and isinstance(mode, str) and mode.strip():
+            hint = f" (to name one node {mode!r}, write node = {mode!r})"
+        reader.error(f"{where} nodes", f"unknown node mode {_show(mode)}{hint}; use one "
+                     f"of {', '.join(NODE_MODES)}")
     return Side(coating=coating, node=None, nodes=mode)
 
 
@@ -660,7 +671,7 @@ def _read_part(tab, pname, shape, index, where, reader, coatings, scale, base) -
         params["file"] = str((base / fname).resolve()) if not Path(fname).is_absolute() \
             else fname
         s = reader.positive(tab.get("scale", 1.0), f"{where} scale")
-        params["scale"] = s * scale
+        params["scale"] = s * _mesh_unit(tab, fname, where, reader, scale, s)
         params["closed"] = (reader.boolean(tab["closed"], f"{where} closed")
                             if "closed" in tab else None)
     center = tuple(c * scale for c in reader.vector(tab.get("center", [0.0, 0.0, 0.0]),
@@ -684,6 +695,36 @@ def _read_part(tab, pname, shape, index, where, reader, coatings, scale, base) -
         reader.warning(where, "no front and no back side: the part only casts shadows")
     return Part(name=pname, shape=shape, parameters=params, center=center, z_axis=z_axis,
                 x_axis=x_axis, max_edge=max_edge, front=front, back=back, index=index)
+
+
+def _mesh_unit(tab, fname, where, reader, scale, user_scale) -> float:
+    """Metres per coordinate of a mesh file, before its ``scale``.
+
+    ``file_unit`` (one of :data:`LENGTH_UNITS`) wins; otherwise the unit the format states
+    (:func:`vfactor.shapes.stated_file_unit`: STEP and glTF come back in metres), and the
+    model's ``length_unit`` only for formats that state none. A length is never scaled
+    twice.
+    """
+    from vfactor.shapes import stated_file_unit
+
+    if "file_unit" in tab:
+        unit = tab["file_unit"]
+        if not isinstance(unit, str) or unit not in LENGTH_UNITS:
+            reader.error(f"{where} file_unit", f"unknown length unit {_show(unit)}; use one "
+                         f"of {', '.join(LENGTH_UNITS)}")
+        return LENGTH_UNITS[unit]
+    stated = stated_file_unit(fname)
+    if stated is None:
+        return scale
+    unit, why = stated
+    reader.note(where, f"mesh file {fname!r} states its unit ({why}); its coordinates "
+                f"are read in {unit}, not in the model's length unit (set file_unit to "
+                f"override)")
+    if user_scale != 1.0:
+        reader.warning(f"{where} scale", f"scale = {user_scale:g} multiplies a file that "
+                       f"already states its unit ({unit}): the part becomes {user_scale:g} "
+                       f"times its size in the file; remove scale unless that is meant")
+    return LENGTH_UNITS[unit]
 
 
 def _read_radiation(value, reader: _Reader) -> RadiationSettings:

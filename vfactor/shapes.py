@@ -36,6 +36,16 @@ a single geometry is split into connected flat regions (adjacent coplanar facets
 ``0, 1, 2, ...`` in order of their first facet. ``per-face`` on a mesh is the same as
 ``per-group``.
 
+Group names are the file's own names and do not depend on the loader's run: where
+trimesh invents a frame name with a random suffix (a glTF mesh of several primitives) the
+geometry's name is used. Geometries are ordered by name, ties by a hash of their placed
+coordinates; repeated names get ``.1``, ``.2``, ... in that order.
+
+Units: STEP files (read through ``cascadio``, which converts them to glTF) and glTF files
+come back in metres (the glTF 2.0 specification, section 3.4: "the units for all linear
+distances are meters"); :func:`stated_file_unit` says so and :mod:`vfactor.model` then
+does not apply ``length_unit`` to their coordinates. STL, OBJ, PLY and OFF state no unit.
+
 Refinement
 ----------
 Vertices always lie on the exact surface. ``max_edge`` (metres) refines until no edge is
@@ -46,8 +56,10 @@ The facet area of a curved shape converges to :func:`exact_area` as ``max_edge``
 
 from __future__ import annotations
 
+import hashlib
 import math
 import os
+import re
 from dataclasses import dataclass
 
 import numpy as np
@@ -55,6 +67,7 @@ import numpy as np
 from vfactor.errors import MeshError, ModelError
 
 __all__ = ["Tessellation", "tessellate", "exact_area", "estimated_facets", "read_mesh",
+           "stated_file_unit",
            "triangle_areas", "max_edge_length", "mesh_is_watertight",
            "mesh_winding_consistent"]
 
@@ -500,6 +513,28 @@ def exact_area(part) -> float | None:
 # --------------------------------------------------------------------------------------
 # Mesh files
 # --------------------------------------------------------------------------------------
+STATED_UNITS = {".step": ("m", "STEP, converted to metres on import by cascadio"),
+                ".stp": ("m", "STEP, converted to metres on import by cascadio"),
+                ".glb": ("m", "glTF 2.0 specification section 3.4: metres"),
+                ".gltf": ("m", "glTF 2.0 specification section 3.4: metres")}
+"""Mesh formats whose coordinates come back from the loader in a stated unit:
+suffix -> (unit, why)."""
+
+
+def stated_file_unit(path) -> tuple | None:
+    """The unit a mesh file's coordinates come back in, when its format states one.
+
+    Parameters
+    ----------
+    path : str — the mesh file (only its suffix is looked at)
+
+    Returns
+    -------
+    (unit, reason) with unit a key of :data:`vfactor.model.LENGTH_UNITS`, or None when the
+    format states no unit (STL, OBJ, PLY, OFF: then the model's ``length_unit`` applies).
+    """
+    return STATED_UNITS.get(os.path.splitext(str(path))[1].lower())
+
 
 def read_mesh(path, scale: float = 1.0, max_edge: float | None = None,
               closed: bool | None = None, where: str = "", shown_name: str | None = None
@@ -535,19 +570,27 @@ def read_mesh(path, scale: float = 1.0, max_edge: float | None = None,
         loaded = trimesh.load_scene(path, process=False, **options)
     # trimesh's format loaders raise many unrelated exception types on a damaged file
     # (ValueError, KeyError, IndexError, struct.error, ...); each becomes a MeshError.
+    except ImportError as exc:
+        package = getattr(exc, "name", None) or str(exc)
+        raise MeshError(f"cannot read mesh file {name!r}: its loader needs the package "
+                        f"{package!r}, which is not installed (pip install {package})",
+                        where=where) from None
     except Exception as exc:  # noqa: BLE001
         raise MeshError(f"cannot read mesh file {name!r}: {type(exc).__name__}: {exc}",
                         where=where) from None
-    pieces = []   # (label, vertices, faces), in order of the geometry names
+    pieces = []   # (label, vertices, faces)
     others = set()
-    for node in sorted(loaded.graph.nodes_geometry):
+    parents = loaded.graph.transforms.parents
+    for node in loaded.graph.nodes_geometry:
         transform, gname = loaded.graph[node]
         geom = loaded.geometry.get(gname)
         if not isinstance(geom, trimesh.Trimesh):
             others.add(type(geom).__name__)
             continue
         v = trimesh.transform_points(np.asarray(geom.vertices, float), transform)
-        pieces.append((str(node), v, np.asarray(geom.faces, np.int64)))
+        pieces.append((_piece_label(str(node), parents.get(node), str(gname)), v,
+                       np.asarray(geom.faces, np.int64)))
+    pieces.sort(key=_piece_key)
     if not pieces and others:
         raise MeshError(f"mesh file {name!r} holds no triangles (found "
                         f"{', '.join(sorted(others))})", where=where)
@@ -592,6 +635,35 @@ def read_mesh(path, scale: float = 1.0, max_edge: float | None = None,
     return Tessellation(np.ascontiguousarray(verts, np.float64), tris.astype(np.int64),
                         tuple(labels), face.astype(np.int64), closed=is_closed,
                         one_face=False)
+
+
+_LOADER_FRAME = re.compile(r"^(?P<parent>.+)_[0-9A-Za-z]{6}$")
+
+
+def _piece_label(node: str, parent, geometry_name: str) -> str:
+    """The file's own name for one placed geometry.
+
+    A named node (glTF node, OBJ object) gives its name. Two kinds of frame name are the
+    loader's own invention, and for them the (deterministic) geometry name is used: the
+    frames of a glTF mesh with several primitives, which trimesh names ``PARENT_XXXXXX``
+    with a random six-character suffix that changes on every load, and unnamed nodes,
+    which it numbers (``1``, ``2``: the bodies of a STEP file, whose names are those of
+    their products).
+    """
+    m = _LOADER_FRAME.match(node)
+    if (m and parent is not None and m.group("parent") == str(parent)) or node.isdigit():
+        return geometry_name
+    return node
+
+
+def _piece_key(piece) -> tuple:
+    """Order of the pieces of a mesh file: by label, ties by a hash of their placed
+    coordinates and faces, so that neither the loader's naming nor the order of the
+    file decides which of two equally named pieces comes first."""
+    label, v, f = piece
+    digest = hashlib.sha256(np.ascontiguousarray(v, np.float64).tobytes()
+                            + np.ascontiguousarray(f, np.int64).tobytes()).hexdigest()
+    return (label, digest)
 
 
 def mesh_is_watertight(vertices: np.ndarray, triangles: np.ndarray) -> bool:

@@ -1,0 +1,200 @@
+"""Real mesh files in: stated units, stable names of multi-primitive glTF, unit-slip and
+node-key guards (vfactor.shapes.read_mesh, vfactor.model, vfactor.checks).
+
+Outside references:
+* glTF 2.0 specification (Khronos Group), section 3.4 "Coordinate System and Units": the
+  units of all linear distances are metres; section 5.24 (mesh.primitives): one mesh may
+  hold several primitives.
+* Areas of the boxes: the closed form 2 (ab + bc + ca) (CRC Standard Mathematical Tables,
+  31st ed., mensuration of solids), compared with trimesh's ``Trimesh.area`` of the box as
+  it was written (an independent library).
+All fixtures are generated in the tests (self-made, no licence needed).
+"""
+
+from __future__ import annotations
+
+import json
+import struct
+
+import numpy as np
+import pytest
+import trimesh
+
+from vfactor.checks import check_model, format_check_report
+from vfactor.geometry import build_geometry
+from vfactor.model import load_model
+from vfactor.shapes import read_mesh
+
+
+def _glb_with_primitives(path, boxes) -> None:
+    """Write a GLB whose single mesh (one node) holds one primitive per box.
+
+    ``boxes``: list of (name, extents, offset) in metres. trimesh writes each box as its
+    own mesh; the JSON is then rewritten so that one mesh carries them all as primitives,
+    the layout that CAD exporters produce for a multi-material body.
+    """
+    scene = trimesh.Scene()
+    for name, extents, offset in boxes:
+        box = trimesh.creation.box(extents=extents)
+        box.apply_translation(offset)
+        scene.add_geometry(box, geom_name=name, node_name=name)
+    data = scene.export(file_type="glb")
+    (json_len,) = struct.unpack_from("<I", data, 12)
+    doc = json.loads(data[20:20 + json_len])
+    rest = data[20 + json_len:]
+    prims = [p for m in doc["meshes"] for p in m["primitives"]]
+    doc["meshes"] = [{"name": "bus", "primitives": prims}]
+    doc["nodes"] = [{"name": "bus", "mesh": 0}]
+    doc["scenes"] = [{"nodes": [0]}]
+    doc["scene"] = 0
+    text = json.dumps(doc).encode()
+    text += b" " * (-len(text) % 4)
+    body = struct.pack("<II", len(text), 0x4E4F534A) + text + rest
+    path.write_bytes(struct.pack("<4sII", b"glTF", 2, 12 + len(body)) + body)
+
+
+BOXES = [("panel", (0.2, 0.3, 0.01), (0.0, 0.0, 0.0)),
+         ("panel", (0.2, 0.3, 0.01), (0.0, 0.0, 0.5)),
+         ("frame", (0.1, 0.1, 0.1), (1.0, 0.0, 0.0))]
+
+
+def test_multi_primitive_glb_names_are_stable(tmp_path):
+    # the loader itself names such frames at random on every load (the defect guarded)
+    path = tmp_path / "bus.glb"
+    _glb_with_primitives(path, BOXES)
+    frames = [set(trimesh.load_scene(path).graph.nodes_geometry) for _ in range(2)]
+    assert frames[0] != frames[1]
+    first = read_mesh(str(path))
+    second = read_mesh(str(path))
+    assert first.labels == second.labels
+    assert np.array_equal(first.vertices, second.vertices)
+    assert np.array_equal(first.triangles, second.triangles)
+    assert np.array_equal(first.face, second.face)
+    # glTF primitives carry no name: the pieces take the mesh's name, numbered in the
+    # file's primitive order (trimesh's deterministic geometry names)
+    assert first.labels == ("bus", "bus_1", "bus_2")
+    for k, (_, (a, b, c), _) in enumerate(BOXES):
+        sel = first.face == k
+        v = first.vertices[first.triangles[sel]]
+        area = 0.5 * np.linalg.norm(np.cross(v[:, 1] - v[:, 0], v[:, 2] - v[:, 0]),
+                                    axis=1).sum()
+        # glTF stores float32 coordinates: relative rounding up to ~6e-8 per coordinate
+        assert area == pytest.approx(2 * (a * b + b * c + c * a), rel=1e-6), k
+
+
+def test_two_runs_of_a_multi_primitive_glb_give_the_same_nodes(tmp_path):
+    _glb_with_primitives(tmp_path / "bus.glb", BOXES)
+    model_file = tmp_path / "m.toml"
+    model_file.write_text(
+        '[coatings.w]\nsolar_absorptivity = 0.2\nir_emissivity = 0.8\n'
+        '[[parts]]\nname = "sat"\nshape = "mesh"\nfile = "bus.glb"\n'
+        'front = { coating = "w", nodes = "per-group" }\n')
+    names = [build_geometry(load_model(model_file)).nodes.names for _ in range(2)]
+    assert names[0] == names[1]
+    assert names[0] == ("sat.bus", "sat.bus_1", "sat.bus_2")
+
+
+def _box_model(tmp_path, suffix, unit="mm", extra=""):
+    trimesh.creation.box(extents=(1.0, 2.0, 0.5)).export(tmp_path / f"box.{suffix}")
+    path = tmp_path / "m.toml"
+    path.write_text(
+        f'[model]\nlength_unit = "{unit}"\n'
+        '[coatings.w]\nsolar_absorptivity = 0.2\nir_emissivity = 0.8\n'
+        f'[[parts]]\nname = "box"\nshape = "mesh"\nfile = "box.{suffix}"\n{extra}'
+        'front = { coating = "w" }\n')
+    return path
+
+
+EXACT_BOX_AREA = 2 * (1.0 * 2.0 + 2.0 * 0.5 + 0.5 * 1.0)   # m2, closed form
+
+
+def test_gltf_coordinates_are_metres_whatever_the_length_unit(tmp_path):
+    path = _box_model(tmp_path, "glb")
+    g = build_geometry(load_model(path))
+    assert g.areas.sum() == pytest.approx(EXACT_BOX_AREA, rel=1e-6)  # float32 in glTF
+    report = check_model(path)
+    assert report.ok and not report.warnings, format_check_report(report)
+    notes = [p for p in report.problems if p.severity == "note"]
+    assert len(notes) == 1 and "states its unit" in notes[0].message
+
+
+def test_stl_coordinates_take_the_length_unit(tmp_path):
+    # STL states no unit: 1 x 2 x 0.5 read in mm is 1e-6 of the area in m2
+    g = build_geometry(load_model(_box_model(tmp_path, "stl")))
+    assert g.areas.sum() == pytest.approx(EXACT_BOX_AREA * 1e-6, rel=1e-12)
+
+
+def test_file_unit_overrides_the_stated_unit(tmp_path):
+    g = build_geometry(load_model(_box_model(tmp_path, "glb", extra='file_unit = "cm"\n')))
+    assert g.areas.sum() == pytest.approx(EXACT_BOX_AREA * 1e-4, rel=1e-6)  # float32
+
+
+def test_scale_on_a_file_with_a_stated_unit_warns(tmp_path):
+    report = check_model(_box_model(tmp_path, "glb", extra="scale = 0.001\n"))
+    lines = [p.line() for p in report.warnings]
+    assert any("scale = 0.001 multiplies a file that already states its unit" in w
+               for w in lines), lines
+
+
+@pytest.mark.parametrize("unit, needle", [("m", None), ("mm", "outside 0.001..300 m")])
+def test_mesh_far_too_small_is_suspected(tmp_path, unit, needle):
+    # an STL in metres read with length_unit = "mm": a 2 mm part (diagonal 2.3 mm) is
+    # plausible; build a 1 x 2 x 0.5 um one by a second factor of 1000 through scale
+    path = _box_model(tmp_path, "stl", unit=unit, extra="scale = 0.001\n")
+    report = check_model(path)
+    lines = [p.line() for p in report.warnings]
+    if needle is None:
+        assert not lines
+    else:
+        assert any(needle in w and "unit applied twice" in w for w in lines), lines
+
+
+def test_mesh_far_too_large_is_suspected(tmp_path):
+    path = _box_model(tmp_path, "stl", unit="m", extra="scale = 1000.0\n")
+    lines = [p.line() for p in check_model(path).warnings]
+    assert any('set file_unit = "mm"' in w for w in lines), lines
+
+
+def test_node_named_like_a_mode_warns(write_model):
+    path = write_model('[[parts]]\nname = "p"\nshape = "rectangle"\nsize = [1, 1]\n'
+                       'front = { coating = "w", node = "per-face" }\n')
+    lines = [p.line() for p in check_model(path).warnings]
+    assert any("write nodes = 'per-face'" in w for w in lines), lines
+
+
+def test_unknown_node_mode_suggests_node(write_model):
+    path = write_model('[[parts]]\nname = "p"\nshape = "rectangle"\nsize = [1, 1]\n'
+                       'front = { coating = "w", nodes = "antenna" }\n')
+    lines = [p.line() for p in check_model(path).errors]
+    assert len(lines) == 1 and "write node = 'antenna'" in lines[0], lines
+
+
+def test_check_prints_problems_first_in_the_one_line_form(write_model):
+    path = write_model('[[parts]]\nname = "p"\nshape = "rectangle"\nsize = [1, 1]\n'
+                       'front = { coating = "w", nodes = "antenna" }\n')
+    text = format_check_report(check_model(path))
+    assert text.splitlines()[0].startswith(f"vfactor: error: {path}: part 'p' front nodes:")
+
+
+STEP_FIXTURE = __import__("pathlib").Path(__file__).parent / "data" / "assembly_mm.step"
+"""Two bodies in millimetres, written by scripts/make_step_fixture.py (self-made)."""
+
+
+def test_step_assembly_in_mm_keeps_names_and_true_areas(tmp_path):
+    # the file is in mm (SI_UNIT(.MILLI.,.METRE.)); a model in mm must not scale it again
+    model_file = tmp_path / "m.toml"
+    model_file.write_text(
+        '[model]\nlength_unit = "mm"\n'
+        '[coatings.w]\nsolar_absorptivity = 0.2\nir_emissivity = 0.8\n'
+        f'[[parts]]\nname = "inst"\nshape = "mesh"\nfile = "{STEP_FIXTURE.as_posix()}"\n'
+        'front = { coating = "w", nodes = "per-group" }\n')
+    g = build_geometry(load_model(model_file))
+    assert g.nodes.names == ("inst.electronics", "inst.panel")
+    # closed-form box areas 2 (ab + bc + ca) in m2; the STEP-to-glTF route stores float32
+    expected = {"inst.electronics": 2 * 3 * 0.05 * 0.05,
+                "inst.panel": 2 * (0.1 * 0.2 + 0.2 * 0.01 + 0.01 * 0.1)}
+    for k, name in enumerate(g.nodes.names):
+        assert g.nodes.area[k] == pytest.approx(expected[name], rel=1e-6), name
+    report = check_model(model_file)
+    assert report.ok and not report.warnings, format_check_report(report)
+    assert any("STEP, converted to metres" in p.message for p in report.problems)
