@@ -291,6 +291,8 @@ def check_geometry(model: Model, geometry: Geometry, report: CheckReport) -> Non
                 add(Problem("warning", file, part.where,
                             "closed part with an active back side: its inside sees only "
                             "itself"))
+        if part.shape == "mesh" and len(good):
+            _check_mesh_size(part, g, good, file, add)
         if part.shape in CURVED_SHAPES and len(sel):
             exact = exact_area(part)
             diff = AreaDifference(pname, part.shape, len(sel), float(g.areas[sel].sum()),
@@ -310,6 +312,27 @@ def check_geometry(model: Model, geometry: Geometry, report: CheckReport) -> Non
 
     _check_contacts(model, g, ~degenerate, tol, report)
     _check_enclosed(model, g, ~degenerate, tol, report)
+
+
+MESH_SIZE_RANGE_M = (0.001, 300.0)
+"""Bounding-box diagonal [m] of a mesh part outside which ``check`` suspects a unit slip:
+a part of a satellite is rarely under a millimetre or over 300 m (common practice), and a
+factor of 1000 off (mm read as m, or m read as mm) lands outside this range."""
+
+
+def _check_mesh_size(part, g: Geometry, facets, file: str, add) -> None:
+    """Warn when a mesh part's size looks off by a factor of about 1000."""
+    pts = g.vertices[g.triangles[facets]].reshape(-1, 3)
+    diag = float(np.linalg.norm(pts.max(axis=0) - pts.min(axis=0)))
+    low, high = MESH_SIZE_RANGE_M
+    if low <= diag <= high:
+        return
+    cause = ("coordinates in mm read as m? set file_unit = \"mm\"" if diag > high else
+             "a unit applied twice, or metres read as mm? check length_unit, file_unit "
+             "and scale")
+    add(Problem("warning", file, part.where,
+                f"mesh file {part.parameters.get('file_as_written')!r} gives a part "
+                f"{diag:.4g} m across (outside {low:g}..{high:g} m); {cause}"))
 
 
 def _ray_crossings(origin, direction, tris) -> int:
@@ -529,7 +552,8 @@ def _point(p) -> str:
 # --------------------------------------------------------------------------------------
 
 def format_check_report(report: CheckReport) -> str:
-    """The text ``vfactor check`` prints: node table, curved-part areas, problems, verdict.
+    """The text ``vfactor check`` prints: problems (errors, warnings, notes), node table,
+    curved-part areas, verdict.
 
     Parameters
     ----------
@@ -541,6 +565,11 @@ def format_check_report(report: CheckReport) -> str:
     """
     lines = []
     m, g = report.model, report.geometry
+    order = {"error": 0, "warning": 1, "note": 2}
+    for p in sorted(report.problems, key=lambda p: order.get(p.severity, 3)):
+        lines.append(p.line())
+    if report.problems:
+        lines.append("")
     if m is not None:
         lines.append(f"model {m.name!r} ({report.path}), length unit {m.length_unit}")
     else:
@@ -568,10 +597,6 @@ def format_check_report(report: CheckReport) -> str:
             lines.append(f"{d.part:<{w}}  {d.shape:<8}  {d.facets:>7d}  "
                          f"{d.tessellated:>10.5f}  {d.exact:>10.5f}  "
                          f"{100 * d.relative:>+9.3f}%")
-    if report.problems:
-        lines.append("")
-        for p in report.problems:
-            lines.append(p.line())
     lines.append("")
     n_err, n_warn = len(report.errors), len(report.warnings)
     if n_err:

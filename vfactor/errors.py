@@ -97,7 +97,8 @@ class Problem:
     Attributes
     ----------
     severity : str
-        ``"error"`` (the model cannot be run; exit code 2) or ``"warning"`` (suspicious only).
+        ``"error"`` (the model cannot be run; exit code 2), ``"warning"`` (suspicious only)
+        or ``"note"`` (information, e.g. the unit a mesh file was read in).
     file : str
         Model file the finding belongs to.
     where : str
@@ -115,6 +116,7 @@ class Problem:
     facets: tuple = field(default_factory=tuple)
 
     def line(self) -> str:
-        """The finding as the single line printed by ``vfactor check``."""
+        """The finding as the single line printed by ``vfactor check``, in the form of every
+        other command's messages: ``vfactor: error: FILE: WHERE: WHAT``."""
         loc = ": ".join(p for p in (self.file, self.where) if p)
-        return f"{self.severity}: {loc}: {self.message}"
+        return f"vfactor: {self.severity}: {loc}: {self.message}"
