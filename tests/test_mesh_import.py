@@ -198,3 +198,16 @@ def test_step_assembly_in_mm_keeps_names_and_true_areas(tmp_path):
     report = check_model(model_file)
     assert report.ok and not report.warnings, format_check_report(report)
     assert any("STEP, converted to metres" in p.message for p in report.problems)
+
+
+@pytest.mark.parametrize("rays, warns", [(50, True), (9_800, True), (200_000, False)])
+def test_too_few_rays_warn(write_model, rays, warns):
+    # binomial relative error sqrt((1 - F) / (F N)) of F = 0.01 (Howell, Menguc & Siegel,
+    # Thermal Radiation Heat Transfer, 6th ed., ch. 7): 141 % at N = 50, 10.05 % at 9 800
+    path = write_model(f'[radiation]\nrays_per_node = {rays}\n'
+                       '[[parts]]\nname = "p"\nshape = "rectangle"\nsize = [1, 1]\n'
+                       'front = { coating = "w" }\n')
+    lines = [p.line() for p in check_model(path).warnings]
+    assert any("rays per node leave a view factor" in w for w in lines) == warns, lines
+    if rays == 50:
+        assert any("141 %" in w and "use at least 9900 rays" in w for w in lines), lines

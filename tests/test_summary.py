@@ -79,3 +79,24 @@ def test_heat_load_error_is_reported(tmp_path):
     w = summary.summarize(r)["heat_loads"]["largest_stderr"]
     assert w == {"stderr_W": 0.75, "node": "top", "source": "solar", "step": 3}
     assert "0.75 W (top, solar, step 3)" in summary.format_summary(r)
+
+
+def test_summary_warns_of_inert_losses_and_large_errors(tmp_path):
+    # guards of our own (summary.INERT_WARNING_SHARE 1 %, RELATIVE_ERROR_WARNING 5 %):
+    # the sample loses nothing to inert sides; moving 2 % of node 0's row there warns
+    kw = sample_results()
+    r = h5io.read_results(h5io.write_results(tmp_path / "a.h5", **kw))
+    base = summary.summarize(r)
+    assert not any("inert" in w for w in base["warnings"]), base["warnings"]
+    vf = kw["view_factors"]
+    inert = np.array(vf.inert, float)
+    inert[0] = 0.02
+    stderr = np.array(vf.stderr, float)
+    stderr[vf.raw_matrix >= summary.SIGNIFICANT_VIEW_FACTOR] *= 1e3
+    kw["view_factors"] = type(vf)(**{**vf.__dict__, "inert": inert, "stderr": stderr})
+    r = h5io.read_results(h5io.write_results(tmp_path / "b.h5", **kw))
+    s = summary.summarize(r)
+    assert any("2.0 % of its emission to inert sides" in w for w in s["warnings"]), s
+    assert any("run with more rays" in w for w in s["warnings"]), s["warnings"]
+    text = summary.format_summary(r)
+    assert "\nWarnings\n" in text and text.index("Warnings") < text.index("Cautions")

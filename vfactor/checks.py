@@ -198,9 +198,37 @@ def _check_settings(model: Model, report: CheckReport) -> None:
             continue
         if section == "[orbit]":
             _check_altitude(value, table, file, report)
+    _check_ray_count(model, report)
     if model.attitude_table is not None and model.orbit_table is None:
         report.problems.append(Problem("warning", file, "[attitude]",
                                        "has no effect without an [orbit] section"))
+
+
+RAY_CHECK_VIEW_FACTOR = 0.01
+"""View factor whose expected relative error ``check`` reports for the model's ray count."""
+RAY_CHECK_RELATIVE_ERROR = 0.10
+"""Relative one-sigma error of a view factor of :data:`RAY_CHECK_VIEW_FACTOR` above which
+``check`` warns that ``rays_per_node`` is too low (a threshold of our own)."""
+
+
+def _check_ray_count(model: Model, report: CheckReport) -> None:
+    """Warn when ``rays_per_node`` leaves a 1 % view factor with a large error.
+
+    The binomial one-sigma relative error of a view factor F from N rays is
+    sqrt((1 - F) / (F N)) (e.g. Howell, Menguc & Siegel, Thermal Radiation Heat Transfer,
+    6th ed., 2016, ch. 7 on Monte Carlo error); the stratified sampling of the tracer does
+    better, so this is an upper estimate.
+    """
+    rays = model.radiation.rays_per_node
+    F = RAY_CHECK_VIEW_FACTOR
+    rel = ((1.0 - F) / (F * rays)) ** 0.5
+    if rel > RAY_CHECK_RELATIVE_ERROR:
+        needed = int(np.ceil((1.0 - F) / (F * RAY_CHECK_RELATIVE_ERROR ** 2)))
+        report.problems.append(Problem(
+            "warning", report.path, "[radiation] rays_per_node",
+            f"{rays} rays per node leave a view factor of {F:g} with up to "
+            f"{100 * rel:.0f} % relative error (one sigma); use at least {needed} rays or "
+            f"set target_error"))
 
 
 ALTITUDE_WARNING_KM = 100_000.0

@@ -360,7 +360,7 @@ class _Checkpoint:
 # View factors over a runner
 # ---------------------------------------------------------------------------------------
 #: Share of a node's emission lost on inert sides above which the run says so [1].
-INERT_NOTE_SHARE = 0.10
+INERT_NOTE_SHARE = 0.01
 
 
 def _inert_notes(geometry, view_factors) -> list:

@@ -36,6 +36,29 @@ CAUTIONS = (
     "licensed engineering practice.",
 )
 
+INERT_WARNING_SHARE = 0.01
+"""Share of a node's emission lost on inert sides above which the summary warns [1]: that
+heat leaves the network unaccounted (a guard of our own; see ``vfactor check``)."""
+RELATIVE_ERROR_WARNING = 0.05
+"""Largest one-sigma relative error of a significant view factor above which the summary
+warns that the ray count is too low [1] (a reporting threshold of our own)."""
+
+
+def _warnings(names, inert, relative_error) -> list:
+    """Findings in the numbers of a results file that are probably a modelling slip."""
+    out = []
+    for name, share in zip(names, inert):
+        if share > INERT_WARNING_SHARE:
+            out.append(f"node {name!r} sends {100 * share:.1f} % of its emission to inert "
+                       f"sides, where it leaves the network unaccounted; give those sides "
+                       f"a coating and a node (a back = {{ ... }} table)")
+    if relative_error > RELATIVE_ERROR_WARNING:
+        out.append(f"the largest relative error of a significant view factor is "
+                   f"{100 * relative_error:.1f} % (one sigma); run with more rays "
+                   f"(--rays, or [radiation] target_error)")
+    return out
+
+
 _SOURCES = ("solar", "albedo", "planet_ir")
 _SOURCE_LABEL = {"solar": "solar", "albedo": "albedo", "planet_ir": "planet IR",
                  "total": "total"}
@@ -174,6 +197,11 @@ def summarize(results: Results, top: int = 15) -> dict:
             "exchange_method": None if ex is None else ex.method,
         }
 
+    warnings = []
+    if vf is not None:
+        warnings = _warnings(nodes.names, vf.inert,
+                             accuracy["largest_relative_stderr_significant"])
+
     heat = results.heating
     loads = None
     if heat is not None:
@@ -205,7 +233,7 @@ def summarize(results: Results, top: int = 15) -> dict:
 
     return {"provenance": prov, "nodes": node_rows, "couplings": couplings, "space": space,
             "accuracy": accuracy, "orbit": _orbit_facts(results), "heat_loads": loads,
-            "cautions": list(CAUTIONS)}
+            "warnings": warnings, "cautions": list(CAUTIONS)}
 
 
 def _finite(value):
@@ -361,6 +389,11 @@ def format_summary(results: Results, top: int = 15) -> str:
                          f"{_g(w['stderr_W'])} W ({w['node']}, {_SOURCE_LABEL[w['source']]}, "
                          f"step {w['step']})")
 
+    if s["warnings"]:
+        lines += ["", "Warnings"]
+        for w in s["warnings"]:
+            lines += textwrap.wrap(w, width=92, initial_indent="  - ",
+                                   subsequent_indent="    ")
     lines += ["", "Cautions"]
     for c in CAUTIONS:
         lines += textwrap.wrap(c, width=92, initial_indent="  - ", subsequent_indent="    ")
