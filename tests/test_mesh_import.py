@@ -211,3 +211,30 @@ def test_too_few_rays_warn(write_model, rays, warns):
     assert any("rays per node leave a view factor" in w for w in lines) == warns, lines
     if rays == 50:
         assert any("141 %" in w and "use at least 9900 rays" in w for w in lines), lines
+
+
+# ---- messages that named the wrong thing (the fixes of the list) -------------
+BOX = ('[[parts]]\nname = "p"\nshape = "box"\nsize = [1, 1, 1]\n'
+       'front = { coating = "w" }\n')
+EPOCH = 'epoch = "2027-03-21T00:00:00Z"\n'
+
+
+@pytest.mark.parametrize("orbit, needle", [
+    ("inclination_deg = 97\n", "[orbit]: no orbit size given: write altitude_km"),
+    ("altitude = 500\n", "did you mean 'altitude_km', a key of type = 'circular'?"),
+    ('type = "circular"\naltitude = 500\n', "(did you mean 'altitude_km'?)"),
+    ('type = "circular"\naltitude_km = 500\napogee_km = 600\n',
+     "('apogee_km' is a key of type = 'elements')"),
+])
+def test_orbit_messages_name_the_right_key(write_model, orbit, needle):
+    path = write_model(BOX + "[orbit]\n" + EPOCH + orbit)
+    lines = [p.line() for p in check_model(path).errors]
+    assert len(lines) == 1 and needle in lines[0], lines
+
+
+def test_one_coating_typo_is_one_error(write_model):
+    text = ('[coatings.v]\nsolar_absorptivty = 0.2\nir_emissivity = 0.8\n'
+            '[[parts]]\nname = "p"\nshape = "box"\nsize = [1, 1, 1]\n'
+            'front = { coating = "v" }\nback = { coating = "v" }\n')
+    lines = [p.line() for p in check_model(write_model(text)).errors]
+    assert len(lines) == 1 and "did you mean 'solar_absorptivity'?" in lines[0], lines

@@ -267,6 +267,7 @@ class _Reader:
     problems: list | None  # None: strict
 
     found: list = field(default_factory=list)
+    broken_coatings: set = field(default_factory=set)   # defined, but with a bad value
 
     def error(self, where: str, message: str, fatal_for_item: bool = True):
         if self.problems is None:
@@ -515,11 +516,15 @@ def _read_coatings(value, reader: _Reader) -> dict:
             reader.unknown_keys(tab, _COATING_KEYS, where, "coating")
             props = {}
             bad = False
+            near_misses = {m for k in tab if k not in _COATING_KEYS
+                           for m in difflib.get_close_matches(str(k), _COATING_KEYS, n=1)}
             for key in ("solar_absorptivity", "ir_emissivity", "solar_specular",
                         "ir_specular"):
                 if key not in tab:
                     if key in ("solar_absorptivity", "ir_emissivity"):
-                        reader.soft_error(f"{where} {key}", f"missing required key {key!r}")
+                        if key not in near_misses:   # a misspelling is reported once
+                            reader.soft_error(f"{where} {key}",
+                                              f"missing required key {key!r}")
                         bad = True
                     continue
                 try:
@@ -535,6 +540,7 @@ def _read_coatings(value, reader: _Reader) -> dict:
                     except _Invalid:
                         pass
             if bad:
+                reader.broken_coatings.add(cname)
                 continue
             coatings[cname] = Coating(name=cname, source=source, **props)
         except _Invalid:
@@ -548,6 +554,8 @@ def _read_side(value, where: str, reader: _Reader, coatings: dict) -> Side:
     if "coating" not in tab:
         reader.error(where, "missing key 'coating'")
     coating = reader.string(tab["coating"], f"{where} coating")
+    if coating in reader.broken_coatings:
+        raise _Invalid()   # the coating's own error says what is wrong, once
     if coating not in coatings:
         known = ", ".join(coatings) or "none defined"
         reader.error(f"{where} coating", f"unknown coating {coating!r}"

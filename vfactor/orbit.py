@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import functools
+import difflib
 import math
 from dataclasses import dataclass
 
@@ -82,11 +83,26 @@ class _TableReader:
     def has(self, key: str) -> bool:
         return key in self.table
 
-    def check_keys(self, allowed, context: str) -> None:
+    def check_keys(self, allowed, context: str, others: dict | None = None) -> None:
+        """Refuse keys outside ``allowed``; suggest a near miss, also among the keys of
+        other kinds (``others``: kind -> keys), naming the kind it belongs to."""
+        others = others or {}
+        pool = sorted(set(allowed).union(*others.values()))
         for key, value in self.table.items():
-            if key not in allowed:
-                raise self.error(key, f"unknown key (value {value!r}) {context}; "
-                                 f"known keys: {', '.join(sorted(allowed))}")
+            if key in allowed:
+                continue
+            close = difflib.get_close_matches(str(key), pool, n=1)
+            exact = [k for k, keys in others.items() if key in keys]
+            hint = ""
+            if exact:
+                hint = f" ({key!r} is a key of type = {exact[0]!r})"
+            elif close:
+                owner = "" if close[0] in allowed else next(
+                    f", a key of type = {k!r}" for k, keys in others.items()
+                    if close[0] in keys)
+                hint = f" (did you mean {close[0]!r}{owner}?)"
+            raise self.error(key, f"unknown key (value {value!r}) {context}{hint}; "
+                             f"known keys: {', '.join(sorted(allowed))}")
 
     def number(self, key, default=_MISSING, minimum=None, maximum=None,
                exclusive_minimum=None):
@@ -681,7 +697,14 @@ def orbit_from_table(table: dict, file: str | None = None, planet: Planet = EART
         kind = "circular"
     else:
         kind = "elements"
-    reader.check_keys(_KEYS[kind], f"for type = {kind!r}")
+    reader.check_keys(_KEYS[kind], f"for type = {kind!r}",
+                      {k: v for k, v in _KEYS.items() if k != kind})
+    if not reader.has("type") and kind == "elements" and not any(
+            reader.has(k) for k in ("perigee_km", "apogee_km", "semi_major_axis_km",
+                                    "eccentricity")):
+        raise reader.error(None, "no orbit size given: write altitude_km (a circular orbit), "
+                           "perigee_km and apogee_km or semi_major_axis_km and eccentricity "
+                           "(type = \"elements\"), or tle")
 
     orbits = reader.number("orbits", 1.0, exclusive_minimum=0.0)
     if reader.has("steps_per_orbit") and reader.has("step_s"):
