@@ -138,8 +138,8 @@ def test_scale_on_a_file_with_a_stated_unit_warns(tmp_path):
 
 @pytest.mark.parametrize("unit, needle", [("m", None), ("mm", "outside 0.001..300 m")])
 def test_mesh_far_too_small_is_suspected(tmp_path, unit, needle):
-    # an STL in metres read with length_unit = "mm": a 2 mm part (diagonal 2.3 mm) is
-    # plausible; build a 1 x 2 x 0.5 um one by a second factor of 1000 through scale
+    # the 1 x 2 x 0.5 STL box with scale = 0.001: in metres it is 2.3 mm across
+    # (plausible); read in mm as well it is 2.3 um across, a unit applied twice
     path = _box_model(tmp_path, "stl", unit=unit, extra="scale = 0.001\n")
     report = check_model(path)
     lines = [p.line() for p in report.warnings]

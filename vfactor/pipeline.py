@@ -44,6 +44,7 @@ import numpy as np
 
 from .errors import ArgumentError, VfactorError
 from .progress import NullReporter
+from .summary import INERT_WARNING_SHARE
 
 __all__ = ["RunResult", "run", "checkpoint_path", "CHECKPOINT_SUFFIX"]
 
@@ -359,8 +360,9 @@ class _Checkpoint:
 # ---------------------------------------------------------------------------------------
 # View factors over a runner
 # ---------------------------------------------------------------------------------------
-#: Share of a node's emission lost on inert sides above which the run says so [1].
-INERT_NOTE_SHARE = 0.01
+#: Share of a node's emission lost on inert sides above which the run says so [1]: the
+#: summary's warning threshold (one constant, in summary.py).
+INERT_NOTE_SHARE = INERT_WARNING_SHARE
 
 
 def _inert_notes(geometry, view_factors) -> list:
