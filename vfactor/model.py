@@ -25,61 +25,46 @@ Layout of the model file
 ``solar_specular``, ``ir_specular`` (0..1, default 0), ``source`` and ``description``
 (free text: where the values come from).
 
-``[[parts]]``: ``name`` (unique), ``shape``, ``center``, ``z_axis``, ``x_axis``, ``max_edge``,
-``front``, ``back`` and the parameters of the shape:
+``[[parts]]`` (and ``[[parts.select]]`` under a part): see :mod:`vfactor.parts`.
 
-=========  ====================================================================
-rectangle  ``size = [x, y]``
-disk       ``radius``, ``inner_radius`` (default 0), ``segments``
-box        ``size = [x, y, z]``
-cylinder   ``radius``, ``length``, ``caps`` (default true), ``segments``
-cone       ``radius`` (base, at -length/2), ``top_radius`` (default 0 = apex),
-           ``length``, ``caps`` (default true), ``segments``
-sphere     ``radius``, ``segments``
-dish       ``radius``, ``depth``, ``segments``
-mesh       ``file`` (relative to the model file), ``scale`` (default 1),
-           ``closed`` (default: whether the mesh is watertight)
-=========  ====================================================================
-
-Default axes: ``z_axis = [0, 0, 1]``; ``x_axis`` defaults to the model x axis made
-orthogonal to ``z_axis`` (the model y axis when ``z_axis`` is along x).
-
-A side is ``{ coating = "NAME", node = "NODE" }`` or
-``{ coating = "NAME", nodes = "single" | "per-face" | "per-facet" | "per-group" }``
-(``nodes = "single"`` when neither is given); see :mod:`vfactor.geometry` for the
-generated node names. A part without ``front`` and ``back`` only casts shadows.
+``[radiation]``: ``rays_per_node``, ``seed``, ``target_error``, ``max_rays_per_node``,
+``smoothing``, ``facet_factors``, ``sun_rays_per_facet``, ``planet_rays_per_facet``.
 """
 
 from __future__ import annotations
 
 import difflib
 import hashlib
-import math
-import tomllib
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
+
+import tomllib
 
 from vfactor.errors import ModelError, Problem
 from vfactor.geometry import Coating
+from vfactor.parts import (
+    LENGTH_UNITS,
+    NODE_MODES,
+    SHAPES,
+    Part,
+    Selection,
+    Side,
+    read_parts,
+)
+from vfactor.tomlread import Invalid, Reader, hint, show
 
 __all__ = [
     "LENGTH_UNITS",
-    "SHAPES",
     "NODE_MODES",
-    "Side",
+    "SHAPES",
+    "Model",
     "Part",
     "RadiationSettings",
-    "Model",
+    "Selection",
+    "Side",
     "load_model",
     "load_model_text",
 ]
-
-LENGTH_UNITS = {"m": 1.0, "cm": 0.01, "mm": 0.001, "in": 0.0254, "ft": 0.3048}
-"""Metres per model length unit (inch and foot exact by the 1959 international yard and
-pound agreement)."""
-
-SHAPES = ("rectangle", "disk", "box", "cylinder", "cone", "sphere", "dish", "mesh")
-NODE_MODES = ("single", "per-face", "per-facet", "per-group")
 
 TOP_LEVEL_SECTIONS = ("model", "coatings", "parts", "radiation", "orbit", "attitude",
                       "environment")
@@ -88,33 +73,6 @@ TOP_LEVEL_SECTIONS = ("model", "coatings", "parts", "radiation", "orbit", "attit
 _MODEL_KEYS = ("name", "length_unit", "description")
 _COATING_KEYS = ("solar_absorptivity", "ir_emissivity", "solar_specular", "ir_specular",
                  "source", "description")
-_SIDE_KEYS = ("coating", "node", "nodes")
-_COMMON_PART_KEYS = ("name", "shape", "center", "z_axis", "x_axis", "max_edge", "front",
-                     "back", "description")
-_SHAPE_KEYS = {
-    "rectangle": ("size",),
-    "disk": ("radius", "inner_radius", "segments"),
-    "box": ("size",),
-    "cylinder": ("radius", "length", "caps", "segments"),
-    "cone": ("radius", "top_radius", "length", "caps", "segments"),
-    "sphere": ("radius", "segments"),
-    "dish": ("radius", "depth", "segments"),
-    "mesh": ("file", "scale", "closed", "file_unit"),
-}
-_REQUIRED_SHAPE_KEYS = {
-    "rectangle": ("size",),
-    "disk": ("radius",),
-    "box": ("size",),
-    "cylinder": ("radius", "length"),
-    "cone": ("radius", "length"),
-    "sphere": ("radius",),
-    "dish": ("radius", "depth"),
-    "mesh": ("file",),
-}
-_LENGTH_KEYS = ("radius", "inner_radius", "top_radius", "length", "depth")
-DEFAULT_SEGMENTS = 32
-"""Divisions around the largest circle of a curved shape when neither ``segments`` nor a
-finer ``max_edge`` is given."""
 
 _RADIATION_DEFAULTS = {
     "rays_per_node": 200_000,
@@ -126,61 +84,6 @@ _RADIATION_DEFAULTS = {
     "sun_rays_per_facet": 16,
     "planet_rays_per_facet": 256,
 }
-
-
-@dataclass(frozen=True)
-class Side:
-    """One side of a part: its coating and how its facets are grouped into nodes.
-
-    Attributes
-    ----------
-    coating : str — name of a ``[coatings.NAME]`` table
-    node : str or None — explicit node name for the whole side
-    nodes : str — ``single``, ``per-face``, ``per-facet`` or ``per-group`` (ignored when
-        ``node`` is given)
-    """
-
-    coating: str
-    node: str | None = None
-    nodes: str = "single"
-
-
-@dataclass(frozen=True, eq=False)
-class Part:
-    """One ``[[parts]]`` table, lengths in metres.
-
-    Attributes
-    ----------
-    name : str
-    shape : str — one of :data:`SHAPES`
-    parameters : dict — shape parameters; lengths in metres (``size`` a tuple, ``radius``,
-        ``inner_radius``, ``top_radius``, ``length``, ``depth``), ``caps`` bool,
-        ``segments`` int; for meshes ``file`` (absolute path), ``file_as_written``,
-        ``scale`` (metres per mesh coordinate: ``length_unit`` times ``scale``) and
-        ``closed`` (bool or None = decide from the mesh)
-    center : (3,) tuple of float — position of the local origin [m]
-    z_axis, x_axis : (3,) tuple of float — local axes in model coordinates, unit length,
-        ``x_axis`` orthogonal to ``z_axis`` [1]
-    max_edge : float or None — longest facet edge allowed [m]
-    front, back : Side or None — None: the side is inert
-    index : int — position of the part in the file (0-based)
-    """
-
-    name: str
-    shape: str
-    parameters: dict
-    center: tuple
-    z_axis: tuple
-    x_axis: tuple
-    max_edge: float | None
-    front: Side | None
-    back: Side | None
-    index: int = 0
-
-    @property
-    def where(self) -> str:
-        """Location string used in messages: ``part 'NAME'``."""
-        return f"part {self.name!r}"
 
 
 @dataclass(frozen=True)
@@ -254,113 +157,11 @@ class Model:
 
 
 # --------------------------------------------------------------------------------------
+
+
+# --------------------------------------------------------------------------------------
 # Reading
 # --------------------------------------------------------------------------------------
-
-class _Invalid(Exception):
-    """Internal: the current item (part, coating, side) cannot be used."""
-
-
-@dataclass
-class _Reader:
-    file: str
-    problems: list | None  # None: strict
-
-    found: list = field(default_factory=list)
-    broken_coatings: set = field(default_factory=set)   # defined, but with a bad value
-
-    def error(self, where: str, message: str, fatal_for_item: bool = True):
-        if self.problems is None:
-            raise ModelError(message, file=self.file, where=where)
-        self.problems.append(Problem("error", self.file, where, message))
-        if fatal_for_item:
-            raise _Invalid()
-
-    def soft_error(self, where: str, message: str):
-        """An error that does not prevent using the rest of the item."""
-        if self.problems is None:
-            raise ModelError(message, file=self.file, where=where)
-        self.problems.append(Problem("error", self.file, where, message))
-
-    def warning(self, where: str, message: str):
-        if self.problems is not None:
-            self.problems.append(Problem("warning", self.file, where, message))
-
-    def note(self, where: str, message: str):
-        """Information that ``check`` shows (not a problem)."""
-        if self.problems is not None:
-            self.problems.append(Problem("note", self.file, where, message))
-
-    # ---- value helpers ---------------------------------------------------------------
-    def table(self, value, where: str) -> dict:
-        if not isinstance(value, dict):
-            self.error(where, f"must be a table, got {_show(value)}")
-        return value
-
-    def string(self, value, where: str, nonempty: bool = True) -> str:
-        if not isinstance(value, str) or (nonempty and not value.strip()):
-            self.error(where, f"must be a non-empty string, got {_show(value)}")
-        return value
-
-    def number(self, value, where: str) -> float:
-        if isinstance(value, bool) or not isinstance(value, (int, float)):
-            self.error(where, f"must be a number, got {_show(value)}")
-        x = float(value)
-        if not math.isfinite(x):
-            self.error(where, f"must be finite, got {_show(value)}")
-        return x
-
-    def positive(self, value, where: str) -> float:
-        x = self.number(value, where)
-        if x <= 0.0:
-            self.error(where, f"must be > 0, got {_show(value)}")
-        return x
-
-    def fraction(self, value, where: str) -> float:
-        x = self.number(value, where)
-        if not 0.0 <= x <= 1.0:
-            self.error(where, f"must lie in [0, 1], got {_show(value)}")
-        return x
-
-    def integer(self, value, where: str, minimum: int, maximum: int = 10**12) -> int:
-        if isinstance(value, bool) or not isinstance(value, int):
-            self.error(where, f"must be an integer, got {_show(value)}")
-        if value < minimum:
-            self.error(where, f"must be >= {minimum}, got {value}")
-        if value > maximum:
-            self.error(where, f"must be <= {maximum}, got {_show(value)}")
-        return int(value)
-
-    def boolean(self, value, where: str) -> bool:
-        if not isinstance(value, bool):
-            self.error(where, f"must be true or false, got {_show(value)}")
-        return value
-
-    def vector(self, value, where: str, n: int) -> tuple:
-        if not isinstance(value, list) or len(value) != n:
-            self.error(where, f"must be a list of {n} numbers, got {_show(value)}")
-        return tuple(self.number(v, where) for v in value)
-
-    def unknown_keys(self, table: dict, allowed, where: str, what: str):
-        for key in table:
-            if key not in allowed:
-                close = difflib.get_close_matches(str(key), allowed, n=1)
-                hint = f"did you mean {close[0]!r}? " if close else ""
-                self.soft_error(f"{where} {key}" if where else key,
-                                f"unknown {what} key {key!r}; {hint}known keys are "
-                                f"{', '.join(allowed)}")
-
-
-def _hint(value, choices) -> str:
-    """' (did you mean X?)' for a near miss among ``choices``, else ''."""
-    close = difflib.get_close_matches(str(value), list(choices), n=1)
-    return f" (did you mean {close[0]!r}?)" if close else ""
-
-
-def _show(value) -> str:
-    text = repr(value)
-    return text if len(text) <= 60 else text[:57] + "..."
-
 
 def load_model(path, problems: list | None = None) -> Model:
     """Read a model file.
@@ -420,7 +221,7 @@ def load_model_text(text: str, path_for_messages: str = "<model>", base_dir=None
     ------
     ModelError
     """
-    reader = _Reader(str(path_for_messages), problems)
+    reader = Reader(str(path_for_messages), problems)
     base = Path(base_dir) if base_dir is not None else Path.cwd()
     try:
         doc = tomllib.loads(text)
@@ -439,11 +240,11 @@ def load_model_text(text: str, path_for_messages: str = "<model>", base_dir=None
     return _read_document(doc, text, reader, base)
 
 
-def _read_document(doc: dict, text: str, reader: _Reader, base: Path) -> Model:
+def _read_document(doc: dict, text: str, reader: Reader, base: Path) -> Model:
     for key in doc:
         if key not in TOP_LEVEL_SECTIONS:
             reader.soft_error(f"[{key}]", f"unknown section {key!r}"
-                              f"{_hint(key, TOP_LEVEL_SECTIONS)}; known sections are "
+                              f"{hint(key, TOP_LEVEL_SECTIONS)}; known sections are "
                               f"{', '.join(TOP_LEVEL_SECTIONS)}")
 
     # [model]
@@ -463,21 +264,21 @@ def _read_document(doc: dict, text: str, reader: _Reader, base: Path) -> Model:
             if not isinstance(unit, str) or unit not in LENGTH_UNITS:
                 unit = "m"
                 reader.error("[model] length_unit",
-                             f"unknown length unit {_show(mtab['length_unit'])}; use one of "
+                             f"unknown length unit {show(mtab['length_unit'])}; use one of "
                              f"{', '.join(LENGTH_UNITS)}")
-    except _Invalid:
+    except Invalid:
         pass
     scale = LENGTH_UNITS[unit]
 
     coatings = _read_coatings(doc.get("coatings"), reader)
-    parts = _read_parts(doc.get("parts"), reader, coatings, scale, base)
+    parts = read_parts(doc.get("parts"), reader, coatings, scale, base)
     radiation = _read_radiation(doc.get("radiation"), reader)
 
     raw_tables = {}
     for key in ("orbit", "attitude", "environment"):
         value = doc.get(key)
         if value is not None and not isinstance(value, dict):
-            reader.soft_error(f"[{key}]", f"must be a table, got {_show(value)}")
+            reader.soft_error(f"[{key}]", f"must be a table, got {show(value)}")
             value = None
         raw_tables[key] = value
 
@@ -499,7 +300,7 @@ def _read_document(doc: dict, text: str, reader: _Reader, base: Path) -> Model:
     )
 
 
-def _read_coatings(value, reader: _Reader) -> dict:
+def _read_coatings(value, reader: Reader) -> dict:
     coatings: dict = {}
     if value is None:
         reader.soft_error("[coatings]", "no coatings defined; add a [coatings.NAME] table "
@@ -507,7 +308,7 @@ def _read_coatings(value, reader: _Reader) -> dict:
         return coatings
     try:
         value = reader.table(value, "[coatings]")
-    except _Invalid:
+    except Invalid:
         return coatings
     for cname, tab in value.items():
         where = f"[coatings.{cname}]"
@@ -529,7 +330,7 @@ def _read_coatings(value, reader: _Reader) -> dict:
                     continue
                 try:
                     props[key] = reader.fraction(tab[key], f"{where} {key}")
-                except _Invalid:
+                except Invalid:
                     bad = True
             source = ""
             for key in ("source", "description"):
@@ -537,210 +338,23 @@ def _read_coatings(value, reader: _Reader) -> dict:
                     try:
                         text = reader.string(tab[key], f"{where} {key}", nonempty=False)
                         source = source or text
-                    except _Invalid:
+                    except Invalid:
                         pass
             if bad:
                 reader.broken_coatings.add(cname)
                 continue
             coatings[cname] = Coating(name=cname, source=source, **props)
-        except _Invalid:
+        except Invalid:
             continue
     return coatings
 
 
-def _read_side(value, where: str, reader: _Reader, coatings: dict) -> Side:
-    tab = reader.table(value, where)
-    reader.unknown_keys(tab, _SIDE_KEYS, where, "side")
-    if "coating" not in tab:
-        reader.error(where, "missing key 'coating'")
-    coating = reader.string(tab["coating"], f"{where} coating")
-    if coating in reader.broken_coatings:
-        raise _Invalid()   # the coating's own error says what is wrong, once
-    if coating not in coatings:
-        known = ", ".join(coatings) or "none defined"
-        reader.error(f"{where} coating", f"unknown coating {coating!r}"
-                     f"{_hint(coating, coatings)}; coatings are {known}")
-    if "node" in tab and "nodes" in tab:
-        reader.error(where, "give either 'node' (one named node) or 'nodes' (a mode), not both")
-    if "node" in tab:
-        node = reader.string(tab["node"], f"{where} node").strip()
-        if node in NODE_MODES:
-            reader.warning(f"{where} node", f"node = {node!r} makes one node literally "
-                           f"named {node!r}; for the node mode write nodes = {node!r}")
-        return Side(coating=coating, node=node, nodes="single")
-    mode = tab.get("nodes", "single")
-    if mode not in NODE_MODES:
-        hint = _hint(mode, NODE_MODES)
-        if not hint and isinstance(mode, str) and mode.strip():
-            hint = f" (to name one node {mode!r}, write node = {mode!r})"
-        reader.error(f"{where} nodes", f"unknown node mode {_show(mode)}{hint}; use one "
-                     f"of {', '.join(NODE_MODES)}")
-    return Side(coating=coating, node=None, nodes=mode)
-
-
-def _unit(v, reader, where) -> tuple:
-    x = reader.vector(v, where, 3)
-    norm = math.sqrt(sum(c * c for c in x))
-    if norm == 0.0:
-        reader.error(where, f"must not be the zero vector, got {_show(v)}")
-    return tuple(c / norm for c in x)
-
-
-def _frame(tab: dict, reader: _Reader, where: str):
-    z = _unit(tab.get("z_axis", [0.0, 0.0, 1.0]), reader, f"{where} z_axis")
-    if "x_axis" in tab:
-        x = _unit(tab["x_axis"], reader, f"{where} x_axis")
-    else:
-        x = (1.0, 0.0, 0.0) if abs(z[0]) < 0.9 else (0.0, 1.0, 0.0)
-    d = sum(a * b for a, b in zip(x, z))
-    xo = tuple(a - d * b for a, b in zip(x, z))
-    norm = math.sqrt(sum(c * c for c in xo))
-    if norm < 1e-6:
-        reader.error(f"{where} x_axis", f"x_axis {_show(tab.get('x_axis'))} is parallel to "
-                     f"z_axis {_show(tab.get('z_axis'))}")
-    return z, tuple(c / norm for c in xo)
-
-
-def _read_parts(value, reader: _Reader, coatings: dict, scale: float, base: Path) -> list:
-    parts: list = []
-    if value is None:
-        reader.soft_error("[[parts]]", "no parts defined; add at least one [[parts]] table")
-        return parts
-    if not isinstance(value, list):
-        reader.soft_error("[[parts]]", f"must be an array of tables, got {_show(value)}")
-        return parts
-    names = set()
-    for index, tab in enumerate(value):
-        where = f"part #{index + 1}"
-        try:
-            tab = reader.table(tab, where)
-            if "name" in tab:
-                pname = reader.string(tab["name"], f"{where} name").strip()
-                where = f"part {pname!r}"
-            else:
-                reader.soft_error(where, "missing key 'name'")
-                pname = f"part{index + 1}"
-            if pname in names:
-                reader.error(where, f"duplicate part name {pname!r}")
-            names.add(pname)
-            if "shape" not in tab:
-                reader.error(where, f"missing key 'shape'; use one of {', '.join(SHAPES)}")
-            shape = tab["shape"]
-            if shape not in SHAPES:
-                reader.error(f"{where} shape", f"unknown shape {_show(shape)}"
-                             f"{_hint(shape, SHAPES)}; use one of {', '.join(SHAPES)}")
-            allowed = _COMMON_PART_KEYS + _SHAPE_KEYS[shape]
-            reader.unknown_keys(tab, allowed, where, f"{shape} part")
-            parts.append(_read_part(tab, pname, shape, index, where, reader, coatings,
-                                    scale, base))
-        except _Invalid:
-            continue
-    return parts
-
-
-def _read_part(tab, pname, shape, index, where, reader, coatings, scale, base) -> Part:
-    for key in _REQUIRED_SHAPE_KEYS[shape]:
-        if key not in tab:
-            reader.error(where, f"missing key {key!r} for a {shape}")
-    params: dict = {}
-    if "size" in tab:
-        n = 2 if shape == "rectangle" else 3
-        size = reader.vector(tab["size"], f"{where} size", n)
-        for s in size:
-            if s <= 0.0:
-                reader.error(f"{where} size", f"every size must be > 0, got {_show(tab['size'])}")
-        params["size"] = tuple(s * scale for s in size)
-    for key in _LENGTH_KEYS:
-        if key in tab:
-            if key in ("inner_radius", "top_radius"):
-                v = reader.number(tab[key], f"{where} {key}")
-                if v < 0.0:
-                    reader.error(f"{where} {key}", f"must be >= 0, got {_show(tab[key])}")
-            else:
-                v = reader.positive(tab[key], f"{where} {key}")
-            params[key] = v * scale
-    if shape == "disk":
-        params.setdefault("inner_radius", 0.0)
-        if params["inner_radius"] >= params["radius"]:
-            reader.error(f"{where} inner_radius", f"must be smaller than radius "
-                         f"({tab.get('inner_radius')} >= {tab.get('radius')})")
-    if shape == "cone":
-        params.setdefault("top_radius", 0.0)
-    if shape in ("cylinder", "cone"):
-        params["caps"] = reader.boolean(tab.get("caps", True), f"{where} caps")
-    if shape in ("disk", "cylinder", "cone", "sphere", "dish"):
-        params["segments"] = reader.integer(tab.get("segments", DEFAULT_SEGMENTS),
-                                            f"{where} segments", 3)
-        if params["segments"] > 4096:
-            reader.error(f"{where} segments", f"must be <= 4096, got {params['segments']}")
-    if shape == "mesh":
-        fname = reader.string(tab["file"], f"{where} file")
-        params["file_as_written"] = fname
-        params["file"] = str((base / fname).resolve()) if not Path(fname).is_absolute() \
-            else fname
-        s = reader.positive(tab.get("scale", 1.0), f"{where} scale")
-        params["scale"] = s * _mesh_unit(tab, fname, where, reader, scale, s)
-        params["closed"] = (reader.boolean(tab["closed"], f"{where} closed")
-                            if "closed" in tab else None)
-    center = tuple(c * scale for c in reader.vector(tab.get("center", [0.0, 0.0, 0.0]),
-                                                    f"{where} center", 3))
-    z_axis, x_axis = _frame(tab, reader, where)
-    max_edge = None
-    if "max_edge" in tab:
-        max_edge = reader.positive(tab["max_edge"], f"{where} max_edge") * scale
-        size_scale = max([v for k, v in params.items() if k in _LENGTH_KEYS] +
-                         list(params.get("size", ())) + [0.0])
-        if size_scale > 0.0 and size_scale / max_edge > 2000.0:
-            reader.error(f"{where} max_edge", f"max_edge {tab['max_edge']} is too fine for a "
-                         f"part of size {size_scale / scale:g} (more than 2000 divisions "
-                         f"per edge); use a larger max_edge")
-    front = back = None
-    if "front" in tab:
-        front = _read_side(tab["front"], f"{where} front", reader, coatings)
-    if "back" in tab:
-        back = _read_side(tab["back"], f"{where} back", reader, coatings)
-    if front is None and back is None:
-        reader.warning(where, "no front and no back side: the part only casts shadows")
-    return Part(name=pname, shape=shape, parameters=params, center=center, z_axis=z_axis,
-                x_axis=x_axis, max_edge=max_edge, front=front, back=back, index=index)
-
-
-def _mesh_unit(tab, fname, where, reader, scale, user_scale) -> float:
-    """Metres per coordinate of a mesh file, before its ``scale``.
-
-    ``file_unit`` (one of :data:`LENGTH_UNITS`) wins; otherwise the unit the format states
-    (:func:`vfactor.shapes.stated_file_unit`: STEP and glTF come back in metres), and the
-    model's ``length_unit`` only for formats that state none. A length is never scaled
-    twice.
-    """
-    from vfactor.shapes import stated_file_unit
-
-    if "file_unit" in tab:
-        unit = tab["file_unit"]
-        if not isinstance(unit, str) or unit not in LENGTH_UNITS:
-            reader.error(f"{where} file_unit", f"unknown length unit {_show(unit)}; use one "
-                         f"of {', '.join(LENGTH_UNITS)}")
-        return LENGTH_UNITS[unit]
-    stated = stated_file_unit(fname)
-    if stated is None:
-        return scale
-    unit, why = stated
-    reader.note(where, f"mesh file {fname!r} states its unit ({why}); its coordinates "
-                f"are read in {unit}, not in the model's length unit (set file_unit to "
-                f"override)")
-    if user_scale != 1.0:
-        reader.warning(f"{where} scale", f"scale = {user_scale:g} multiplies a file that "
-                       f"already states its unit ({unit}): the part becomes {user_scale:g} "
-                       f"times its size in the file; remove scale unless that is meant")
-    return LENGTH_UNITS[unit]
-
-
-def _read_radiation(value, reader: _Reader) -> RadiationSettings:
+def _read_radiation(value, reader: Reader) -> RadiationSettings:
     if value is None:
         return RadiationSettings(max_rays_per_node=20 * RadiationSettings.rays_per_node)
     try:
         tab = reader.table(value, "[radiation]")
-    except _Invalid:
+    except Invalid:
         return RadiationSettings(max_rays_per_node=20 * RadiationSettings.rays_per_node)
     reader.unknown_keys(tab, tuple(_RADIATION_DEFAULTS), "[radiation]", "[radiation]")
     out = {}
@@ -757,7 +371,7 @@ def _read_radiation(value, reader: _Reader) -> RadiationSettings:
         if key in tab:
             try:
                 out[key] = fn(tab[key], f"[radiation] {key}")
-            except _Invalid:
+            except Invalid:
                 pass
     if "target_error" in tab:
         try:
@@ -766,7 +380,7 @@ def _read_radiation(value, reader: _Reader) -> RadiationSettings:
                 reader.error("[radiation] target_error",
                              f"must be a fraction below 1, got {tab['target_error']}")
             out["target_error"] = te
-        except _Invalid:
+        except Invalid:
             pass
     rays = out.get("rays_per_node", RadiationSettings.rays_per_node)
     out.setdefault("max_rays_per_node", 20 * rays)
