@@ -1,5 +1,5 @@
 """Real mesh files in: stated units, stable names of multi-primitive glTF, unit-slip and
-node-key guards (vfactor.shapes.read_mesh, vfactor.model, vfactor.checks).
+node-key guards (vfactor.meshfile.read_mesh, vfactor.model, vfactor.checks).
 
 Outside references:
 * glTF 2.0 specification (Khronos Group), section 3.4 "Coordinate System and Units": the
@@ -22,8 +22,8 @@ import trimesh
 
 from vfactor.checks import check_model, format_check_report
 from vfactor.geometry import build_geometry
+from vfactor.meshfile import read_mesh
 from vfactor.model import load_model
-from vfactor.shapes import read_mesh
 
 
 def _glb_with_primitives(path, boxes) -> None:

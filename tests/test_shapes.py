@@ -29,12 +29,12 @@ import trimesh
 from scipy.integrate import quad
 
 from vfactor.errors import MeshError, ModelError
+from vfactor.meshfile import read_mesh
 from vfactor.model import load_model_text
 from vfactor.shapes import (
     MAX_FACETS_PER_PART,
     exact_area,
     max_edge_length,
-    read_mesh,
     tessellate,
     triangle_areas,
 )

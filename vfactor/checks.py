@@ -50,11 +50,19 @@ import numpy as np
 
 from vfactor.errors import ModelError, Problem
 from vfactor.geometry import Geometry, build_geometry
+from vfactor.meshfile import mesh_is_watertight, mesh_winding_consistent
 from vfactor.model import Model, load_model
-from vfactor.shapes import CURVED_SHAPES, exact_area, mesh_is_watertight, mesh_winding_consistent
+from vfactor.shapes import CURVED_SHAPES, exact_area
 
-__all__ = ["CheckReport", "AreaDifference", "check_model", "check_geometry",
-           "format_check_report", "RELATIVE_TOLERANCE", "AREA_WARNING"]
+__all__ = [
+    "AREA_WARNING",
+    "RELATIVE_TOLERANCE",
+    "AreaDifference",
+    "CheckReport",
+    "check_geometry",
+    "check_model",
+    "format_check_report",
+]
 
 RELATIVE_TOLERANCE = 1e-6
 """Geometric tolerance as a fraction of the model's bounding-box diagonal."""

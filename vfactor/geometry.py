@@ -115,6 +115,12 @@ class Geometry:
     nodes : NodeTable
     part_closed : tuple of bool — per part: it encloses a volume (front = outside)
     part_shapes : tuple of str — per part: its shape
+    group : (f,) int32 — index into ``group_names``: the face of a primitive or the named
+        body of a mesh file the facet belongs to (empty: one group per part)
+    group_names : tuple of str — ``PART.GROUP`` (``PART`` for a one-face shape)
+    part_label_sources : tuple of str — per part: ``shape``, ``file`` or ``flat regions``
+        (see :class:`vfactor.shapes.Tessellation`)
+    part_notes : tuple of tuple of str — per part: what reading changed (repair, ...)
     """
 
     vertices: np.ndarray
@@ -132,6 +138,15 @@ class Geometry:
     nodes: NodeTable
     part_closed: tuple = ()
     part_shapes: tuple = ()
+    group: np.ndarray = None
+    group_names: tuple = ()
+    part_label_sources: tuple = ()
+    part_notes: tuple = ()
+
+    def __post_init__(self):
+        if self.group is None:   # one group per part
+            object.__setattr__(self, "group", self.part)
+            object.__setattr__(self, "group_names", tuple(self.part_names))
 
     @property
     def n_facets(self) -> int:
@@ -157,25 +172,114 @@ def part_rotation(part) -> np.ndarray:
     return np.stack([x, y, z], axis=1)
 
 
-def _side_node_names(part, side, tess, back: bool):
-    """Node name per facet of one side: (names list, index per facet into names)."""
+def _names_for(part, side, tess, facets, back: bool, selection=None):
+    """Node names of one side over some facets of a part.
+
+    Returns (names, index per facet of ``facets`` into names). ``selection`` is the
+    :class:`vfactor.parts.Selection` that gives the side, or None for the part's own.
+    """
     suffix = ".back" if back else ""
-    f = tess.n_facets
     if side.node is not None:
-        return [side.node], np.zeros(f, np.int64)
+        return [side.node], np.zeros(len(facets), np.int64)
     mode = side.nodes
     if mode in ("per-face", "per-group") and tess.one_face:
         mode = "single"
     if mode == "single":
-        return [part.name + suffix], np.zeros(f, np.int64)
+        base = part.name if selection is None else f"{part.name}.{selection.name}"
+        return [base + suffix], np.zeros(len(facets), np.int64)
     if mode in ("per-face", "per-group"):
-        used = np.unique(tess.face)
-        names = [f"{part.name}.{tess.labels[k]}{suffix}" for k in used]
-        remap = np.full(len(tess.labels), -1, np.int64)
-        remap[used] = np.arange(len(used))
-        return names, remap[tess.face]
+        used, local = np.unique(tess.face[facets], return_inverse=True)
+        return ([f"{part.name}.{tess.labels[k]}{suffix}" for k in used],
+                local.reshape(-1).astype(np.int64))
     # per-facet
-    return [f"{part.name}.{i}{suffix}" for i in range(f)], np.arange(f, dtype=np.int64)
+    return ([f"{part.name}.{int(i)}{suffix}" for i in facets],
+            np.arange(len(facets), dtype=np.int64))
+
+
+def _side_assignment(part, tess, chooser, back: bool):
+    """Sides of every facet of a part for one side slot (front or back).
+
+    Parameters
+    ----------
+    chooser : (f,) int — index of the selection that takes each facet, -1 for none
+
+    Returns
+    -------
+    list of (name, side, where) in order of first facet, and (f,) int index into it per
+    facet (-1 where the side is inert)
+    """
+    slot = "back" if back else "front"
+    own = part.back if back else part.front
+    owner = chooser.copy()
+    for k, sel in enumerate(part.selections):
+        if not (sel.sets_back if back else sel.sets_front):
+            owner[owner == k] = -1     # the selection leaves this side to the part
+    entries, firsts, per_facet = [], [], np.full(tess.n_facets, -1, np.int64)
+    for k in np.unique(owner):
+        sel = part.selections[k] if k >= 0 else None
+        side = own if sel is None else (sel.back if back else sel.front)
+        if side is None:
+            continue
+        facets = np.flatnonzero(owner == k)
+        names, local = _names_for(part, side, tess, facets, back, sel)
+        first = np.full(len(names), tess.n_facets, np.int64)
+        np.minimum.at(first, local, facets)
+        where = f"{part.where} {slot}" if sel is None else f"{sel.where} {slot}"
+        per_facet[facets] = local + len(entries)
+        entries.extend((name, side, where) for name in names)
+        firsts.extend(first.tolist())
+    order = np.argsort(np.asarray(firsts, np.int64), kind="stable")
+    rank = np.empty(len(order), np.int64)
+    rank[order] = np.arange(len(order))
+    active = per_facet >= 0
+    per_facet[active] = rank[per_facet[active]]
+    return [entries[i] for i in order], per_facet
+
+
+def _apply_selections(part, tess, fail):
+    """Which selection takes each facet, and the part without its omitted groups.
+
+    Returns (tess, chooser (f,) int) or None when a selection matches no group (the
+    error went to ``fail``).
+    """
+    from dataclasses import replace
+
+    from vfactor.errors import ModelError
+    from vfactor.meshfile import mesh_is_watertight
+    from vfactor.parts import select_groups
+
+    if not part.selections:
+        return tess, np.full(tess.n_facets, -1, np.int64)
+    present = np.unique(tess.face)
+    labels = [tess.labels[k] for k in present]
+    taken = np.asarray(select_groups(part.selections, labels), np.int64)
+    ok = True
+    for k, sel in enumerate(part.selections):
+        if not (taken == k).any():
+            if any(sel.matches(lab) for lab in labels):
+                why = "every group it matches is taken by an earlier selection"
+            elif tess.label_source == "flat regions":
+                why = (f"the file names no groups (its {len(labels)} groups are flat regions "
+                       f"numbered 0..{len(labels) - 1})")
+            else:
+                shown = ", ".join(labels[:12]) + (", ..." if len(labels) > 12 else "")
+                why = f"the groups are {shown}"
+            fail(ModelError(f"match {list(sel.patterns)} matches no group of the part; "
+                            f"{why}", where=sel.where))
+            ok = False
+    if not ok:
+        return None
+    chooser_of_label = np.full(len(tess.labels), -1, np.int64)
+    chooser_of_label[present] = taken
+    chooser = chooser_of_label[tess.face]
+    omitted = np.array([s.omit for s in part.selections] + [False], bool)[chooser]
+    if omitted.any():
+        keep = ~omitted
+        tris = tess.triangles[keep]
+        closed = tess.closed and bool(len(tris)) and mesh_is_watertight(tess.vertices, tris)
+        tess = replace(tess, triangles=tris, face=tess.face[keep], closed=closed)
+        chooser = chooser[keep]
+    return tess, chooser
 
 
 def build_geometry(model, problems: list | None = None) -> "Geometry":
@@ -225,6 +329,7 @@ def build_geometry(model, problems: list | None = None) -> "Geometry":
     verts_all, tris_all, part_all = [], [], []
     front_node_all, back_node_all, front_coat_all, back_coat_all = [], [], [], []
     part_names, part_closed, part_shapes = [], [], []
+    group_all, group_names, part_sources, part_notes = [], [], [], []
     v_offset = 0
     for part in model.parts:
         try:
@@ -232,6 +337,10 @@ def build_geometry(model, problems: list | None = None) -> "Geometry":
         except ModelError as err:
             fail(err)
             continue
+        selected = _apply_selections(part, tess, fail)
+        if selected is None:
+            continue
+        tess, chooser = selected
         rot = part_rotation(part)
         with np.errstate(over="ignore", invalid="ignore"):
             world = tess.vertices @ rot.T + np.asarray(part.center, float)
@@ -250,33 +359,36 @@ def build_geometry(model, problems: list | None = None) -> "Geometry":
                                     file=file, where=part.where, facets=tuple(bad.tolist()))
         pidx = len(part_names)
         sides = []
-        clash = False
-        for side, back in ((part.front, False), (part.back, True)):
-            if side is None:
-                sides.append((np.full(tess.n_facets, -1, np.int32),
-                              np.full(tess.n_facets, -1, np.int32)))
-                continue
-            names, per_facet = _side_node_names(part, side, tess, back)
-            idx = np.empty(len(names), np.int64)
-            for k, name in enumerate(names):
+        for back in (False, True):
+            entries, per_facet = _side_assignment(part, tess, chooser, back)
+            node_of = np.full(tess.n_facets, -1, np.int32)
+            coat_of = np.full(tess.n_facets, -1, np.int32)
+            idx = np.empty(len(entries), np.int64)
+            coat = np.empty(len(entries), np.int64)
+            for k, (name, side, where_set) in enumerate(entries):
                 if name not in node_lookup:
                     node_lookup[name] = len(node_names)
                     node_names.append(name)
                 n = node_lookup[name]
                 idx[k] = n
-                where_set = f"{part.where} {'back' if back else 'front'}"
+                coat[k] = coating_index[side.coating]
                 if n in node_coating and node_coating[n][0] != side.coating:
                     c0, w0 = node_coating[n]
                     fail(ModelError(f"node {name!r} has coating {side.coating!r} here but "
                                     f"coating {c0!r} on {w0}; a node has one coating",
                                     where=where_set))
-                    clash = True
                 else:
                     node_coating.setdefault(n, (side.coating, where_set))
-            sides.append((idx[per_facet].astype(np.int32),
-                          np.full(tess.n_facets, coating_index[side.coating], np.int32)))
-        if clash and problems is not None:
-            pass  # keep the part; the node keeps its first coating
+            active = per_facet >= 0
+            node_of[active] = idx[per_facet[active]]
+            coat_of[active] = coat[per_facet[active]]
+            sides.append((node_of, coat_of))
+        used, local = np.unique(tess.face, return_inverse=True)
+        group_all.append(local.reshape(-1).astype(np.int32) + len(group_names))
+        group_names.extend(part.name if tess.one_face else f"{part.name}.{tess.labels[k]}"
+                           for k in used)
+        part_sources.append(tess.label_source)
+        part_notes.append(tuple(tess.notes))
         verts_all.append(world)
         tris_all.append(tris + v_offset)
         v_offset += len(world)
@@ -299,18 +411,22 @@ def build_geometry(model, problems: list | None = None) -> "Geometry":
     back_node = cat(back_node_all, np.int32)
     front_coat = cat(front_coat_all, np.int32)
     back_coat = cat(back_coat_all, np.int32)
+    group = cat(group_all, np.int32)
 
     node_coats = [model.coatings[node_coating[i][0]] for i in range(len(node_names))]
     return assemble_geometry(
         vertices, triangles, front_node=front_node, back_node=back_node,
         front_coating=front_coat, back_coating=back_coat, part=part_idx,
         part_names=part_names, coatings=coatings, node_names=node_names,
-        node_coatings=node_coats, part_closed=part_closed, part_shapes=part_shapes)
+        node_coatings=node_coats, part_closed=part_closed, part_shapes=part_shapes,
+        group=group, group_names=group_names, part_label_sources=part_sources,
+        part_notes=part_notes)
 
 
 def assemble_geometry(vertices, triangles, *, front_node, back_node, front_coating,
                       back_coating, part, part_names, coatings, node_names, node_coatings,
-                      part_closed=None, part_shapes=None) -> "Geometry":
+                      part_closed=None, part_shapes=None, group=None, group_names=None,
+                      part_label_sources=None, part_notes=None) -> "Geometry":
     """A :class:`Geometry` from flat facet arrays and side assignments.
 
     Facet normals, areas and centroids and the node table (areas, facet counts, coating
@@ -324,6 +440,8 @@ def assemble_geometry(vertices, triangles, *, front_node, back_node, front_coati
     part_names : sequence of str; coatings : sequence of Coating (indexed by *_coating)
     node_names : sequence of str, (n,); node_coatings : sequence of Coating, (n,)
     part_closed, part_shapes : sequence, optional — per part
+    group : (f,) int, optional, with group_names — facet groups (default: the parts)
+    part_label_sources, part_notes : sequence, optional — per part
 
     Returns
     -------
@@ -365,6 +483,13 @@ def assemble_geometry(vertices, triangles, *, front_node, back_node, front_coati
         extra["part_closed"] = tuple(part_closed)
     if part_shapes is not None:
         extra["part_shapes"] = tuple(part_shapes)
+    if group is not None:
+        extra["group"] = np.ascontiguousarray(group, np.int32)
+        extra["group_names"] = tuple(group_names)
+    if part_label_sources is not None:
+        extra["part_label_sources"] = tuple(part_label_sources)
+    if part_notes is not None:
+        extra["part_notes"] = tuple(part_notes)
     return Geometry(
         vertices=vertices,
         triangles=triangles,

@@ -395,11 +395,11 @@ def _mesh_unit(tab, fname, where, reader, scale, user_scale) -> float:
     """Metres per coordinate of a mesh file, before its ``scale``.
 
     ``file_unit`` (one of :data:`LENGTH_UNITS`) wins; otherwise the unit the format states
-    (:func:`vfactor.shapes.stated_file_unit`: STEP and glTF come back in metres), and the
+    (:func:`vfactor.meshfile.stated_file_unit`: STEP and glTF come back in metres), and the
     model's ``length_unit`` only for formats that state none. A length is never scaled
     twice.
     """
-    from vfactor.shapes import stated_file_unit
+    from vfactor.meshfile import stated_file_unit
 
     if "file_unit" in tab:
         unit = tab["file_unit"]

@@ -1,4 +1,4 @@
-"""Tessellation of the primitive shapes and reading of mesh files.
+"""Tessellation of the primitive shapes.
 
 Every shape is built in its local frame (metres) and returned as a :class:`Tessellation`:
 vertices, triangles counter-clockwise seen from the *front* (the outside of closed shapes),
@@ -29,22 +29,7 @@ mesh       as in the file times ``scale``; front = the side the file's  groups, 
 apex). A one-face shape has a single face label; :mod:`vfactor.geometry` then gives
 ``per-face`` the same names as ``single``.
 
-Mesh groups (``per-group``): a file holding several named geometries (OBJ objects/groups,
-glTF nodes, a multi-body scene) gives one group per geometry, labelled with its name;
-a single geometry is split into connected flat regions (adjacent coplanar facets, as
-``trimesh.Trimesh.facets`` finds them; every other facet is its own region) labelled
-``0, 1, 2, ...`` in order of their first facet. ``per-face`` on a mesh is the same as
-``per-group``.
-
-Group names are the file's own names and do not depend on the loader's run: where
-trimesh invents a frame name with a random suffix (a glTF mesh of several primitives) the
-geometry's name is used. Geometries are ordered by name, ties by a hash of their placed
-coordinates; repeated names get ``.1``, ``.2``, ... in that order.
-
-Units: STEP files (read through ``cascadio``, which converts them to glTF) and glTF files
-come back in metres (the glTF 2.0 specification, section 3.4: "the units for all linear
-distances are meters"); :func:`stated_file_unit` says so and :mod:`vfactor.model` then
-does not apply ``length_unit`` to their coordinates. STL, OBJ, PLY and OFF state no unit.
+Mesh files are read by :mod:`vfactor.meshfile` into the same :class:`Tessellation`.
 
 Refinement
 ----------
@@ -56,20 +41,22 @@ The facet area of a curved shape converges to :func:`exact_area` as ``max_edge``
 
 from __future__ import annotations
 
-import hashlib
 import math
-import os
-import re
 from dataclasses import dataclass
 
 import numpy as np
 
-from vfactor.errors import MeshError, ModelError
+from vfactor.errors import ModelError
 
-__all__ = ["Tessellation", "tessellate", "exact_area", "estimated_facets", "read_mesh",
-           "stated_file_unit",
-           "triangle_areas", "max_edge_length", "mesh_is_watertight",
-           "mesh_winding_consistent"]
+__all__ = [
+    "Tessellation",
+    "estimated_facets",
+    "exact_area",
+    "max_edge_length",
+    "merge_exact",
+    "tessellate",
+    "triangle_areas",
+]
 
 FACE_LABELS = {
     "rectangle": ("face",),
@@ -98,6 +85,10 @@ class Tessellation:
     face : (f,) int64 — index into ``labels`` per triangle
     closed : bool — the surface encloses a volume (front = outside)
     one_face : bool — the shape has a single face (rectangle, disk, sphere, dish)
+    label_source : str — where the labels come from: ``shape`` (a primitive's faces),
+        ``file`` (the names in a mesh file) or ``flat regions`` (a mesh file without
+        names, split into connected flat regions)
+    notes : tuple of str — what reading changed (repair, simplification), for ``check``
     """
 
     vertices: np.ndarray
@@ -106,6 +97,8 @@ class Tessellation:
     face: np.ndarray
     closed: bool
     one_face: bool = False
+    label_source: str = "shape"
+    notes: tuple = ()
 
     @property
     def n_facets(self) -> int:
@@ -164,7 +157,7 @@ def _divisions(lengths, h: float | None) -> list:
     return n
 
 
-def _merge_exact(vertices: np.ndarray, triangles: np.ndarray):
+def merge_exact(vertices: np.ndarray, triangles: np.ndarray):
     """Merge vertices with bit-identical coordinates (shared edges of faces)."""
     uniq, inverse = np.unique(vertices, axis=0, return_inverse=True)
     return uniq, inverse.reshape(-1)[triangles]
@@ -291,7 +284,7 @@ def _box(size, h):
         tris_all.append(tris + offset)
         face_all.append(np.full(len(tris), k, np.int64))
         offset += len(pts)
-    verts, tris = _merge_exact(np.concatenate(verts_all), np.concatenate(tris_all))
+    verts, tris = merge_exact(np.concatenate(verts_all), np.concatenate(tris_all))
     return Tessellation(verts, tris.astype(np.int64), FACE_LABELS["box"],
                         np.concatenate(face_all), closed=True)
 
@@ -359,7 +352,7 @@ def _cone_like(params, h, shape):
     offs = np.cumsum([0] + [len(x) for x in parts_v])
     verts = np.concatenate(parts_v)
     tris = np.concatenate([t + o for t, o in zip(parts_t, offs)])
-    verts, tris = _merge_exact(verts, tris)
+    verts, tris = merge_exact(verts, tris)
     return Tessellation(verts, tris.astype(np.int64), FACE_LABELS[shape],
                         np.concatenate(parts_f).astype(np.int64), closed=closed)
 
@@ -437,9 +430,12 @@ def tessellate(part) -> Tessellation:
         For ``shape = "mesh"``: the file is missing, unreadable, empty or not triangles.
     """
     if part.shape == "mesh":
+        from vfactor.meshfile import read_mesh
+
         p = part.parameters
         return read_mesh(p["file"], p["scale"], part.max_edge, p.get("closed"),
-                         where=part.where, shown_name=p.get("file_as_written", p["file"]))
+                         where=part.where, shown_name=p.get("file_as_written", p["file"]),
+                         repair=p.get("repair", False), simplify=p.get("simplify"))
     build = _BUILDERS[part.shape]
     h = part.max_edge
     estimate = estimated_facets(part)
@@ -508,223 +504,3 @@ def exact_area(part) -> float | None:
         r, h = p["radius"], p["depth"]
         return math.pi * r / (6.0 * h * h) * ((r * r + 4.0 * h * h) ** 1.5 - r ** 3)
     return None
-
-
-# --------------------------------------------------------------------------------------
-# Mesh files
-# --------------------------------------------------------------------------------------
-STATED_UNITS = {".step": ("m", "STEP, converted to metres on import by cascadio"),
-                ".stp": ("m", "STEP, converted to metres on import by cascadio"),
-                ".glb": ("m", "glTF 2.0 specification section 3.4: metres"),
-                ".gltf": ("m", "glTF 2.0 specification section 3.4: metres")}
-"""Mesh formats whose coordinates come back from the loader in a stated unit:
-suffix -> (unit, why)."""
-
-
-def stated_file_unit(path) -> tuple | None:
-    """The unit a mesh file's coordinates come back in, when its format states one.
-
-    Parameters
-    ----------
-    path : str — the mesh file (only its suffix is looked at)
-
-    Returns
-    -------
-    (unit, reason) with unit a key of :data:`vfactor.model.LENGTH_UNITS`, or None when the
-    format states no unit (STL, OBJ, PLY, OFF: then the model's ``length_unit`` applies).
-    """
-    return STATED_UNITS.get(os.path.splitext(str(path))[1].lower())
-
-
-def read_mesh(path, scale: float = 1.0, max_edge: float | None = None,
-              closed: bool | None = None, where: str = "", shown_name: str | None = None
-              ) -> Tessellation:
-    """Read a triangle mesh with trimesh (any format it reads) into a Tessellation.
-
-    Parameters
-    ----------
-    path : str — the mesh file
-    scale : float — metres per file coordinate (model length unit times ``scale``)
-    max_edge : float, optional — subdivide until no edge is longer [m]
-    closed : bool, optional — declared closed; default: the mesh is watertight
-    where : str — location for messages (``part 'NAME'``)
-    shown_name : str — file name as written in the model
-
-    Returns
-    -------
-    Tessellation (labels = geometry names, or connected flat regions; see module doc)
-
-    Raises
-    ------
-    MeshError — missing, unreadable, empty, not triangles, or non-finite coordinates.
-    """
-    import trimesh
-
-    name = shown_name or str(path)
-    if not os.path.isfile(path):
-        raise MeshError(f"mesh file {name!r} not found (looked for {path})", where=where)
-    options = {}
-    if str(path).lower().endswith(".obj"):
-        options = dict(split_objects=True, split_groups=True, group_material=False)
-    try:
-        loaded = trimesh.load_scene(path, process=False, **options)
-    # trimesh's format loaders raise many unrelated exception types on a damaged file
-    # (ValueError, KeyError, IndexError, struct.error, ...); each becomes a MeshError.
-    except ImportError as exc:
-        package = getattr(exc, "name", None) or str(exc)
-        raise MeshError(f"cannot read mesh file {name!r}: its loader needs the package "
-                        f"{package!r}, which is not installed (pip install {package})",
-                        where=where) from None
-    except Exception as exc:  # noqa: BLE001
-        raise MeshError(f"cannot read mesh file {name!r}: {type(exc).__name__}: {exc}",
-                        where=where) from None
-    pieces = []   # (label, vertices, faces)
-    others = set()
-    parents = loaded.graph.transforms.parents
-    for node in loaded.graph.nodes_geometry:
-        transform, gname = loaded.graph[node]
-        geom = loaded.geometry.get(gname)
-        if not isinstance(geom, trimesh.Trimesh):
-            others.add(type(geom).__name__)
-            continue
-        v = trimesh.transform_points(np.asarray(geom.vertices, float), transform)
-        pieces.append((_piece_label(str(node), parents.get(node), str(gname)), v,
-                       np.asarray(geom.faces, np.int64)))
-    pieces.sort(key=_piece_key)
-    if not pieces and others:
-        raise MeshError(f"mesh file {name!r} holds no triangles (found "
-                        f"{', '.join(sorted(others))})", where=where)
-    pieces = [p for p in pieces if len(p[2]) > 0]
-    if not pieces:
-        raise MeshError(f"mesh file {name!r} is empty (no triangles)", where=where)
-    for _, v, f in pieces:
-        if f.ndim != 2 or f.shape[1] != 3:
-            raise MeshError(f"mesh file {name!r} is not made of triangles", where=where)
-        if not np.isfinite(v).all():
-            bad = int((~np.isfinite(v).all(axis=1)).sum())
-            raise MeshError(f"mesh file {name!r} has {bad} vertices with non-finite "
-                            f"coordinates", where=where)
-    offs = np.cumsum([0] + [len(p[1]) for p in pieces])
-    verts = np.concatenate([p[1] for p in pieces]) * float(scale)
-    tris = np.concatenate([p[2] + o for p, o in zip(pieces, offs)])
-    if tris.min() < 0 or tris.max() >= len(verts):
-        raise MeshError(f"mesh file {name!r} has faces referring to missing vertices",
-                        where=where)
-    if len(pieces) > 1:
-        labels = []
-        face = []
-        for k, (label, _, f) in enumerate(pieces):
-            labels.append(label)
-            face.append(np.full(len(f), k, np.int64))
-        face = np.concatenate(face)
-        labels = _unique_labels(labels)
-    else:
-        labels, face = _flat_regions(verts, tris)
-    # share bit-identical vertices (an STL file repeats them per facet)
-    verts, tris = _merge_exact(verts, tris)
-    watertight = mesh_is_watertight(verts, tris)
-    is_closed = watertight if closed is None else bool(closed)
-    if max_edge is not None:
-        estimate = 8.0 * float(triangle_areas(verts, tris).sum()) / max_edge ** 2
-        if estimate > MAX_FACETS_PER_PART:
-            raise ModelError(f"max_edge {max_edge} m would make about {estimate:.3g} facets "
-                             f"(limit {MAX_FACETS_PER_PART}); use a larger max_edge",
-                             where=where)
-        verts, tris, face = _subdivide(verts, tris, face, max_edge)
-        verts, tris = _merge_exact(verts, tris)
-    return Tessellation(np.ascontiguousarray(verts, np.float64), tris.astype(np.int64),
-                        tuple(labels), face.astype(np.int64), closed=is_closed,
-                        one_face=False)
-
-
-_LOADER_FRAME = re.compile(r"^(?P<parent>.+)_[0-9A-Za-z]{6}$")
-
-
-def _piece_label(node: str, parent, geometry_name: str) -> str:
-    """The file's own name for one placed geometry.
-
-    A named node (glTF node, OBJ object) gives its name. Two kinds of frame name are the
-    loader's own invention, and for them the (deterministic) geometry name is used: the
-    frames of a glTF mesh with several primitives, which trimesh names ``PARENT_XXXXXX``
-    with a random six-character suffix that changes on every load, and unnamed nodes,
-    which it numbers (``1``, ``2``: the bodies of a STEP file, whose names are those of
-    their products).
-    """
-    m = _LOADER_FRAME.match(node)
-    if (m and parent is not None and m.group("parent") == str(parent)) or node.isdigit():
-        return geometry_name
-    return node
-
-
-def _piece_key(piece) -> tuple:
-    """Order of the pieces of a mesh file: by label, ties by a hash of their placed
-    coordinates and faces, so that neither the loader's naming nor the order of the
-    file decides which of two equally named pieces comes first."""
-    label, v, f = piece
-    digest = hashlib.sha256(np.ascontiguousarray(v, np.float64).tobytes()
-                            + np.ascontiguousarray(f, np.int64).tobytes()).hexdigest()
-    return (label, digest)
-
-
-def mesh_is_watertight(vertices: np.ndarray, triangles: np.ndarray) -> bool:
-    """Whether the triangles form a closed 2-manifold once equal vertices are merged."""
-    import trimesh
-
-    m = trimesh.Trimesh(vertices, triangles, process=False)
-    m.merge_vertices()
-    return bool(m.is_watertight)
-
-
-def mesh_winding_consistent(vertices: np.ndarray, triangles: np.ndarray) -> bool:
-    """Whether every shared edge is traversed in opposite directions by its two facets
-    (consistent front side), once equal vertices are merged (trimesh's test)."""
-    import trimesh
-
-    m = trimesh.Trimesh(vertices, triangles, process=False)
-    m.merge_vertices()
-    return bool(m.is_winding_consistent)
-
-
-def _unique_labels(labels):
-    seen = {}
-    out = []
-    for lab in labels:
-        lab = lab or "group"
-        if lab in seen:
-            seen[lab] += 1
-            out.append(f"{lab}.{seen[lab]}")
-        else:
-            seen[lab] = 0
-            out.append(lab)
-    return out
-
-
-def _flat_regions(verts, tris):
-    """Connected coplanar regions (trimesh facets), numbered by first facet."""
-    import trimesh
-
-    m = trimesh.Trimesh(verts, tris, process=False)
-    m.merge_vertices()
-    region = np.full(len(tris), -1, np.int64)
-    if len(m.faces) == len(tris):
-        for k, group in enumerate(m.facets):
-            region[np.asarray(group, np.int64)] = len(tris) + k  # provisional ids
-    # renumber in order of first facet, singletons included
-    face = np.empty(len(tris), np.int64)
-    ids = {}
-    for i in range(len(tris)):
-        key = region[i] if region[i] >= 0 else -(i + 1)
-        if key not in ids:
-            ids[key] = len(ids)
-        face[i] = ids[key]
-    return tuple(str(k) for k in range(len(ids))), face
-
-
-def _subdivide(verts, tris, face, max_edge):
-    import trimesh
-
-    if max_edge_length(verts, tris) <= max_edge:
-        return verts, tris, face
-    v, f, idx = trimesh.remesh.subdivide_to_size(verts, tris, max_edge=max_edge,
-                                                  max_iter=20, return_index=True)
-    return np.asarray(v, float), np.asarray(f, np.int64), face[np.asarray(idx, np.int64)]
