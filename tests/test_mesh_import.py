@@ -15,12 +15,14 @@ from __future__ import annotations
 
 import json
 import struct
+from pathlib import Path
 
 import numpy as np
 import pytest
 import trimesh
 
 from vfactor.checks import check_model, format_check_report
+from vfactor.errors import MeshError
 from vfactor.geometry import build_geometry
 from vfactor.meshfile import read_mesh
 from vfactor.model import load_model
@@ -70,16 +72,17 @@ def test_multi_primitive_glb_names_are_stable(tmp_path):
     assert np.array_equal(first.vertices, second.vertices)
     assert np.array_equal(first.triangles, second.triangles)
     assert np.array_equal(first.face, second.face)
-    # glTF primitives carry no name: the pieces take the mesh's name, numbered in the
-    # file's primitive order (trimesh's deterministic geometry names)
-    assert first.labels == ("bus", "bus_1", "bus_2")
-    for k, (_, (a, b, c), _) in enumerate(BOXES):
-        sel = first.face == k
-        v = first.vertices[first.triangles[sel]]
-        area = 0.5 * np.linalg.norm(np.cross(v[:, 1] - v[:, 0], v[:, 2] - v[:, 0]),
-                                    axis=1).sum()
-        # glTF stores float32 coordinates: relative rounding up to ~6e-8 per coordinate
-        assert area == pytest.approx(2 * (a * b + b * c + c * a), rel=1e-6), k
+    # glTF primitives carry no name: the pieces take the name of the node holding the
+    # mesh, numbered in the order of a hash of their coordinates (not the loader's)
+    assert first.labels == ("bus", "bus.1", "bus.2")
+    areas = []
+    for k in range(len(BOXES)):
+        v = first.vertices[first.triangles[first.face == k]]
+        areas.append(0.5 * np.linalg.norm(np.cross(v[:, 1] - v[:, 0], v[:, 2] - v[:, 0]),
+                                          axis=1).sum())
+    exact = [2 * (a * b + b * c + c * a) for _, (a, b, c), _ in BOXES]
+    # glTF stores float32 coordinates: relative rounding up to ~6e-8 per coordinate
+    assert sorted(areas) == pytest.approx(sorted(exact), rel=1e-6)
 
 
 def test_two_runs_of_a_multi_primitive_glb_give_the_same_nodes(tmp_path):
@@ -91,7 +94,7 @@ def test_two_runs_of_a_multi_primitive_glb_give_the_same_nodes(tmp_path):
         'front = { coating = "w", nodes = "per-group" }\n')
     names = [build_geometry(load_model(model_file)).nodes.names for _ in range(2)]
     assert names[0] == names[1]
-    assert names[0] == ("sat.bus", "sat.bus_1", "sat.bus_2")
+    assert names[0] == ("sat.bus", "sat.bus.1", "sat.bus.2")
 
 
 def _box_model(tmp_path, suffix, unit="mm", extra=""):
@@ -114,8 +117,10 @@ def test_gltf_coordinates_are_metres_whatever_the_length_unit(tmp_path):
     assert g.areas.sum() == pytest.approx(EXACT_BOX_AREA, rel=1e-6)  # float32 in glTF
     report = check_model(path)
     assert report.ok and not report.warnings, format_check_report(report)
-    notes = [p for p in report.problems if p.severity == "note"]
-    assert len(notes) == 1 and "states its unit" in notes[0].message
+    notes = [p.message for p in report.problems if p.severity == "note"]
+    assert len(notes) == 2 and "states its unit" in notes[0]
+    # the size note shows the part in metres (1 x 2 x 0.5 m), not 1000 times smaller
+    assert "1 x 2 x 0.5 m, 7 m2 (1 file unit = 1 m)" in notes[1]
 
 
 def test_stl_coordinates_take_the_length_unit(tmp_path):
@@ -238,3 +243,102 @@ def test_one_coating_typo_is_one_error(write_model):
             'front = { coating = "v" }\nback = { coating = "v" }\n')
     lines = [p.line() for p in check_model(write_model(text)).errors]
     assert len(lines) == 1 and "did you mean 'solar_absorptivity'?" in lines[0], lines
+
+
+DATA = Path(__file__).parent / "data"
+
+
+def test_draco_glb_reads_with_names_and_areas(tmp_path):
+    # tests/data/bus_wing_draco.glb: box 0.3 x 0.2 x 0.1 m "bus", plate 0.5 x 0.2 m "wing"
+    t = read_mesh(str(DATA / "bus_wing_draco.glb"))
+    assert t.labels == ("bus", "wing")
+    v = t.vertices[t.triangles]
+    area = 0.5 * np.linalg.norm(np.cross(v[:, 1] - v[:, 0], v[:, 2] - v[:, 0]), axis=1)
+    # Draco quantises positions (trimesh's default 14 bits over the 0.7 m box: ~4e-5 m)
+    assert area[t.face == 0].sum() == pytest.approx(2 * (0.06 + 0.02 + 0.03), rel=1e-3)
+    assert area[t.face == 1].sum() == pytest.approx(0.1, rel=1e-3)
+
+
+def test_draco_glb_without_its_decoder_names_the_package(tmp_path, monkeypatch):
+    import builtins
+
+    real = builtins.__import__
+
+    def no_draco(name, *args, **kwargs):
+        if name == "DracoPy":
+            raise ImportError("No module named 'DracoPy'", name="DracoPy")
+        return real(name, *args, **kwargs)
+
+    monkeypatch.setattr(builtins, "__import__", no_draco)
+    with pytest.raises(MeshError, match=r"Draco-compressed .*'DracoPy' is not installed"):
+        read_mesh(str(DATA / "bus_wing_draco.glb"), shown_name="bus_wing_draco.glb")
+
+
+def test_repeated_names_never_collide_with_a_name_in_the_file():
+    from vfactor.meshfile import _unique_labels
+
+    # a file naming two bodies "a" and one "a.1": the second "a" must not become "a.1"
+    assert _unique_labels(["a", "a", "a.1"]) == ["a", "a.2", "a.1"]
+    assert _unique_labels(["b", "b", "b", ""]) == ["b", "b.1", "b.2", "group"]
+
+
+def test_winding_is_checked_per_named_body(tmp_path):
+    # two bodies of one file sharing an edge; one of them has a facet turned
+    a = trimesh.creation.box()
+    b = trimesh.creation.box()
+    b.apply_translation((1.0, 1.0, 0.0))
+    faces = b.faces.copy()
+    faces[4] = faces[4][::-1]
+    scene = trimesh.Scene()
+    scene.add_geometry(a, geom_name="left", node_name="left")
+    scene.add_geometry(trimesh.Trimesh(b.vertices, faces, process=False), geom_name="right",
+                       node_name="right")
+    scene.export(tmp_path / "two.glb")
+    path = tmp_path / "m.toml"
+    path.write_text('[coatings.w]\nsolar_absorptivity = 0.2\nir_emissivity = 0.8\n'
+                    '[[parts]]\nname = "pair"\nshape = "mesh"\nfile = "two.glb"\n'
+                    'front = { coating = "w" }\n')
+    errors = [p.line() for p in check_model(path).errors]
+    winding = [e for e in errors if "winding" in e]
+    assert len(winding) == 1, errors
+    assert "group 'pair.right'" in winding[0] and "about 1 of its 12 facets" in winding[0]
+
+
+def test_per_group_on_a_mesh_without_names_warns_of_many_nodes(tmp_path):
+    trimesh.creation.icosphere(subdivisions=2).export(tmp_path / "ball.stl")   # 320 facets
+    path = tmp_path / "m.toml"
+    path.write_text('[coatings.w]\nsolar_absorptivity = 0.2\nir_emissivity = 0.8\n'
+                    '[[parts]]\nname = "ball"\nshape = "mesh"\nfile = "ball.stl"\n'
+                    'front = { coating = "w", nodes = "per-group" }\n')
+    report = check_model(path)
+    warning = next(p.message for p in report.warnings if "names no groups" in p.message)
+    assert "split it into 320 nodes" in warning and "nodes = 'single'" in warning
+
+
+def test_two_runs_of_a_multi_primitive_glb_give_identical_results(tmp_path):
+    import h5py
+
+    from vfactor.pipeline import run
+
+    _glb_with_primitives(tmp_path / "bus.glb", BOXES)
+    model_file = tmp_path / "m.toml"
+    model_file.write_text(
+        '[coatings.w]\nsolar_absorptivity = 0.2\nir_emissivity = 0.8\n'
+        '[radiation]\nrays_per_node = 2000\n'
+        '[[parts]]\nname = "sat"\nshape = "mesh"\nfile = "bus.glb"\n'
+        'front = { coating = "w", nodes = "per-group" }\n')
+    outs = [tmp_path / f"r{k}.h5" for k in range(2)]
+    for out in outs:
+        run(model_file, out)
+
+    def datasets(path):
+        found = {}
+        with h5py.File(path, "r") as f:
+            f.visititems(lambda name, obj: found.__setitem__(name, obj[()])
+                         if isinstance(obj, h5py.Dataset) else None)
+        return found
+
+    first, second = (datasets(o) for o in outs)
+    assert first.keys() == second.keys()
+    for key in first:
+        assert np.array_equal(np.asarray(first[key]), np.asarray(second[key])), key

@@ -50,9 +50,10 @@ import numpy as np
 
 from vfactor.errors import ModelError, Problem
 from vfactor.geometry import Geometry, build_geometry
-from vfactor.meshfile import mesh_is_watertight, mesh_winding_consistent
+from vfactor.meshfile import mesh_is_watertight
 from vfactor.model import Model, load_model
 from vfactor.shapes import CURVED_SHAPES, exact_area
+from vfactor.topology import edge_report
 
 __all__ = [
     "AREA_WARNING",
@@ -147,6 +148,11 @@ def check_model(path) -> CheckReport:
     _check_settings(model, report)
     geometry = build_geometry(model, problems=problems)
     report.geometry = geometry
+    # a note about a part that could not be read (its stated unit) only distracts
+    unread = {p.where for p in problems if p.severity == "error"}
+    unread &= {part.where for part in model.parts
+               if part.name not in geometry.part_names}
+    problems[:] = [p for p in problems if not (p.severity == "note" and p.where in unread)]
     check_geometry(model, geometry, report)
     return report
 
@@ -285,27 +291,38 @@ def check_geometry(model: Model, geometry: Geometry, report: CheckReport) -> Non
         sel = np.flatnonzero(g.part == k)
         bad = sel[degenerate[sel]]
         if len(bad):
+            groups = [g.group_names[j] for j in np.unique(g.group[bad])]
+            in_groups = (f" in group{'s' if len(groups) > 1 else ''} "
+                         f"{', '.join(repr(n) for n in groups[:3])}"
+                         f"{', ...' if len(groups) > 3 else ''}"
+                         if part.shape == "mesh" and len(np.unique(g.group[sel])) > 1
+                         else "")
+            fix = ("set repair = true on the part to drop them, or fix the mesh"
+                   if part.shape == "mesh" else "fix the shape parameters")
             add(Problem("error", file, part.where,
-                        f"{len(bad)} zero-area or degenerate facets (facets "
-                        f"{_examples(bad)}); fix the mesh or the shape parameters",
-                        tuple(int(i) for i in bad)))
+                        f"{len(bad)} zero-area or degenerate facets{in_groups} (facets "
+                        f"{_examples(bad)}); {fix}", tuple(int(i) for i in bad)))
         good = sel[~degenerate[sel]]
         closed = g.part_closed[k] if k < len(g.part_closed) else False
-        if part.shape == "mesh" and len(good) and not mesh_winding_consistent(
-                g.vertices, g.triangles[good]):
-            add(Problem("error", file, part.where,
-                        f"inconsistent facet winding in mesh file "
-                        f"{part.parameters.get('file_as_written')!r}: some facets face the "
-                        f"other way than their neighbours, so front and back swap across "
-                        f"them; fix the mesh's orientation"))
+        if part.shape == "mesh" and len(good) and not _check_winding(part, g, k, good, file,
+                                                                     add):
             closed = False
         if part.shape == "mesh" and part.parameters.get("closed") is True and len(sel):
             local_tris = g.triangles[sel]
             if not mesh_is_watertight(g.vertices, local_tris):
+                edges = edge_report(g.triangles[sel])
+                where_open = []
+                if edges.open_edges:
+                    where_open.append(f"{edges.open_edges} open edges")
+                if edges.non_manifold_edges:
+                    where_open.append(f"{edges.non_manifold_edges} edges shared by three or "
+                                      f"more facets (e.g. facets "
+                                      f"{_examples(sel[list(edges.non_manifold_example)])})")
                 add(Problem("warning", file, part.where,
                             f"declared closed but mesh file "
-                            f"{part.parameters.get('file_as_written')!r} is not watertight "
-                            f"(its orientation and thickness are not checked)"))
+                            f"{part.parameters.get('file_as_written')!r} is not watertight"
+                            f"{' (' + ', '.join(where_open) + ')' if where_open else ''}; "
+                            f"its orientation and thickness are not checked"))
                 closed = False
         if closed and len(good):
             c = g.centroids[good].mean(axis=0)
@@ -329,6 +346,9 @@ def check_geometry(model: Model, geometry: Geometry, report: CheckReport) -> Non
                             "itself"))
         if part.shape == "mesh" and len(good):
             _check_mesh_size(part, g, good, file, add)
+            _check_group_split(part, g, k, sel, file, add)
+        for text in (g.part_notes[k] if k < len(g.part_notes) else ()):
+            add(Problem("note", file, part.where, text))
         if part.shape in CURVED_SHAPES and len(sel):
             exact = exact_area(part)
             diff = AreaDifference(pname, part.shape, len(sel), float(g.areas[sel].sum()),
@@ -340,7 +360,12 @@ def check_geometry(model: Model, geometry: Geometry, report: CheckReport) -> Non
                             f"{diff.exact:.5g} m2 by {100 * diff.relative:+.2f} %; use a "
                             f"smaller max_edge or more segments"))
 
+    sound = np.zeros(g.n_nodes, bool)     # nodes with a facet that is not degenerate
+    for nodes in (g.front_node, g.back_node):
+        sound[nodes[(nodes >= 0) & ~degenerate]] = True
     for i, name in enumerate(g.nodes.names):
+        if not sound[i] and g.nodes.facet_count[i] > 0:
+            continue      # its facets are all degenerate, and that is reported above
         if g.nodes.facet_count[i] == 0 or g.nodes.area[i] <= 0.0:
             add(Problem("error", file, f"node {name!r}",
                         f"node has no facets or no area ({int(g.nodes.facet_count[i])} "
@@ -348,6 +373,69 @@ def check_geometry(model: Model, geometry: Geometry, report: CheckReport) -> Non
 
     _check_contacts(model, g, ~degenerate, tol, report)
     _check_enclosed(model, g, ~degenerate, tol, report)
+
+
+def _check_winding(part, g: Geometry, k: int, facets, file: str, add) -> bool:
+    """Error for each group of a mesh part whose facets disagree on their front side.
+
+    A mesh file with named bodies is checked body by body (two bodies never make each
+    other inconsistent); a file without names as a whole. Returns True when consistent.
+    """
+    by_group = (k < len(g.part_label_sources) and g.part_label_sources[k] == "file")
+    sets = ([facets[g.group[facets] == j] for j in np.unique(g.group[facets])] if by_group
+            else [facets])
+    ok = True
+    shown = repr(part.parameters.get("file_as_written"))
+    for sub in sets:
+        edges = edge_report(g.triangles[sub])
+        if edges.consistent:
+            continue
+        ok = False
+        a, b = (int(sub[i]) for i in edges.example) if edges.example else (-1, -1)
+        what = (f"group {g.group_names[g.group[sub[0]]]!r} of mesh file {shown}" if by_group
+                else f"mesh file {shown}")
+        fix = ("it cannot be oriented (a one-sided surface)" if edges.non_orientable else
+               f"about {edges.facets_to_turn} of its {len(sub)} facets face the other way")
+        both = part.front is not None and part.back is not None
+        same_coating = both and part.front.coating == part.back.coating
+        same_node = same_coating and part.front.node is not None and \
+            part.front.node == part.back.node
+        if same_node:
+            continue      # front and back are one node: the winding decides nothing
+        severity = "warning" if same_coating else "error"
+        if same_coating:
+            fix = (f"{fix}; both sides have coating {part.front.coating!r}, so only the node "
+                   f"each side belongs to swaps")
+        add(Problem(severity, file, part.where,
+                    f"inconsistent facet winding in {what}: {edges.disagreeing_edges} edges "
+                    f"where neighbouring facets face opposite ways (e.g. facets {a} and {b}); "
+                    f"{fix}, so front and back swap across them; set repair = true on the "
+                    f"part or fix the mesh's orientation", (a, b)))
+    return ok
+
+
+GROUP_SPLIT_WARNING = 64
+"""Nodes above which ``check`` warns that ``per-group`` split a mesh without named groups
+into flat regions (a threshold of our own: a radiation model of one body rarely wants
+more nodes than this from one file without saying so)."""
+
+
+def _check_group_split(part, g: Geometry, k: int, facets, file: str, add) -> None:
+    """Warn when ``per-group``/``per-face`` on a mesh without names made many nodes."""
+    if k >= len(g.part_label_sources) or g.part_label_sources[k] != "flat regions":
+        return
+    modes = {s.nodes for s in (part.front, part.back) if s is not None and s.node is None}
+    if not modes & {"per-group", "per-face"}:
+        return
+    nodes = np.unique(np.concatenate([g.front_node[facets], g.back_node[facets]]))
+    count = int((nodes >= 0).sum())
+    if count > GROUP_SPLIT_WARNING:
+        add(Problem("warning", file, part.where,
+                    f"nodes = 'per-group' on mesh file "
+                    f"{part.parameters.get('file_as_written')!r}, which names no groups, "
+                    f"split it into {count} nodes (one per flat region of its "
+                    f"{len(facets)} facets); use nodes = 'single', a file with named bodies "
+                    f"(OBJ objects, glTF nodes, STEP products), or [[parts.select]]"))
 
 
 MESH_SIZE_RANGE_M = (0.001, 300.0)
@@ -359,9 +447,16 @@ factor of 1000 off (mm read as m, or m read as mm) lands outside this range."""
 def _check_mesh_size(part, g: Geometry, facets, file: str, add) -> None:
     """Warn when a mesh part's size looks off by a factor of about 1000."""
     pts = g.vertices[g.triangles[facets]].reshape(-1, 3)
-    diag = float(np.linalg.norm(pts.max(axis=0) - pts.min(axis=0)))
+    extent = pts.max(axis=0) - pts.min(axis=0)
+    diag = float(np.linalg.norm(extent))
     low, high = MESH_SIZE_RANGE_M
     if low <= diag <= high:
+        # the size, so that a slip inside the range (a 0.1 m frame read as 100 m) shows
+        per = part.parameters.get("scale", 1.0)
+        add(Problem("note", file, part.where,
+                    f"mesh file {part.parameters.get('file_as_written')!r}: "
+                    f"{' x '.join(f'{x:.4g}' for x in extent)} m, "
+                    f"{float(g.areas[facets].sum()):.4g} m2 (1 file unit = {per:g} m)"))
         return
     cause = ("coordinates in mm read as m? set file_unit = \"mm\"" if diag > high else
              "a unit applied twice, or metres read as mm? check length_unit, file_unit "
@@ -579,6 +674,11 @@ def _check_contacts(model: Model, g: Geometry, usable, tol, report: CheckReport)
                     tuple(sorted(set(a[hits].tolist()) | set(b[hits].tolist())))))
 
 
+def _area(a: float) -> str:
+    """An area [m2] with 5 significant digits (fixed point from 0.001 m2 up)."""
+    return f"{a:.5f}" if a >= 1e-3 or a == 0.0 else f"{a:.4e}"
+
+
 def _point(p) -> str:
     return "(" + ", ".join(f"{x:.4g}" for x in p) + ")"
 
@@ -622,7 +722,7 @@ def format_check_report(report: CheckReport) -> str:
             for k, name in enumerate(g.nodes.names):
                 lines.append(
                     f"{name:<{w}}  {int(g.nodes.facet_count[k]):>7d}  "
-                    f"{g.nodes.area[k]:>10.5f}  {g.nodes.solar_absorptivity[k]:>9.3f}  "
+                    f"{_area(g.nodes.area[k]):>10}  {g.nodes.solar_absorptivity[k]:>9.3f}  "
                     f"{g.nodes.ir_emissivity[k]:>7.3f}  {g.nodes.coating[k]}")
     if report.area_differences:
         w = max(len("curved part"), max(len(d.part) for d in report.area_differences))

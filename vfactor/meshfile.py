@@ -6,15 +6,16 @@ metres with one group label per triangle.
 Groups
 ------
 A file holding several named geometries (OBJ objects/groups, glTF nodes, the bodies of a
-STEP assembly) gives one group per placed geometry, labelled with its name; a single
-geometry is split into connected flat regions (adjacent coplanar facets, as
+STEP assembly) gives one group per placed geometry, labelled with its name (one named
+body of a glTF, OBJ or STEP file is one group); a single geometry of a format without
+names (STL, PLY, OFF) is split into connected flat regions (adjacent coplanar facets, as
 ``trimesh.Trimesh.facets`` finds them; every other facet is its own region) labelled
 ``0, 1, 2, ...`` in order of their first facet (``label_source = "flat regions"``).
 ``per-face`` on a mesh is the same as ``per-group``.
 
 Group names are the file's own names and do not depend on the loader's run: where
 trimesh invents a frame name with a random suffix (a glTF mesh of several primitives) the
-geometry's name is used. Geometries are ordered by name, ties by a hash of their placed
+name of the glTF node holding the mesh is used. Geometries are ordered by name, ties by a hash of their placed
 coordinates; repeated names get ``.1``, ``.2``, ... in that order (skipping a suffix that
 is itself a name in the file).
 
@@ -158,7 +159,8 @@ def read_mesh(path, scale: float = 1.0, max_edge: float | None = None,
     if tris.min() < 0 or tris.max() >= len(verts):
         raise MeshError(f"mesh file {name!r} has faces referring to missing vertices",
                         where=where)
-    if len(pieces) > 1:
+    if len(pieces) > 1 or (_names_bodies(path)
+                           and pieces[0][0] not in ("", os.path.basename(str(path)))):
         labels = _unique_labels([p[0] for p in pieces])
         face = np.concatenate([np.full(len(p[2]), k, np.int64)
                                for k, p in enumerate(pieces)])
@@ -183,8 +185,30 @@ def read_mesh(path, scale: float = 1.0, max_edge: float | None = None,
                         one_face=False, label_source=source, notes=tuple(notes))
 
 
+NAMING_FORMATS = (".glb", ".gltf", ".obj", ".step", ".stp", ".3mf", ".dae")
+"""Mesh formats whose bodies carry names: one named body is one group, not split into
+flat regions (a body the loader named after the file has no name of its own)."""
+
+
+def _names_bodies(path) -> bool:
+    return os.path.splitext(str(path))[1].lower() in NAMING_FORMATS
+
+
+_LFS_POINTER = b"version https://git-lfs.github.com/spec/"
+
+
 def _require_loader_packages(path, name: str, where: str) -> None:
     """Refuse a file whose loader needs a package that is not installed."""
+    try:
+        with open(path, "rb") as f:
+            head = f.read(len(_LFS_POINTER))
+    except OSError as exc:
+        raise MeshError(f"cannot read mesh file {name!r}: {exc.strerror or exc}",
+                        where=where) from None
+    if head == _LFS_POINTER:
+        raise MeshError(f"mesh file {name!r} is a Git LFS pointer, not the mesh itself; "
+                        f"fetch the file (git lfs pull) or download it directly",
+                        where=where)
     suffix = os.path.splitext(str(path))[1].lower()
     needs = []
     if suffix in (".step", ".stp"):
@@ -310,14 +334,16 @@ def _piece_label(node: str, parent, geometry_name: str) -> str:
     """The file's own name for one placed geometry.
 
     A named node (glTF node, OBJ object) gives its name. Two kinds of frame name are the
-    loader's own invention, and for them the (deterministic) geometry name is used: the
-    frames of a glTF mesh with several primitives, which trimesh names ``PARENT_XXXXXX``
-    with a random six-character suffix that changes on every load, and unnamed nodes,
-    which it numbers (``1``, ``2``: the bodies of a STEP file, whose names are those of
-    their products).
+    loader's own invention: the frames of a glTF mesh with several primitives, which
+    trimesh names ``PARENT_XXXXXX`` with a random six-character suffix that changes on
+    every load (the name is then the parent's: the glTF node the user named), and unnamed
+    nodes, which it numbers (``1``, ``2``: the bodies of a STEP file, whose names are
+    then the geometry's, those of their products).
     """
     m = _LOADER_FRAME.match(node)
-    if (m and parent is not None and m.group("parent") == str(parent)) or node.isdigit():
+    if m and parent is not None and m.group("parent") == str(parent):
+        return str(parent)
+    if node.isdigit():
         return geometry_name
     return node
 

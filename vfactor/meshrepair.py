@@ -11,7 +11,8 @@ the surface (hole filling, boolean union) and would change areas the radiation d
 
 Repair of one geometry, in this order:
 
-1. merge vertices closer than trimesh's merge tolerance (``trimesh.tol.merge``, 1e-8);
+1. merge vertices closer than trimesh's merge tolerance (``trimesh.tol.merge``, 1e-8;
+   bit-identical copies, which STL repeats per facet, are shared without being counted);
 2. drop degenerate facets (height below that tolerance) and duplicate facets (the same
    three vertices, in either winding: a surface exported "double-sided");
 3. make the winding agree across every edge shared by two facets, per connected body
@@ -47,8 +48,11 @@ def repair_piece(vertices: np.ndarray, faces: np.ndarray):
     import trimesh
     from trimesh.graph import connected_component_labels
 
-    m = trimesh.Trimesh(np.asarray(vertices, float), np.asarray(faces, np.int64),
-                        process=False)
+    from vfactor.shapes import merge_exact
+
+    # bit-identical copies (an STL file repeats every vertex per facet) are not a defect
+    vertices, faces = merge_exact(np.asarray(vertices, float), np.asarray(faces, np.int64))
+    m = trimesh.Trimesh(vertices, faces, process=False)
     counts = dict.fromkeys(REPAIR_COUNTS, 0)
     n0 = len(m.vertices)
     m.merge_vertices()
@@ -124,7 +128,7 @@ def describe_repairs(name: str, counts: list) -> str:
     total = {k: sum(c[k] for c in counts) for k in REPAIR_COUNTS}
     done = []
     if total["merged_vertices"]:
-        done.append(f"merged {total['merged_vertices']} repeated vertices")
+        done.append(f"merged {total['merged_vertices']} vertices closer than 1e-8")
     if total["degenerate_facets"]:
         done.append(f"dropped {total['degenerate_facets']} degenerate facets")
     if total["duplicate_facets"]:
@@ -136,4 +140,5 @@ def describe_repairs(name: str, counts: list) -> str:
         done.append(f"turned {total['bodies_turned_outward']} closed bodies to face "
                     f"outward")
     what = "; ".join(done) if done else "nothing to repair"
-    return f"repair of mesh file {name!r} ({len(counts)} bodies): {what}"
+    bodies = f"{len(counts)} {'body' if len(counts) == 1 else 'bodies'}"
+    return f"repair of mesh file {name!r} ({bodies}): {what}"

@@ -1,0 +1,111 @@
+"""Edge topology of a set of triangles: winding agreement, open and non-manifold edges.
+
+Two facets that share an edge agree on their front side when they traverse that edge in
+opposite directions (the orientation rule of a triangulated 2-manifold, e.g. Botsch et
+al., Polygon Mesh Processing, 2010, section 1.3). Only edges shared by exactly two facets
+decide: an edge shared by three or more facets (a fin standing on a panel, two bodies
+touching along an edge) is non-manifold and says nothing about winding, so two separate
+bodies that happen to share vertices or edges are not reported as wound inconsistently.
+
+Facets are connected through their two-facet edges; on each connected body the
+orientation of every facet relative to the first follows by propagation, which is a
+search for connected components of the "double cover" graph (facet, orientation): an
+agreeing edge links (a, s) with (b, s), a disagreeing one (a, s) with (b, 1 - s). A body
+whose facet appears with both orientations in one component cannot be oriented at all
+(a Moebius strip); otherwise the smaller of its two orientation classes is what a repair
+would turn.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["EdgeReport", "edge_report"]
+
+
+@dataclass(frozen=True)
+class EdgeReport:
+    """Edge topology of a triangle set (indices are rows of the triangles given).
+
+    Attributes
+    ----------
+    disagreeing_edges : int — two-facet edges traversed the same way by both facets
+    example : tuple of int or None — the two facets of the first such edge
+    facets_to_turn : int — facets in the smaller orientation class of their body
+    non_orientable : bool — some body cannot be oriented consistently
+    open_edges : int — edges used by one facet
+    non_manifold_edges : int — edges used by three or more facets
+    non_manifold_example : tuple of int or None — facets at the first such edge
+    """
+
+    disagreeing_edges: int
+    example: tuple | None
+    facets_to_turn: int
+    non_orientable: bool
+    open_edges: int
+    non_manifold_edges: int
+    non_manifold_example: tuple | None
+
+    @property
+    def consistent(self) -> bool:
+        return self.disagreeing_edges == 0
+
+
+def edge_report(triangles: np.ndarray) -> EdgeReport:
+    """Winding agreement and edge counts of triangles (vertex indices, (f, 3)).
+
+    Vertices are compared by index: callers merge equal coordinates first (the mesh
+    reader shares bit-identical vertices).
+    """
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+
+    t = np.asarray(triangles, np.int64)
+    f = len(t)
+    if f == 0:
+        return EdgeReport(0, None, 0, False, 0, 0, None)
+    start = t.reshape(-1)
+    end = t[:, [1, 2, 0]].reshape(-1)
+    facet = np.repeat(np.arange(f), 3)
+    lo, hi = np.minimum(start, end), np.maximum(start, end)
+    order = np.lexsort((facet, hi, lo))
+    lo, hi, start, facet = lo[order], hi[order], start[order], facet[order]
+    new = np.ones(len(lo), bool)
+    new[1:] = (lo[1:] != lo[:-1]) | (hi[1:] != hi[:-1])
+    first = np.flatnonzero(new)
+    count = np.diff(np.append(first, len(lo)))
+    open_edges = int((count == 1).sum())
+    many = first[count >= 3]
+    non_manifold_example = (tuple(int(x) for x in facet[many[0]:many[0] + 3])
+                            if len(many) else None)
+    pair = first[count == 2]
+    a, b = facet[pair], facet[pair + 1]
+    same_way = start[pair] == start[pair + 1]
+    bad = np.flatnonzero(same_way)
+    example = None
+    if len(bad):
+        k = bad[np.argmin(np.minimum(a[bad], b[bad]))]
+        example = (int(min(a[k], b[k])), int(max(a[k], b[k])))
+    # double cover: node 2 i + s is facet i with orientation s
+    flip = same_way.astype(np.int64)
+    rows = np.concatenate([2 * a, 2 * a + 1])
+    cols = np.concatenate([2 * b + flip, 2 * b + 1 - flip])
+    graph = coo_matrix((np.ones(len(rows), np.int8), (rows, cols)), shape=(2 * f, 2 * f))
+    _, label = connected_components(graph, directed=False)
+    up, down = label[0::2], label[1::2]
+    non_orientable = bool((up == down).any())
+    turn = 0
+    if len(bad) and not non_orientable:
+        # a body is the pair of components {up[i], down[i]}; the class of facet i is the
+        # component of its orientation 0; count both classes per body
+        body = np.minimum(up, down)
+        cls = (up > down).astype(np.int64)
+        n_body = np.bincount(body)
+        n_cls1 = np.bincount(body, weights=cls, minlength=len(n_body)).astype(np.int64)
+        turn = int(np.minimum(n_cls1, n_body - n_cls1).sum())
+    return EdgeReport(disagreeing_edges=int(len(bad)), example=example,
+                      facets_to_turn=turn, non_orientable=non_orientable,
+                      open_edges=open_edges, non_manifold_edges=int(len(many)),
+                      non_manifold_example=non_manifold_example)
