@@ -37,3 +37,10 @@ def write_model(tmp_path):
         return path
 
     return _write
+
+
+@pytest.fixture(autouse=True)
+def _private_check_records(tmp_path_factory, monkeypatch):
+    """Every test keeps its records of passed checks (vfactor.checkcache) in a folder of
+    its own, never in the user's cache."""
+    monkeypatch.setenv("VFACTOR_CACHE_DIR", str(tmp_path_factory.mktemp("vfactor-cache")))

@@ -45,6 +45,7 @@ proper interpenetration is.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 
@@ -154,11 +155,18 @@ def check_model(path) -> CheckReport:
                if part.name not in geometry.part_names}
     problems[:] = [p for p in problems if not (p.severity == "note" and p.where in unread)]
     check_geometry(model, geometry, report)
+    if report.ok:
+        from vfactor.checkcache import check_key, store_passed
+
+        store_passed(check_key(model, geometry), report.problems)
     return report
 
 
 def require_clean(model: Model, geometry: Geometry) -> list:
     """Run the checks of ``vfactor check`` on a loaded model before a run.
+
+    A check that passed before for the same model, geometry and check code is not
+    repeated: its record (:mod:`vfactor.checkcache`) gives the warnings.
 
     Parameters
     ----------
@@ -167,7 +175,8 @@ def require_clean(model: Model, geometry: Geometry) -> list:
 
     Returns
     -------
-    list of Problem — the warnings (the run may go on)
+    list of Problem — the warnings (the run may go on), and a note when the checks were
+    not repeated
 
     Raises
     ------
@@ -176,7 +185,16 @@ def require_clean(model: Model, geometry: Geometry) -> list:
         settings...), naming how many more there are: Monte Carlo results on such a model
         would be meaningless, so no run starts.
     """
+    from vfactor.checkcache import check_key, load_passed, store_passed
+
+    key = check_key(model, geometry)
+    cached = load_passed(key)
+    if cached is not None:
+        return [p for p in cached if p.severity == "warning"] + [Problem(
+            "note", str(model.path), "", "the checks of this model and geometry passed "
+            "before and were not repeated")]
     report = CheckReport(path=str(model.path), model=model, geometry=geometry)
+    report.problems.extend(_loader_problems(model))
     _check_settings(model, report)
     check_geometry(model, geometry, report)
     errors = report.errors
@@ -185,7 +203,17 @@ def require_clean(model: Model, geometry: Geometry) -> list:
         more = (f" (and {len(errors) - 1} more error(s); `vfactor check {model.path}` lists "
                 f"them)" if len(errors) > 1 else "")
         raise ModelError(first.message + more, file=first.file, where=first.where)
+    store_passed(key, report.problems)
     return report.warnings
+
+
+def _loader_problems(model: Model) -> list:
+    """Warnings and notes of reading the model file (a strict load raises errors only)."""
+    if not Path(model.path).is_file():
+        return []
+    found: list = []
+    load_model(model.path, problems=found)
+    return [p for p in found if p.severity != "error"]
 
 
 def _check_settings(model: Model, report: CheckReport) -> None:

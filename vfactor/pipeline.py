@@ -524,8 +524,10 @@ def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=N
     model = load_model(model_path)
     _refuse_overwriting_inputs(out, model)
     geometry = build_geometry(model)
-    for warning in require_clean(model, geometry):
-        notes.append(warning.line())
+    found = require_clean(model, geometry)
+    notes.extend(p.line() for p in found)
+    check_warnings = [": ".join(x for x in (p.where, p.message) if x)
+                      for p in found if p.severity == "warning"]
     settings = model.radiation
     rays_per_node = int(rays if rays is not None else settings.rays_per_node)
     seed = int(seed if seed is not None else settings.seed)
@@ -579,7 +581,8 @@ def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=N
     elapsed["total"] = time.perf_counter() - t_start
     provenance = {"seed": seed, "rays_per_node": rays_per_node, "elapsed_s": elapsed,
                   "workers": int(workers) if scheduler is None else 0,
-                  "scheduler": scheduler or "", "facet_factors": facet_factors}
+                  "scheduler": scheduler or "", "facet_factors": facet_factors,
+                  "check_warnings": check_warnings}
     t0 = time.perf_counter()
     write_results(out, model=model, geometry=geometry, view_factors=view_factors,
                   exchange=exchange, trajectory=trajectory, heating=heating,

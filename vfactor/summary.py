@@ -59,6 +59,21 @@ def _warnings(names, inert, relative_error) -> list:
     return out
 
 
+def _check_warnings(attrs) -> list:
+    """The warnings the model's checks gave before the run (root attribute
+    ``check_warnings``, a JSON list of ``WHERE: WHAT`` lines)."""
+    raw = attrs.get("check_warnings")
+    if raw is None:
+        return []
+    try:
+        lines = json.loads(raw if isinstance(raw, str) else bytes(raw).decode())
+    except (ValueError, TypeError, UnicodeDecodeError):
+        return []
+    if not isinstance(lines, list):
+        return []
+    return [f"check: {x}" for x in lines]
+
+
 _SOURCES = ("solar", "albedo", "planet_ir")
 _SOURCE_LABEL = {"solar": "solar", "albedo": "albedo", "planet_ir": "planet IR",
                  "total": "total"}
@@ -197,10 +212,10 @@ def summarize(results: Results, top: int = 15) -> dict:
             "exchange_method": None if ex is None else ex.method,
         }
 
-    warnings = []
+    warnings = _check_warnings(a)
     if vf is not None:
-        warnings = _warnings(nodes.names, vf.inert,
-                             accuracy["largest_relative_stderr_significant"])
+        warnings += _warnings(nodes.names, vf.inert,
+                              accuracy["largest_relative_stderr_significant"])
 
     heat = results.heating
     loads = None
