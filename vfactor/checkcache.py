@@ -7,8 +7,8 @@ JSON file named by a key over everything its outcome depends on:
 * the model file's SHA-256 (settings, sides, coatings);
 * the built geometry: vertices, triangles, parts, groups, node and coating of every side
   (so an edited mesh file, or another version of a mesh reader, gives another key);
-* the source code of the checks themselves (``checks.py``, ``topology.py`` and the
-  contact kernel ``tracing/contacts.py``) and the vfactor version.
+* the source code of the checks themselves (``checks.py``, ``geomchecks.py``,
+  ``topology.py``, the contact kernel ``tracing/contacts.py``) and the vfactor version.
 
 The record keeps the warnings found, which ``run`` shows and stores as before. The
 folder is ``VFACTOR_CACHE_DIR`` when set, else ``$XDG_CACHE_HOME/vfactor`` or
@@ -31,7 +31,8 @@ from vfactor.errors import Problem
 
 __all__ = ["cache_dir", "check_key", "load_passed", "store_passed"]
 
-_SOURCES = ("checks.py", "topology.py", os.path.join("tracing", "contacts.py"))
+_SOURCES = ("checks.py", "geomchecks.py", "topology.py",
+            os.path.join("tracing", "contacts.py"))
 _HERE = Path(__file__).resolve().parent
 
 

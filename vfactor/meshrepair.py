@@ -60,8 +60,9 @@ def repair_piece(vertices: np.ndarray, faces: np.ndarray):
     keep = m.nondegenerate_faces()
     counts["degenerate_facets"] = int((~keep).sum())
     m.update_faces(keep)
-    unique = np.zeros(len(m.faces), bool)
-    unique[m.unique_faces()] = True
+    unique = np.asarray(m.unique_faces())     # a mask in trimesh 5, indices before
+    if unique.dtype != bool:
+        unique = np.isin(np.arange(len(m.faces)), unique)
     counts["duplicate_facets"] = int((~unique).sum())
     m.update_faces(unique)
     m.remove_unreferenced_vertices()
