@@ -385,8 +385,10 @@ def _check_contacts(model, g: Geometry, usable, tol, report) -> None:
                 f"{what}: {len(sel)} facet pairs cross each other{between}; {e}; {fix}",
                 facets))
         elif kind == COINCIDENT_SAME:
-            fix = ("set repair = true to drop duplicate facets, or remove one of the "
-                   "surfaces" if i == j else "leave a gap or remove one of the surfaces")
+            repairing = model.part(g.part_names[i]).parameters.get("repair")
+            fix = ("remove one of the surfaces" + (
+                   "" if repairing else " (repair = true drops facets repeated vertex for "
+                   "vertex)") if i == j else "leave a gap or remove one of the surfaces")
             report.problems.append(Problem(
                 "error", model.path, where,
                 f"{len(sel)} pairs of coincident overlapping facets facing the same way"
@@ -394,8 +396,8 @@ def _check_contacts(model, g: Geometry, usable, tol, report) -> None:
                 facets))
         elif kind == COINCIDENT_OPPOSITE:
             covered = min(g.areas[np.unique(a)].sum(), g.areas[np.unique(b)].sum())
-            fix = ("a surface written twice, once each way (set repair = true to drop "
-                   "the copy), or two bodies face to face: remove the covered faces or "
+            fix = ("a surface written twice, once each way (repair = true drops such a "
+                   "copy), or two bodies face to face: remove the covered faces or "
                    "leave a gap" if i == j else
                    "remove the covered face (e.g. caps = false) or leave a gap")
             report.problems.append(Problem(

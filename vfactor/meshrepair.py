@@ -16,8 +16,12 @@ Repair of one geometry, in this order:
 2. drop degenerate facets (height below that tolerance) and duplicate facets (the same
    three vertices, in either winding: a surface exported "double-sided");
 3. make the winding agree across every edge shared by two facets, per connected body
-   (``trimesh.repair.fix_winding``); an open body then keeps the orientation that most of
-   its area had in the file, a closed body is turned to face outward (positive volume).
+   (the orientation classes of :func:`vfactor.topology.orientation_classes`, vectorised,
+   where ``trimesh.repair.fix_winding`` walks the facets in Python: measured on a
+   224k-facet public model, 14.6 s for that step alone against 3.2 s for this whole
+   repair); an open body then keeps the orientation that
+   most of its area had in the file, a closed body is turned to face outward (positive
+   volume). A body that cannot be oriented (a one-sided surface) is left as it is.
 
 Nothing else changes: vertices keep their coordinates, so areas change only by what was
 dropped.
@@ -46,9 +50,9 @@ def repair_piece(vertices: np.ndarray, faces: np.ndarray):
     (vertices, faces, counts) — counts is a dict over :data:`REPAIR_COUNTS`
     """
     import trimesh
-    from trimesh.graph import connected_component_labels
 
     from vfactor.shapes import merge_exact
+    from vfactor.topology import orientation_classes
 
     # bit-identical copies (an STL file repeats every vertex per facet) are not a defect
     vertices, faces = merge_exact(np.asarray(vertices, float), np.asarray(faces, np.int64))
@@ -69,14 +73,13 @@ def repair_piece(vertices: np.ndarray, faces: np.ndarray):
     if len(m.faces) == 0:
         return np.asarray(m.vertices, float), np.asarray(m.faces, np.int64), counts
 
-    original = np.asarray(m.face_normals, float).copy()
-    trimesh.repair.fix_winding(m)
-    faces_now = np.asarray(m.faces, np.int64).copy()
-    flipped = np.einsum("ij,ij->i", np.asarray(m.face_normals, float), original) < 0.0
-    body = connected_component_labels(m.face_adjacency, node_count=len(faces_now))
-    area = np.asarray(m.area_faces, float)
     v = np.asarray(m.vertices, float)
+    faces_now = np.asarray(m.faces, np.int64).copy()
+    body, flipped, _ = orientation_classes(faces_now)
+    faces_now[flipped] = faces_now[flipped][:, ::-1]
     tri = v[faces_now]
+    cross = np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0])
+    area = 0.5 * np.linalg.norm(cross, axis=1)
     volume = np.einsum("ij,ij->i", tri[:, 0], np.cross(tri[:, 1], tri[:, 2])) / 6.0
     edges = np.sort(faces_now[:, [0, 1, 1, 2, 2, 0]].reshape(-1, 2), axis=1)
     for b in np.unique(body):

@@ -22,7 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["EdgeReport", "edge_report"]
+__all__ = ["EdgeReport", "edge_report", "orientation_classes"]
 
 
 @dataclass(frozen=True)
@@ -53,19 +53,9 @@ class EdgeReport:
         return self.disagreeing_edges == 0
 
 
-def edge_report(triangles: np.ndarray) -> EdgeReport:
-    """Winding agreement and edge counts of triangles (vertex indices, (f, 3)).
-
-    Vertices are compared by index: callers merge equal coordinates first (the mesh
-    reader shares bit-identical vertices).
-    """
-    from scipy.sparse import coo_matrix
-    from scipy.sparse.csgraph import connected_components
-
-    t = np.asarray(triangles, np.int64)
+def _edges(t: np.ndarray):
+    """Edges of triangles grouped: sorted (lo, hi, start, facet) and group starts/counts."""
     f = len(t)
-    if f == 0:
-        return EdgeReport(0, None, 0, False, 0, 0, None)
     start = t.reshape(-1)
     end = t[:, [1, 2, 0]].reshape(-1)
     facet = np.repeat(np.arange(f), 3)
@@ -76,25 +66,78 @@ def edge_report(triangles: np.ndarray) -> EdgeReport:
     new[1:] = (lo[1:] != lo[:-1]) | (hi[1:] != hi[:-1])
     first = np.flatnonzero(new)
     count = np.diff(np.append(first, len(lo)))
-    open_edges = int((count == 1).sum())
-    many = first[count >= 3]
-    non_manifold_example = (tuple(int(x) for x in facet[many[0]:many[0] + 3])
-                            if len(many) else None)
+    return start, facet, first, count
+
+
+def _double_cover(f: int, start, facet, first, count):
+    """Components of the double cover: (up, down) labels per facet, and the two-facet
+    edges as (a, b, same_way)."""
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+
     pair = first[count == 2]
     a, b = facet[pair], facet[pair + 1]
     same_way = start[pair] == start[pair + 1]
-    bad = np.flatnonzero(same_way)
-    example = None
-    if len(bad):
-        k = bad[np.argmin(np.minimum(a[bad], b[bad]))]
-        example = (int(min(a[k], b[k])), int(max(a[k], b[k])))
-    # double cover: node 2 i + s is facet i with orientation s
     flip = same_way.astype(np.int64)
     rows = np.concatenate([2 * a, 2 * a + 1])
     cols = np.concatenate([2 * b + flip, 2 * b + 1 - flip])
     graph = coo_matrix((np.ones(len(rows), np.int8), (rows, cols)), shape=(2 * f, 2 * f))
     _, label = connected_components(graph, directed=False)
-    up, down = label[0::2], label[1::2]
+    return label[0::2], label[1::2], a, b, same_way
+
+
+def orientation_classes(triangles: np.ndarray):
+    """Which facets a repair turns so that every body agrees with itself.
+
+    Parameters
+    ----------
+    triangles : (f, 3) int — vertex indices (equal coordinates merged)
+
+    Returns
+    -------
+    body : (f,) int — connected body of each facet (through two-facet edges), 0-based
+    turn : (f,) bool — facets in the other orientation class than the body's first facet
+    orientable : (f,) bool — False on bodies that cannot be oriented (left as they are)
+    """
+    t = np.asarray(triangles, np.int64)
+    f = len(t)
+    if f == 0:
+        return np.zeros(0, np.int64), np.zeros(0, bool), np.zeros(0, bool)
+    up, down, *_ = _double_cover(f, *_edges(t))
+    orientable_facet = up != down
+    key = np.minimum(up, down)
+    _, body = np.unique(key, return_inverse=True)
+    body = body.reshape(-1)
+    bad_body = np.zeros(body.max() + 1, bool)
+    bad_body[body[~orientable_facet]] = True
+    first = np.full(body.max() + 1, f, np.int64)
+    np.minimum.at(first, body, np.arange(f))
+    reference = up[first[body]]
+    turn = (up != reference) & ~bad_body[body]
+    return body, turn, ~bad_body[body]
+
+
+def edge_report(triangles: np.ndarray) -> EdgeReport:
+    """Winding agreement and edge counts of triangles (vertex indices, (f, 3)).
+
+    Vertices are compared by index: callers merge equal coordinates first (the mesh
+    reader shares bit-identical vertices).
+    """
+    t = np.asarray(triangles, np.int64)
+    f = len(t)
+    if f == 0:
+        return EdgeReport(0, None, 0, False, 0, 0, None)
+    start, facet, first, count = _edges(t)
+    open_edges = int((count == 1).sum())
+    many = first[count >= 3]
+    non_manifold_example = (tuple(int(x) for x in facet[many[0]:many[0] + 3])
+                            if len(many) else None)
+    up, down, a, b, same_way = _double_cover(f, start, facet, first, count)
+    bad = np.flatnonzero(same_way)
+    example = None
+    if len(bad):
+        k = bad[np.argmin(np.minimum(a[bad], b[bad]))]
+        example = (int(min(a[k], b[k])), int(max(a[k], b[k])))
     non_orientable = bool((up == down).any())
     turn = 0
     if len(bad) and not non_orientable:
