@@ -56,15 +56,32 @@ def test_named_bodies_that_cross_are_named(tmp_path):
 
 def test_duplicate_facet_within_a_part_is_found_and_repair_drops_it(tmp_path):
     shutil.copy(DATA / "messy_box.stl", tmp_path / "box.stl")
+    # one node for the whole box: the repeat only counts its 1/6 m2 twice (a warning)
     report = check_model(_mesh_model(tmp_path, "box.stl"))
-    dup = next(p for p in report.errors if "coincident overlapping facets facing the same "
-               "way" in p.message)
+    dup = next(p for p in report.warnings if "coincident overlapping facets facing the "
+               "same way" in p.message)
     assert dup.message.startswith("1 pairs") and "repair = true drops" in dup.message
+    assert "about 0.5 m2 twice" in dup.message          # one facet: half of a 1 m face
     mesh = trimesh.load(tmp_path / "box.stl", process=False)
     mesh.merge_vertices()
     assert int((~mesh.unique_faces()).sum()) == 1                   # trimesh agrees: one
+    # one node per facet: a ray may hit either copy, so either node: an error
+    path = _mesh_model(tmp_path, "box.stl")
+    path.write_text(path.read_text().replace('{ coating = "w" }',
+                                             '{ coating = "w", nodes = "per-facet" }'))
+    assert any("hits either node" in p.message for p in check_model(path).errors)
     repaired = check_model(_mesh_model(tmp_path, "box.stl", "repair = true\n"))
-    assert repaired.ok
+    assert repaired.ok and not any("coincident" in p.message for p in repaired.problems)
+
+
+def test_self_crossing_warn_lets_the_run_go_on(tmp_path):
+    shutil.copy(DATA / "crossing_boxes.stl", tmp_path / "x.stl")
+    report = check_model(_mesh_model(tmp_path, "x.stl", 'self_crossing = "warn"\n'))
+    assert report.ok
+    line = next(p.message for p in report.warnings if "intersects itself" in p.message)
+    assert "allowed by self_crossing = 'warn'" in line and "% of the part's area" in line
+    bad = check_model(_mesh_model(tmp_path, "x.stl", 'self_crossing = "ignore"\n'))
+    assert any("self_crossing" in p.where for p in bad.errors)
 
 
 def test_a_surface_written_both_ways_is_face_to_face_contact(tmp_path):

@@ -380,8 +380,18 @@ def _check_contacts(model, g: Geometry, usable, tol, report) -> None:
                    "([[parts.select]] with omit = true)" if i == j else
                    "move the parts apart or let them only touch")
             what = "intersects itself" if i == j else "parts intersect"
+            allowed = i == j and model.part(g.part_names[i]).parameters.get(
+                "self_crossing") == "warn"
+            if allowed:
+                share = g.areas[np.unique(np.concatenate([a, b]))].sum() / max(
+                    g.areas[g.part == i].sum(), 1e-300)
+                fix = (f"the crossing facets are {100 * share:.1f} % of the part's area; "
+                       f"allowed by self_crossing = 'warn', but area inside other bodies "
+                       f"still emits and absorbs in the model")
+            elif i == j:
+                fix += " (or self_crossing = 'warn' to go on with a warning)"
             report.problems.append(Problem(
-                "error", model.path, where,
+                "warning" if allowed else "error", model.path, where,
                 f"{what}: {len(sel)} facet pairs cross each other{between}; {e}; {fix}",
                 facets))
         elif kind == COINCIDENT_SAME:
@@ -389,11 +399,22 @@ def _check_contacts(model, g: Geometry, usable, tol, report) -> None:
             fix = ("remove one of the surfaces" + (
                    "" if repairing else " (repair = true drops facets repeated vertex for "
                    "vertex)") if i == j else "leave a gap or remove one of the surfaces")
-            report.problems.append(Problem(
-                "error", model.path, where,
-                f"{len(sel)} pairs of coincident overlapping facets facing the same way"
-                f"{between}; {e}; Monte Carlo results are meaningless there: {fix}",
-                facets))
+            same_sides = ((g.front_node[a] == g.front_node[b]) &
+                          (g.back_node[a] == g.back_node[b])).all()
+            if same_sides:
+                # one node either way: the first hit does not matter, the area counts twice
+                doubled = min(g.areas[np.unique(a)].sum(), g.areas[np.unique(b)].sum())
+                report.problems.append(Problem(
+                    "warning", model.path, where,
+                    f"{len(sel)} pairs of coincident overlapping facets facing the same "
+                    f"way{between}, in the same nodes; {e}; their node areas count about "
+                    f"{doubled:.3g} m2 twice: {fix}", facets))
+            else:
+                report.problems.append(Problem(
+                    "error", model.path, where,
+                    f"{len(sel)} pairs of coincident overlapping facets facing the same "
+                    f"way{between}; {e}; Monte Carlo results are meaningless there (a ray "
+                    f"hits either node): {fix}", facets))
         elif kind == COINCIDENT_OPPOSITE:
             covered = min(g.areas[np.unique(a)].sum(), g.areas[np.unique(b)].sum())
             fix = ("a surface written twice, once each way (repair = true drops such a "

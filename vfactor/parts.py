@@ -14,7 +14,8 @@ sphere     ``radius``, ``segments``
 dish       ``radius``, ``depth``, ``segments``
 mesh       ``file`` (relative to the model file), ``scale`` (default 1),
            ``file_unit``, ``closed`` (default: whether the mesh is watertight),
-           ``repair`` (default false), ``simplify`` (target facet count)
+           ``repair`` (default false), ``simplify`` (target facet count),
+           ``self_crossing`` (``error`` or ``warn``)
 =========  ====================================================================
 
 Common keys: ``name`` (unique), ``shape``, ``center``, ``z_axis``, ``x_axis``,
@@ -88,7 +89,7 @@ _SHAPE_KEYS = {
     "cone": ("radius", "top_radius", "length", "caps", "segments"),
     "sphere": ("radius", "segments"),
     "dish": ("radius", "depth", "segments"),
-    "mesh": ("file", "scale", "closed", "file_unit", "repair", "simplify"),
+    "mesh": ("file", "scale", "closed", "file_unit", "repair", "simplify", "self_crossing"),
 }
 _REQUIRED_SHAPE_KEYS = {
     "rectangle": ("size",),
@@ -102,6 +103,10 @@ _REQUIRED_SHAPE_KEYS = {
 }
 _SELECT_KEYS = ("match", "name", "front", "back", "omit", "description")
 _LENGTH_KEYS = ("radius", "inner_radius", "top_radius", "length", "depth")
+SELF_CROSSING = ("error", "warn")
+"""Values of a mesh part's ``self_crossing``: what facets of the part that cross each
+other are (an error stops the run; a warning lets it go on and is stored with the
+results)."""
 MIN_SIMPLIFY_FACETS = 4
 """Smallest ``simplify`` target a mesh part may ask for (a tetrahedron)."""
 DEFAULT_SEGMENTS = 32
@@ -308,6 +313,11 @@ def _read_part(tab, pname, shape, index, where, reader, coatings, scale, base) -
         params["closed"] = (reader.boolean(tab["closed"], f"{where} closed")
                             if "closed" in tab else None)
         params["repair"] = reader.boolean(tab.get("repair", False), f"{where} repair")
+        params["self_crossing"] = tab.get("self_crossing", "error")
+        if params["self_crossing"] not in SELF_CROSSING:
+            reader.error(f"{where} self_crossing", f"must be one of "
+                         f"{', '.join(repr(x) for x in SELF_CROSSING)}, got "
+                         f"{show(params['self_crossing'])}")
         params["simplify"] = (reader.integer(tab["simplify"], f"{where} simplify",
                                              MIN_SIMPLIFY_FACETS)
                               if "simplify" in tab else None)
