@@ -23,6 +23,7 @@ bench: $(STAMP)
 	$(BIN)/python scripts/bench_raytrace.py
 	$(BIN)/python scripts/bench_viewfactors.py
 	$(BIN)/python scripts/bench_heating.py
+	$(BIN)/python scripts/bench_contacts.py
 
 clean:
 	rm -rf $(VENV) demo-output .pytest_cache
