@@ -36,7 +36,7 @@ name pattern and give them their own sides, so that one CAD assembly needs no
 splitting::
 
     [[parts.select]]
-    match = ["wing_*", "panel?"]        # shell-style patterns (fnmatch), case-sensitive
+    match = ["wing_*", "panel?"]        # names or shell-style patterns, case-sensitive
     name = "wings"                      # optional; default select1, select2, ...
     front = { coating = "cells", node = "wing_cells" }
     back = false                        # inert; a side left out keeps the part's side
@@ -155,8 +155,10 @@ class Selection:
     where: str = ""
 
     def matches(self, group: str) -> bool:
-        """Whether a group name matches one of the patterns."""
-        return any(fnmatch.fnmatchcase(group, p) for p in self.patterns)
+        """Whether a group name equals or matches one of the patterns (equality first, so
+        that names holding ``[`` or ``*``, as CAD label paths do, can be written as
+        they are)."""
+        return any(group == p or fnmatch.fnmatchcase(group, p) for p in self.patterns)
 
 
 def select_groups(selections, labels) -> list:

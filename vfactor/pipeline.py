@@ -68,7 +68,8 @@ class RunResult:
     workers : int — processes used for the ray tracing (1 in this process; 0 for dask)
     elapsed_s : dict — stage name -> seconds
     resumed_jobs : int — (node, round) pairs taken from a checkpoint
-    notes : tuple of str — stages skipped and why
+    notes : tuple of str — stages skipped and why; the check's warnings as
+        ``warning: WHERE: WHAT``
     """
 
     output: Path
@@ -115,7 +116,7 @@ class RunResult:
         if self.resumed_jobs:
             lines.append(f"  {self.resumed_jobs} (node, round) tallies taken from the checkpoint")
         for n in self.notes:
-            lines.append(f"  note: {n}")
+            lines.append(f"  {n}" if n.startswith("warning: ") else f"  note: {n}")
         return "\n".join(lines)
 
 
@@ -525,9 +526,10 @@ def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=N
     _refuse_overwriting_inputs(out, model)
     geometry = build_geometry(model)
     found = require_clean(model, geometry)
-    notes.extend(p.line() for p in found)
     check_warnings = [": ".join(x for x in (p.where, p.message) if x)
                       for p in found if p.severity == "warning"]
+    notes.extend(f"warning: {w}" for w in check_warnings)
+    notes.extend(p.message for p in found if p.severity != "warning")
     settings = model.radiation
     rays_per_node = int(rays if rays is not None else settings.rays_per_node)
     seed = int(seed if seed is not None else settings.seed)
