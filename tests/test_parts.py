@@ -157,3 +157,15 @@ def test_selection_by_pattern_on_a_step_assembly(tmp_path):
     assert g.nodes.area[0] == pytest.approx(6 * 0.05 ** 2, rel=1e-6)
     assert g.nodes.area[1] == pytest.approx(2 * (0.02 + 0.002 + 0.001), rel=1e-6)
     assert g.nodes.coating == ("black", "white")
+
+
+def test_a_name_with_brackets_matches_as_written():
+    import fnmatch
+
+    from vfactor.parts import Selection
+
+    label = "=>[0:1:1:3]_4"          # a CAD label path, as STEP converters name bodies
+    assert not fnmatch.fnmatchcase(label, label)       # as a pattern it is a class
+    sel = Selection(patterns=(label,), name="s")
+    assert sel.matches(label) and not sel.matches("=>[0:1:1:3]_5")
+    assert Selection(patterns=("=>*_4",), name="t").matches(label)
