@@ -41,6 +41,7 @@ import trimesh
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "tests"))
 
+from benchtools import best_time  # noqa: E402
 from oracles import contact_pairs_reference  # noqa: E402
 
 from vfactor.tracing.contacts import (COINCIDENT_OPPOSITE, COINCIDENT_SAME,  # noqa: E402
@@ -97,16 +98,6 @@ def scene(n_target, seed=7):
 def facet_normals(v, f):
     n = np.cross(v[f[:, 1]] - v[f[:, 0]], v[f[:, 2]] - v[f[:, 0]])
     return n / np.linalg.norm(n, axis=1)[:, None]
-
-
-def best_time(fn, repeat):
-    best = np.inf
-    out = None
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        out = fn()
-        best = min(best, time.perf_counter() - t0)
-    return best, out
 
 
 def main():

@@ -27,6 +27,8 @@ import time
 import numba
 import numpy as np
 
+from benchtools import best_time
+
 from vfactor.tracing.scene import Scene, cosine_rays, count_cosine_hits, rays_by_area
 
 
@@ -106,16 +108,6 @@ def spacecraft(n_target, cavity=False):
 def facet_areas(v, f):
     return 0.5 * np.linalg.norm(np.cross(v[f[:, 1]] - v[f[:, 0]], v[f[:, 2]] - v[f[:, 0]]),
                                 axis=1)
-
-
-def best_time(fn, repeat):
-    best = np.inf
-    out = None
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        out = fn()
-        best = min(best, time.perf_counter() - t0)
-    return best, out
 
 
 def embree_engine(v, f):
