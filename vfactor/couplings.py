@@ -1,0 +1,77 @@
+"""Records of radiative couplings: view factors and exchange (Gebhart factors, areas).
+
+Rows belong to emitting nodes; the columns and units are those of
+:mod:`vfactor.radiation`. Built by :func:`vfactor.radiation.view_factors_from_tallies`
+and :func:`vfactor.radiation.compute_exchange`; written and read by :mod:`vfactor.h5io`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["ViewFactors", "Exchange"]
+
+
+@dataclass(frozen=True)
+class ViewFactors:
+    """Node-to-node view factors with their statistical error.
+
+    Attributes
+    ----------
+    matrix : (n, n) float — smoothed view factors; row i = from node i [1]
+    space : (n,) float — smoothed view factor to deep space [1]
+    inert : (n,) float — share of emitted rays lost on inert sides [1]
+    stderr : (n, n) float — one-sigma statistical error of each raw entry [1]: standard
+        error of the mean over independent randomised replicates (rounds), see
+        :func:`vfactor.tallystats.tally_statistics`
+    stderr_space : (n,) float — one-sigma error of ``raw_space`` [1]
+    raw_matrix, raw_space, raw_inert : as above, straight from the tallies (no smoothing) [1]
+    rays : (n,) int64 — rays emitted per node
+    adjustment_sigma : float — largest |smoothed - raw| / stderr over significant entries
+        (node and space entries >= :data:`vfactor.tallystats.SIGNIFICANCE` of their row) [1]
+    method : str — name of the smoothing method
+    converged : bool — True when ``target_error`` was reached (True when none was asked)
+    target_error : float or None — requested one-sigma error of significant entries [1]
+    facet_matrix : scipy.sparse.csr_matrix or None — facet-side-to-node-side factors on request
+    """
+
+    matrix: np.ndarray
+    space: np.ndarray
+    inert: np.ndarray
+    stderr: np.ndarray
+    stderr_space: np.ndarray
+    raw_matrix: np.ndarray
+    raw_space: np.ndarray
+    raw_inert: np.ndarray
+    rays: np.ndarray
+    adjustment_sigma: float
+    method: str
+    converged: bool
+    target_error: float | None = None
+    facet_matrix: object = None
+
+
+@dataclass(frozen=True)
+class Exchange:
+    """Gebhart (absorption) factors and exchange areas in one band.
+
+    Attributes
+    ----------
+    gebhart : (n, n) float — B_ij, share of energy emitted by i absorbed by j [1]
+    gebhart_space : (n,) float — share of energy emitted by i that escapes to space [1]
+    area : (n, n) float — exchange area eps_i A_i B_ij [m2]; conductance = sigma * area
+    area_space : (n,) float — eps_i A_i B_i,space [m2]
+    stderr : (n, n) float or None — one-sigma error of ``gebhart`` where it was estimated [1]
+    method : str — ``"matrix"`` (diffuse linear solve) or ``"monte-carlo"`` (reflection tracing)
+    band : str — ``"ir"`` or ``"solar"``
+    """
+
+    gebhart: np.ndarray
+    gebhart_space: np.ndarray
+    area: np.ndarray
+    area_space: np.ndarray
+    stderr: np.ndarray | None
+    method: str
+    band: str = "ir"
