@@ -100,3 +100,26 @@ def test_summary_warns_of_inert_losses_and_large_errors(tmp_path):
     assert any("run with more rays" in w for w in s["warnings"]), s["warnings"]
     text = summary.format_summary(r)
     assert "\nWarnings\n" in text and text.index("Warnings") < text.index("Cautions")
+
+
+def test_strongest_pairs_are_the_top_of_the_full_ranking(demo_model_path, tmp_path):
+    # the top-N selection (numpy partition) must equal the head of a plain full sort of
+    # every pair by exchange area (the definition of "strongest"), ties by pair order
+    from vfactor.pipeline import run
+
+    out = tmp_path / "demo.h5"
+    run(demo_model_path, out, rays=2000)
+    r = h5io.read_results(out)
+    full = summary.summarize(r, top=10**6)["couplings"]
+    names = r.geometry.nodes.names
+    area = r.exchange.area
+    n = len(names)
+    ranked = sorted(((i, j) for i in range(n) for j in range(i + 1, n)
+                     if area[i, j] > 0 or r.view_factors.matrix[i, j] > 0),
+                    key=lambda p: -area[p])
+    assert full["pairs_total"] == len(ranked)
+    assert [(p["from"], p["to"]) for p in full["strongest"]] == \
+        [(names[i], names[j]) for i, j in ranked]
+    for top in (1, 4, 15):
+        head = summary.summarize(r, top=top)["couplings"]
+        assert head["strongest"] == full["strongest"][:top] and head["shown"] == top

@@ -157,38 +157,43 @@ def summarize(results: Results, top: int = 15) -> dict:
     couplings = space = accuracy = None
     if vf is not None:
         eps_area = nodes.ir_emissivity * nodes.area
+        # pair keys over the upper triangle in numpy: only the shown rows become dicts, so
+        # the summary of a 20,000-node model costs n^2 array work, not n^2 Python objects
+        iu, ju = np.triu_indices(n, k=1)
+        F = np.asarray(vf.matrix)
+        key = (np.asarray(ex.area)[iu, ju] if ex is not None else F[iu, ju] * eps_area[iu])
+        keep = ~((key <= 0) & (F[iu, ju] <= 0))
+        iu, ju, key = iu[keep], ju[keep], key[keep]
+        shown = min(top, len(key))
+        if shown < len(key):
+            best = np.argpartition(-key, shown - 1)[:shown] if shown else np.zeros(0, int)
+        else:
+            best = np.arange(len(key))
+        best = best[np.lexsort((best, -key[best]))]     # strongest first, ties by position
         pairs = []
-        for i in range(n):
-            for j in range(i + 1, n):
-                area_ij = float(ex.area[i, j]) if ex is not None else None
-                key = area_ij if area_ij is not None else float(vf.matrix[i, j] * eps_area[i])
-                if key <= 0 and vf.matrix[i, j] <= 0:
-                    continue
-                row = {"from": nodes.names[i], "to": nodes.names[j],
-                       "view_factor": float(vf.matrix[i, j]),
-                       "view_factor_stderr": float(vf.stderr[i, j]),
-                       "view_factor_back": float(vf.matrix[j, i]),
-                       "_key": key}
-                if ex is not None:
-                    row["gebhart"] = float(ex.gebhart[i, j])
-                    row["exchange_area_m2"] = area_ij
-                    row["conductance_W_K4"] = STEFAN_BOLTZMANN * area_ij
-                    if ex.stderr is not None:
-                        err = float(eps_area[i] * ex.stderr[i, j])
-                        row["error_basis"] = "gebhart"
-                    elif vf.matrix[i, j] > 0:
-                        err = area_ij * float(vf.stderr[i, j] / vf.matrix[i, j])
-                        row["error_basis"] = "view factor (relative error carried over)"
-                    else:
-                        err = None
-                        row["error_basis"] = None
-                    row["exchange_area_stderr_m2"] = err
-                pairs.append(row)
-        pairs.sort(key=lambda r: -r["_key"])
-        for r in pairs:
-            del r["_key"]
-        couplings = {"pairs_total": len(pairs), "shown": min(top, len(pairs)),
-                     "strongest": pairs[:top]}
+        for k in best:
+            i, j = int(iu[k]), int(ju[k])
+            area_ij = float(ex.area[i, j]) if ex is not None else None
+            row = {"from": nodes.names[i], "to": nodes.names[j],
+                   "view_factor": float(vf.matrix[i, j]),
+                   "view_factor_stderr": float(vf.stderr[i, j]),
+                   "view_factor_back": float(vf.matrix[j, i])}
+            if ex is not None:
+                row["gebhart"] = float(ex.gebhart[i, j])
+                row["exchange_area_m2"] = area_ij
+                row["conductance_W_K4"] = STEFAN_BOLTZMANN * area_ij
+                if ex.stderr is not None:
+                    err = float(eps_area[i] * ex.stderr[i, j])
+                    row["error_basis"] = "gebhart"
+                elif vf.matrix[i, j] > 0:
+                    err = area_ij * float(vf.stderr[i, j] / vf.matrix[i, j])
+                    row["error_basis"] = "view factor (relative error carried over)"
+                else:
+                    err = None
+                    row["error_basis"] = None
+                row["exchange_area_stderr_m2"] = err
+            pairs.append(row)
+        couplings = {"pairs_total": int(len(key)), "shown": shown, "strongest": pairs}
         space = []
         for i in range(n):
             row = {"node": nodes.names[i], "view_factor": float(vf.space[i]),
