@@ -24,6 +24,7 @@ bench: $(STAMP)
 	$(BIN)/python scripts/bench_viewfactors.py
 	$(BIN)/python scripts/bench_heating.py
 	$(BIN)/python scripts/bench_contacts.py
+	$(BIN)/python scripts/bench_scale.py
 
 clean:
 	rm -rf $(VENV) demo-output .pytest_cache
