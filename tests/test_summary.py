@@ -32,6 +32,8 @@ def test_summary_numbers_match_the_file(results):
     # Exchange.stderr is given: area error = eps_i A_i sigma(B_ij)
     assert pair["exchange_area_stderr_m2"] == pytest.approx(0.85 * 1.0 * 1e-3, rel=1e-12)
     assert s["space"][1]["view_factor"] == kw["view_factors"].space[1]
+    # the view factor of a node to itself (a concave node sees itself) is listed too
+    assert s["space"][1]["self_view_factor"] == kw["view_factors"].matrix[1, 1]
     heat = kw["heating"]
     row = s["heat_loads"]["nodes"][0]
     assert row["solar"]["max_W"] == heat.node_solar[:, 0].max()

@@ -198,6 +198,7 @@ def summarize(results: Results, top: int = 15) -> dict:
         for i in range(n):
             row = {"node": nodes.names[i], "view_factor": float(vf.space[i]),
                    "view_factor_stderr": float(vf.stderr_space[i]),
+                   "self_view_factor": float(vf.matrix[i, i]),
                    "inert": float(vf.inert[i]), "rays": int(vf.rays[i])}
             if ex is not None:
                 row["gebhart"] = float(ex.gebhart_space[i])
@@ -351,11 +352,12 @@ def format_summary(results: Results, top: int = 15) -> str:
                          _g(r.get("conductance_W_K4"))))
         lines += _table(["pair", "view factor", "Gebhart", "exch. area [m2]",
                          "conductance [W K-4]"], rows)
-        lines += ["", "Couplings to deep space"]
-        lines += _table(["node", "view factor", "to inert", "Gebhart", "exch. area [m2]",
-                         "conductance [W K-4]", "rays"],
+        lines += ["", "Couplings to deep space (and of each node to itself)"]
+        lines += _table(["node", "view factor", "to itself", "to inert", "Gebhart",
+                         "exch. area [m2]", "conductance [W K-4]", "rays"],
                         [(r["node"], f"{r['view_factor']:.4f} +- {r['view_factor_stderr']:.1e}",
-                          f"{r['inert']:.4f}", _g(r.get("gebhart")),
+                          f"{r['self_view_factor']:.4f}", f"{r['inert']:.4f}",
+                          _g(r.get("gebhart")),
                           _g(r.get("exchange_area_m2")), _g(r.get("conductance_W_K4")),
                           f"{r['rays']:,}") for r in s["space"]])
         acc = s["accuracy"]
