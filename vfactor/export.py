@@ -23,8 +23,9 @@ from pathlib import Path
 
 import numpy as np
 
+from . import atomic
 from .constants import STEFAN_BOLTZMANN
-from .errors import ArgumentError, ResultsFileError
+from .errors import ArgumentError
 from .h5io import Results
 
 __all__ = ["FORMATS", "DEFAULT_THRESHOLD", "export", "export_csv", "export_vtk",
@@ -58,6 +59,10 @@ def export(results: Results, fmt: str, path, *, threshold: float = DEFAULT_THRES
     ------
     ArgumentError
         Unknown format or negative threshold.
+    vfactor.atomic.OutputError
+        A file would replace the results file read (``results.path``), or cannot be
+        written (full disk, read-only folder). Every file is written atomically
+        (:mod:`vfactor.atomic`): on failure no file of the export is changed.
     """
     if fmt not in FORMATS:
         raise ArgumentError(f"unknown export format {fmt!r}; choose one of {', '.join(FORMATS)}")
@@ -79,13 +84,22 @@ def _fmt(x) -> str:
     return repr(float(x))  # shortest text that reads back to the same float64
 
 
-def _write_csv(path: Path, header, rows) -> Path:
-    with open(path, "w", newline="", encoding="utf-8") as fh:
+def _write_csv(batch: atomic.Batch, path: Path, header, rows, what: str) -> Path:
+    """One table into ``batch`` (renamed into place with the others when all are done)."""
+    with batch.open(path, what, text=True, newline="") as fh:
         w = csv.writer(fh)
         w.writerow(header)
         for r in rows:
             w.writerow([_fmt(c) for c in r])
     return path
+
+
+def _inputs(results: Results) -> list:
+    """Files an export must not replace: the results file it reads."""
+    return [results.path] if getattr(results, "path", None) else []
+
+
+_HINT = "give the export another name or folder"
 
 
 def export_csv(results: Results, folder, *, threshold: float = DEFAULT_THRESHOLD) -> list:
@@ -98,7 +112,15 @@ def export_csv(results: Results, folder, *, threshold: float = DEFAULT_THRESHOLD
     folder = Path(folder)
     if folder.exists() and not folder.is_dir():
         raise ArgumentError(f"{folder}: CSV export needs a folder, and this is a file")
-    folder.mkdir(parents=True, exist_ok=True)
+    names = ["nodes.csv"] + (["couplings.csv"] if results.view_factors is not None else []) \
+        + (["heat_loads.csv"] if results.heating is not None else [])
+    atomic.refuse_inputs([folder / x for x in names], _inputs(results), hint=_HINT)
+    with atomic.Batch(_inputs(results), hint=_HINT) as batch:
+        batch.folder(folder, "the CSV folder")
+        return _csv_tables(results, folder, threshold, batch)
+
+
+def _csv_tables(results: Results, folder: Path, threshold: float, batch) -> list:
     g = results.geometry
     nodes = g.nodes
     n = len(nodes)
@@ -123,7 +145,7 @@ def export_csv(results: Results, folder, *, threshold: float = DEFAULT_THRESHOLD
         rows.append([nodes.names[i], nodes.coating[i], nodes.area[i],
                      nodes.solar_absorptivity[i], nodes.ir_emissivity[i],
                      int(nodes.facet_count[i])] + [c[i] for c in cols])
-    written.append(_write_csv(folder / "nodes.csv", header, rows))
+    written.append(_write_csv(batch, folder / "nodes.csv", header, rows, "the node table"))
 
     if vf is not None:
         header = ["from", "to", "view_factor [1]", "view_factor_stderr [1]"]
@@ -140,7 +162,8 @@ def export_csv(results: Results, folder, *, threshold: float = DEFAULT_THRESHOLD
                 if ex is not None:
                     row += [b_ij, ex.area[i, j], STEFAN_BOLTZMANN * ex.area[i, j]]
                 rows.append(row)
-        written.append(_write_csv(folder / "couplings.csv", header, rows))
+        written.append(_write_csv(batch, folder / "couplings.csv", header, rows,
+                                  "the coupling table"))
 
     if heat is not None:
         tr = results.trajectory
@@ -152,7 +175,8 @@ def export_csv(results: Results, folder, *, threshold: float = DEFAULT_THRESHOLD
                 s, a, p = heat.node_solar[k, i], heat.node_albedo[k, i], heat.node_planet_ir[k, i]
                 rows.append([k, tr.time[k], tr.sun_fraction[k], nodes.names[i], s, a, p,
                              s + a + p])
-        written.append(_write_csv(folder / "heat_loads.csv", header, rows))
+        written.append(_write_csv(batch, folder / "heat_loads.csv", header, rows,
+                                  "the heat-load table"))
     return written
 
 
@@ -205,15 +229,18 @@ def export_vtk(results: Results, path) -> Path:
     import meshio
 
     path = _mesh_target(path, ".vtu", (".vtu", ".vtk"))
+    atomic.refuse_inputs(path, _inputs(results), hint=_HINT)
     g = results.geometry
     fields = facet_fields(results)
     mesh = meshio.Mesh(points=np.asarray(g.vertices, float),
                        cells=[("triangle", np.asarray(g.triangles, np.int64))],
                        cell_data={name: [values] for name, (values, _u) in fields.items()})
-    try:
-        mesh.write(path)
-    except (OSError, KeyError) as exc:
-        raise ResultsFileError(f"{path}: cannot write VTK file: {exc}") from None
+    file_format = "vtu" if path.suffix.lower() == ".vtu" else "vtk"
+    # meshio's VTU writer opens the file by name: it gets the temporary's name, and the
+    # format explicitly (the temporary ends in .tmp)
+    with atomic.Batch(_inputs(results), hint=_HINT) as batch:
+        with batch.path(path, "the VTK file") as tmp:
+            mesh.write(tmp, file_format=file_format)
     return path
 
 
@@ -235,6 +262,7 @@ def export_gltf(results: Results, path) -> Path:
     import trimesh
 
     path = _mesh_target(path, ".glb")
+    atomic.refuse_inputs(path, _inputs(results), hint=_HINT)
     g = results.geometry
     f = g.n_facets
     if results.facet_average is not None:
@@ -257,8 +285,6 @@ def export_gltf(results: Results, path) -> Path:
     mesh.vertex_attributes["_VALUE"] = np.repeat(values.astype(np.float32), 3)
     mesh.metadata.update({"quantity": quantity, "units": units, "colormap": cmap,
                           "vmin": vmin, "vmax": vmax, "model": results.model_name})
-    try:
-        mesh.export(path, file_type="glb")
-    except OSError as exc:
-        raise ResultsFileError(f"{path}: cannot write glTF file: {exc}") from None
+    with atomic.open_atomic(path, "the glTF file", inputs=_inputs(results), hint=_HINT) as fh:
+        fh.write(mesh.export(file_type="glb"))
     return path

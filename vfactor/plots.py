@@ -11,7 +11,9 @@ Figures (each function returns the file it wrote):
 - :func:`plot_orbit` — the orbit seen along its normal with the Sun direction and the
   shadowed arc, and the beta angle and sun fraction along the orbit.
 
-Matplotlib is used through :class:`matplotlib.figure.Figure` and the Agg canvas only, so
+Every figure is written atomically through :mod:`vfactor.atomic`; the ``batch`` argument
+of the figure functions (a :class:`vfactor.atomic.Batch`) lets :func:`plot_all` replace all
+figures together or none. Matplotlib is used through :class:`matplotlib.figure.Figure` and the Agg canvas only, so
 no display and no global pyplot state is involved.
 """
 
@@ -21,10 +23,11 @@ from pathlib import Path
 
 import numpy as np
 
+from . import atomic
 from .errors import ArgumentError
 from .h5io import Results, node_averages
 
-__all__ = ["SOURCE_COLOURS", "plot_all", "plot_heat_loads", "plot_absorbed_flux",
+__all__ = ["SOURCE_COLOURS", "plot_all", "figure_names", "plot_heat_loads", "plot_absorbed_flux",
            "plot_couplings", "plot_orbit"]
 
 SOURCE_COLOURS = {"solar": "#e3a23b", "albedo": "#7fb0d8", "planet_ir": "#b5524a"}
@@ -41,9 +44,27 @@ def _figure(width, height):
     return fig
 
 
-def _save(fig, path: Path) -> Path:
-    fig.savefig(path, dpi=_DPI)
+def _save(fig, path: Path, batch=None) -> Path:
+    """Write ``fig`` as PNG to ``path`` atomically (:mod:`vfactor.atomic`), within
+    ``batch`` when given (renamed into place with the other figures at its end)."""
+    if batch is None:
+        with atomic.open_atomic(path, f"the figure {path.name}") as fh:
+            fig.savefig(fh, dpi=_DPI, format="png")
+    else:
+        with batch.open(path, f"the figure {path.name}") as fh:
+            fig.savefig(fh, dpi=_DPI, format="png")
     return path
+
+
+def figure_names(results: Results) -> list:
+    """File names :func:`plot_all` writes for ``results``, in order."""
+    names = ["heat_loads.png", "absorbed_flux.png"] if results.heating is not None \
+        else ["nodes.png"]
+    if results.exchange is not None or results.view_factors is not None:
+        names.append("couplings.png")
+    if results.trajectory is not None:
+        names.append("orbit.png")
+    return names
 
 
 def plot_all(results: Results, folder) -> list:
@@ -54,23 +75,30 @@ def plot_all(results: Results, folder) -> list:
     list of pathlib.Path
         ``absorbed_flux.png`` (or ``nodes.png`` without heating), ``couplings.png`` when
         the run has exchange factors, and ``heat_loads.png`` and ``orbit.png`` when it has an
-        orbit.
+        orbit (:func:`figure_names`).
+
+    Raises
+    ------
+    ArgumentError
+        ``folder`` is a file.
+    vfactor.atomic.OutputError
+        A figure would replace the results file read, or cannot be written (read-only
+        folder, full disk). The figures are one :class:`vfactor.atomic.Batch`: either all
+        are replaced or none is.
     """
     folder = Path(folder)
     if folder.exists() and not folder.is_dir():
         raise ArgumentError(f"{folder}: plots need a folder, and this is a file")
-    folder.mkdir(parents=True, exist_ok=True)
-    out = []
-    if results.heating is not None:
-        out.append(plot_heat_loads(results, folder / "heat_loads.png"))
-        out.append(plot_absorbed_flux(results, folder / "absorbed_flux.png"))
-    else:
-        out.append(plot_absorbed_flux(results, folder / "nodes.png"))
-    if results.exchange is not None or results.view_factors is not None:
-        out.append(plot_couplings(results, folder / "couplings.png"))
-    if results.trajectory is not None:
-        out.append(plot_orbit(results, folder / "orbit.png"))
-    return out
+    inputs = [results.path] if getattr(results, "path", None) else []
+    hint = "give the figures another folder"
+    atomic.refuse_inputs([folder / name for name in figure_names(results)], inputs, hint=hint)
+    makers = {"heat_loads.png": plot_heat_loads, "absorbed_flux.png": plot_absorbed_flux,
+              "nodes.png": plot_absorbed_flux, "couplings.png": plot_couplings,
+              "orbit.png": plot_orbit}
+    with atomic.Batch(inputs, hint=hint) as batch:
+        batch.folder(folder, "the figure folder")
+        return [makers[name](results, folder / name, batch=batch)
+                for name in figure_names(results)]
 
 
 def _shadow_spans(ax, time_min, sun_fraction):
@@ -86,7 +114,7 @@ def _shadow_spans(ax, time_min, sun_fraction):
                        alpha=0.22 if f <= 0 else 0.10, lw=0)
 
 
-def plot_heat_loads(results: Results, path) -> Path:
+def plot_heat_loads(results: Results, path, *, batch=None) -> Path:
     """Absorbed power per node along the orbit, stacked by source, shadow shaded [W]."""
     heat, tr = results.heating, results.trajectory
     names = results.geometry.nodes.names
@@ -130,7 +158,7 @@ def plot_heat_loads(results: Results, path) -> Path:
     more = "" if len(names) <= _MAX_PANELS else f" ({k} largest of {len(names)} nodes)"
     fig.suptitle(f"{results.model_name}: absorbed environmental heat per node{more}, "
                  f"case {heat.case}", fontsize=10)
-    return _save(fig, Path(path))
+    return _save(fig, Path(path), batch)
 
 
 def _paint(fig, axes_slots, geometry, values, cmap, norm, title, label, views):
@@ -193,7 +221,7 @@ def _view_name(elev, azim) -> str:
     return f"seen from {' '.join(parts)} (body axes)"
 
 
-def plot_absorbed_flux(results: Results, path) -> Path:
+def plot_absorbed_flux(results: Results, path, *, batch=None) -> Path:
     """Time-averaged absorbed flux on the geometry from three viewpoints [W m-2].
 
     Without heating the facets are coloured by their front node instead.
@@ -230,10 +258,10 @@ def plot_absorbed_flux(results: Results, path) -> Path:
         cb.set_ticks(np.arange(g.n_nodes))
         cb.set_ticklabels(list(g.nodes.names), fontsize=7)
     fig.suptitle(title, fontsize=10)
-    return _save(fig, Path(path))
+    return _save(fig, Path(path), batch)
 
 
-def plot_couplings(results: Results, path) -> Path:
+def plot_couplings(results: Results, path, *, batch=None) -> Path:
     """The exchange-area matrix eps_i A_i B_ij with a space column, log colour scale [m2].
 
     Falls back to the view-factor matrix when the file has no exchange factors.
@@ -272,10 +300,10 @@ def plot_couplings(results: Results, path) -> Path:
     cb = fig.colorbar(img, ax=ax, shrink=0.85)
     cb.set_label(label, fontsize=9)
     ax.set_title(f"{results.model_name}\n{title}; grey = zero", fontsize=10)
-    return _save(fig, Path(path))
+    return _save(fig, Path(path), batch)
 
 
-def plot_orbit(results: Results, path) -> Path:
+def plot_orbit(results: Results, path, *, batch=None) -> Path:
     """Orbit seen along its normal (Sun direction, shadowed arc) and beta / sun fraction."""
     tr = results.trajectory
     pos_km = tr.position / 1e3
@@ -344,4 +372,4 @@ def plot_orbit(results: Results, path) -> Path:
     ax1.set_xlim(t_min[0], t_min[-1])
     fig.suptitle(f"{results.model_name}: orbit (period {tr.period / 60:.1f} min, "
                  f"epoch {tr.epoch_utc})", fontsize=10)
-    return _save(fig, Path(path))
+    return _save(fig, Path(path), batch)
