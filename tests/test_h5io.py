@@ -7,6 +7,7 @@ import numpy as np
 import pytest
 
 from vfactor import h5io
+from vfactor.atomic import OutputError
 from vfactor.constants import STEFAN_BOLTZMANN
 from vfactor.errors import ResultsFileError
 
@@ -129,8 +130,9 @@ def test_failed_write_leaves_no_file_and_keeps_old(tmp_path, monkeypatch):
 
 
 def test_missing_folder(tmp_path):
-    with pytest.raises(ResultsFileError, match="does not exist"):
+    with pytest.raises(OutputError, match="does not exist") as err:
         h5io.write_results(tmp_path / "nope" / "out.h5", **sample_results())
+    assert "\n" not in str(err.value)
 
 
 @pytest.mark.parametrize("kind", ["missing", "text", "foreign", "incomplete"])
@@ -191,3 +193,63 @@ def test_every_units_attribute_is_a_udunits_string(written):
                      else None)
     assert bad == []
     assert _is_udunits("W m-2") and _is_udunits("km s-1") and not _is_udunits("deg")
+
+
+# Damaged or odd results files: each is refused on read with one line naming the file and
+# the dataset (read_results checks every dataset once, before anything uses it).
+def _replace(h, name, data, **kw):
+    del h[name]
+    h.create_dataset(name, data=data, **kw)
+
+
+DAMAGE = {
+    "no orbit group": (lambda h: h.__delitem__("orbit"), r"/orbit: missing, but /heating"),
+    "no root seed": (lambda h: h.attrs.__delitem__("seed"), r"root attribute seed: missing"),
+    "seed as text": (lambda h: h.attrs.__setitem__("seed", "abc"),
+                     r"root attribute seed: 'abc' is not a whole number"),
+    "text in nodes/area": (lambda h: _replace(h, "nodes/area", np.array(["a", "b"], object),
+                                              dtype=h5py.string_dtype()),
+                           r"/nodes/area: holds text"),
+    "reshaped matrix": (lambda h: _replace(h, "view_factors/matrix",
+                                           h["view_factors/matrix"][()].reshape(1, 4)),
+                        r"/view_factors/matrix: has shape \(1, 4\), expected \(2, 2\)"),
+    "triangle index out of range": (lambda h: h["facets/triangles"].__setitem__((0, 0), 99),
+                                    r"/facets/triangles: index 99 out of range 0\.\.7"),
+    "node index out of range": (lambda h: h["facets/back_node"].__setitem__(1, 2),
+                                r"/facets/back_node: index 2 out of range -1\.\.1"),
+    "nodes/name shorter": (lambda h: _replace(h, "nodes/name", np.array(["bottom"], object),
+                                              dtype=h5py.string_dtype()),
+                           r"has shape \(2,\), expected \(1,\) \(from the 1 node names"),
+    "nodes/name longer": (lambda h: _replace(h, "nodes/name", np.array(["a", "b", "c"], object),
+                                             dtype=h5py.string_dtype()),
+                          r"has shape \(2,\), expected \(3,\) \(from the 3 node names"),
+    "heating steps != orbit steps": (lambda h: _replace(h, "heating/solar",
+                                                        h["heating/solar"][:5]),
+                                     r"/heating/solar: has shape \(5, 2\), expected \(8, 2\)"),
+    "facet table missing": (lambda h: h.__delitem__("heating/facet"), r"/heating/facet: missing"),
+    "orbit period as text": (lambda h: h["orbit"].attrs.__setitem__("period_s", "x"),
+                             r"/orbit attribute period_s: 'x' is not a number"),
+    "a group instead of a dataset": (lambda h: (h.__delitem__("exchange/area"),
+                                                h.create_group("exchange/area")),
+                                     r"/exchange/area: missing"),
+}
+
+
+@pytest.mark.parametrize("kind", sorted(DAMAGE))
+def test_damaged_results_files_are_one_line(tmp_path, kind):
+    damage, message = DAMAGE[kind]
+    path = h5io.write_results(tmp_path / "d.h5", **sample_results())
+    with h5py.File(path, "r+") as h:
+        damage(h)
+    with pytest.raises(ResultsFileError, match=message) as err:
+        h5io.read_results(path)
+    assert "\n" not in str(err.value) and str(err.value).startswith(f"{path}: ")
+
+
+def test_facet_factor_table_is_checked(tmp_path):
+    path = h5io.write_results(tmp_path / "f.h5", **sample_results(facet=True))
+    h5io.read_results(path)  # intact: reads
+    with h5py.File(path, "r+") as h:
+        h["view_factors/facet/indices"][0] = 40  # 4 columns: nodes 0, 1, space, inert
+    with pytest.raises(ResultsFileError, match="column indices out of range"):
+        h5io.read_results(path)
