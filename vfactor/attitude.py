@@ -41,11 +41,28 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from vfactor.orbit import _TableReader
+from vfactor.orbit import MAX_ANGLE_DEG
+from vfactor.tomlread import TableReader, show
 
-__all__ = ["Attitude", "attitude_from_table", "axis_vector", "DEFAULT_ATTITUDE_NOTE"]
+__all__ = ["Attitude", "attitude_from_table", "axis_vector", "DEFAULT_ATTITUDE_NOTE",
+           "MAX_SPIN_RPM", "SPIN_SAMPLES_PER_TURN"]
 
 MODES = ("nadir", "sun", "inertial", "spin")
+
+MAX_SPIN_RPM = 1000.0
+"""Largest spin rate [rpm] a ``spin`` attitude may give: well above any spin-stabilised
+vehicle (a few to about 100 rpm, common practice); larger values are slips (deg/s or rad/s
+given as rpm)."""
+
+PLAUSIBLE_SPIN_RPM = 120.0
+"""Spin rate [rpm] above which ``check`` warns (common practice: spin-stabilised vehicles
+turn at a few to some tens of rpm)."""
+
+SPIN_SAMPLES_PER_TURN = 8
+"""Time steps per spin turn below which ``check`` warns that the sampled attitude aliases:
+a sampled rotation is only seen correctly with more than two samples per turn (the
+Nyquist-Shannon sampling theorem), and about eight per turn are needed to follow the flux
+on a face through a turn (our own margin, common practice in sampling)."""
 
 DEFAULT_ATTITUDE_NOTE = ("no [attitude] table: nadir pointing assumed, body +z toward "
                          "nadir, +x along the velocity")
@@ -65,23 +82,26 @@ def axis_vector(value) -> np.ndarray:
     if isinstance(value, str):
         text = value.strip().lower()
         sign = 1.0
-        if text[:1] in "+-":
+        if text[:1] and text[:1] in "+-":
             sign = -1.0 if text[0] == "-" else 1.0
             text = text[1:]
         if text not in _AXES:
             raise ValueError(f"axis must be '+x', '-x', '+y', '-y', '+z', '-z' or [x, y, z], "
-                             f"got {value!r}")
+                             f"got {show(value)}")
         return sign * np.array(_AXES[text])
     if (isinstance(value, (list, tuple, np.ndarray)) and len(value) == 3
             and all(not isinstance(v, bool) and isinstance(v, (int, float, np.floating))
                     for v in value)):
         vector = np.asarray(value, dtype=np.float64)
+        if not (np.all(np.isfinite(vector)) and np.max(np.abs(vector)) <= 1e6):
+            raise ValueError(f"axis vector must hold finite numbers of magnitude <= 1e6, "
+                             f"got {show(value)}")
         norm = float(np.linalg.norm(vector))
-        if not (math.isfinite(norm) and norm > 0.0):
-            raise ValueError(f"axis vector must be finite and non-zero, got {value!r}")
+        if not norm > 0.0:
+            raise ValueError(f"axis vector must be finite and non-zero, got {show(value)}")
         return vector / norm
     raise ValueError(f"axis must be '+x', '-x', '+y', '-y', '+z', '-z' or [x, y, z], "
-                     f"got {value!r}")
+                     f"got {show(value)}")
 
 
 def _unit_rows(v):
@@ -271,12 +291,39 @@ _KEYS = {
 }
 
 
+def _angle(reader, key: str) -> float:
+    """An angle in degrees (default 0): finite, |x| <= MAX_ANGLE_DEG, a turn at most
+    without a warning."""
+    return reader.quantity(key, 0.0, "deg", -MAX_ANGLE_DEG, MAX_ANGLE_DEG,
+                           plausible=(-360.0, 360.0),
+                           advice_low="more than a full turn; write it within -360 .. 360",
+                           advice_high="more than a full turn; write it within -360 .. 360")
+
+
+def _spin_rate(reader, key: str, per_rpm: float) -> float:
+    """A spin rate in the key's unit (``per_rpm`` units per rpm): not zero, at most
+    :data:`MAX_SPIN_RPM` either way, warned above :data:`PLAUSIBLE_SPIN_RPM`."""
+    unit = "rpm" if per_rpm == 1.0 else "deg/s"
+    limit = MAX_SPIN_RPM * per_rpm
+    rate = reader.number(key, minimum=-limit, maximum=limit, unit=unit,
+                         why=f"{MAX_SPIN_RPM:g} rpm, far above any spin-stabilised vehicle",
+                         plausible=(-PLAUSIBLE_SPIN_RPM * per_rpm, PLAUSIBLE_SPIN_RPM * per_rpm),
+                         advice_low="a spin this fast is unusual; check the unit of the key",
+                         advice_high="a spin this fast is unusual; check the unit of the key")
+    if rate == 0.0:
+        raise reader.error(key, f"is 0: a spin mode with no spin; for a body fixed in "
+                           f"inertial space use mode = \"inertial\", else give the rate "
+                           f"(got {show(reader.table[key])})")
+    return rate
+
+
 def _next_axis(spin_axis):
     k = int(np.argmax(np.abs(spin_axis)))
     return np.array(_AXES["xyz"[(k + 1) % 3]])
 
 
-def attitude_from_table(table: dict | None, file: str | None = None) -> Attitude:
+def attitude_from_table(table: dict | None, file: str | None = None,
+                        problems: list | None = None) -> Attitude:
     """Build an :class:`Attitude` from the ``[attitude]`` table of a model file.
 
     Parameters
@@ -287,6 +334,10 @@ def attitude_from_table(table: dict | None, file: str | None = None) -> Attitude
         says so.
     file : str, optional
         Model file named in error messages.
+    problems : list, optional
+        Receives warnings (:class:`vfactor.errors.Problem`) about legal but implausible
+        values (a spin faster than :data:`PLAUSIBLE_SPIN_RPM`, an angle of more than a
+        turn).
 
     Returns
     -------
@@ -301,14 +352,14 @@ def attitude_from_table(table: dict | None, file: str | None = None) -> Attitude
     if table is None:
         return Attitude(mode="nadir", primary_axis=np.array([0.0, 0.0, 1.0]),
                         secondary_axis=np.array([1.0, 0.0, 0.0]), note=DEFAULT_ATTITUDE_NOTE)
-    reader = _TableReader(table, file, "[attitude]")
+    reader = TableReader(table, file, "[attitude]", problems)
     mode = reader.string("mode", "nadir", choices=MODES)
     reader.check_keys(_KEYS[mode], f"for mode = {mode!r}")
     if mode == "nadir":
         primary = _axis(reader, "nadir_axis", "+z")
         secondary = _axis(reader, "velocity_axis", "+x")
         _check_not_parallel(reader, "velocity_axis", primary, secondary)
-        yaw_deg = reader.number("yaw_deg", 0.0)
+        yaw_deg = _angle(reader, "yaw_deg")
         return Attitude(mode=mode, primary_axis=primary, secondary_axis=secondary,
                         yaw=math.radians(yaw_deg),
                         note=f"nadir pointing: {reader.table.get('nadir_axis', '+z')} to nadir, "
@@ -363,12 +414,12 @@ def attitude_from_table(table: dict | None, file: str | None = None) -> Attitude
         raise reader.error("rate_deg_s", f"give rate_rpm or rate_deg_s, not both (rate_deg_s "
                            f"= {reader.table['rate_deg_s']!r})")
     if reader.has("rate_rpm"):
-        rate = reader.number("rate_rpm") * 2.0 * math.pi / 60.0
+        rate = _spin_rate(reader, "rate_rpm", 1.0) * 2.0 * math.pi / 60.0
     elif reader.has("rate_deg_s"):
-        rate = math.radians(reader.number("rate_deg_s"))
+        rate = math.radians(_spin_rate(reader, "rate_deg_s", 6.0))
     else:
         raise reader.error("rate_rpm", "spin mode needs rate_rpm or rate_deg_s")
-    phase = math.radians(reader.number("phase_deg", 0.0))
+    phase = math.radians(_angle(reader, "phase_deg"))
     return Attitude(mode=mode, primary_axis=primary, secondary_axis=secondary,
                     primary_direction=direction, spin_rate=rate, phase=phase,
                     note=f"spin: {reader.table.get('spin_axis', '+z')} toward "

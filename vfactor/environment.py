@@ -45,6 +45,7 @@ from vfactor.constants import (
     SOLAR_CONSTANT_1AU,
 )
 from vfactor.errors import ModelError
+from vfactor.tomlread import TableReader, hint, show
 
 __all__ = [
     "Environment",
@@ -67,6 +68,26 @@ SOLAR_CONSTANT_COLD = SOLAR_CONSTANT_1AU / (1.0 + EARTH_ORBIT_ECCENTRICITY) ** 2
 """Total solar irradiance at aphelion [W m-2]: 1361 / (1 + e)^2 (about 1316.6). Derived here."""
 
 _KEYS = ("case", "solar_constant", "albedo", "planet_ir")
+
+SOLAR_CONSTANT_LIMIT = 1e8
+"""Largest ``solar_constant`` [W m-2]: above the flux leaving the Sun's photosphere itself
+(sigma T^4 with T = 5772 K, about 6.3e7 W m-2; IAU 2015 Resolution B3 nominal effective
+temperature)."""
+
+PLAUSIBLE_SOLAR_CONSTANT = (100.0, 15000.0)
+"""``solar_constant`` [W m-2] outside which ``check`` warns: from beyond Mars (about
+590 W m-2 at 1.52 au) down by a margin, to Mercury at perihelion (about 14 400 W m-2 at
+0.307 au), by the inverse-square law on Kopp & Lean (2011). A value near 1.36 is the usual
+slip of kW m-2 written as W m-2."""
+
+PLANET_IR_LIMIT = 1e5
+"""Largest ``planet_ir`` [W m-2]: a planet emitting that much would be at about 1150 K
+(Stefan-Boltzmann); larger values are slips."""
+
+PLAUSIBLE_PLANET_IR = (None, 500.0)
+"""``planet_ir`` [W m-2] above which ``check`` warns: the Earth's outgoing long-wave flux
+stays within about 150-350 W m-2 even for short orbit segments (Gilmore (ed.), Spacecraft
+Thermal Control Handbook, Vol. I, 2nd ed., 2002, ch. 2, from memory)."""
 
 
 @dataclass(frozen=True)
@@ -181,7 +202,7 @@ def design_case(case: str) -> Environment:
                      where="[environment] case")
 
 
-def environment_from_table(table, file=None) -> Environment:
+def environment_from_table(table, file=None, problems: list | None = None) -> Environment:
     """Read the ``[environment]`` table of a model file.
 
     Parameters
@@ -190,6 +211,9 @@ def environment_from_table(table, file=None) -> Environment:
         The parsed table; None (no table) gives the nominal case.
     file : str or os.PathLike, optional
         Model file named in error messages.
+    problems : list, optional
+        Receives warnings (:class:`vfactor.errors.Problem`) about legal but implausible
+        values, e.g. ``solar_constant = 1.361`` (kW m-2 written as W m-2).
 
     Returns
     -------
@@ -199,49 +223,58 @@ def environment_from_table(table, file=None) -> Environment:
     ------
     ModelError
         An unknown key, an unknown case, a value of the wrong type or out of range
-        (albedo outside [0, 1], negative flux), or a ``custom`` case that lacks one of
-        ``solar_constant``, ``albedo``, ``planet_ir``. The message names
-        ``[environment] KEY`` and the bad value.
+        (albedo outside [0, 1], negative flux, a flux above the Sun's own surface), or a
+        ``custom`` case that lacks one of ``solar_constant``, ``albedo``, ``planet_ir``.
+        The message names ``[environment] KEY`` and the bad value.
     """
-    try:
-        return _from_table(table)
-    except ModelError as err:
-        raise err.with_file(str(file)) if file else err
-
-
-def _from_table(table) -> Environment:
     if table is None:
         return design_case("nominal")
-    if not isinstance(table, dict):
-        raise ModelError(f"must be a table, got {table!r}", where="[environment]")
+    reader = TableReader(table, str(file) if file else None, "[environment]", problems)
     for key in table:
         if key not in _KEYS:
-            raise ModelError(f"unknown key {key!r} = {table[key]!r}; known keys are "
-                             f"{', '.join(_KEYS)}", where=f"[environment] {key}")
+            raise reader.error(key, f"unknown key {key!r} = {show(table[key])}"
+                               f"{hint(key, _KEYS)}; known keys are {', '.join(_KEYS)}")
     case = table.get("case", "nominal")
     if not isinstance(case, str):
-        raise ModelError(f"case must be a string, got {case!r}", where="[environment] case")
+        raise reader.error("case", f"case must be a string, got {show(case)}")
     case = case.strip().lower()
+    if case not in CASES:
+        raise reader.error("case", f"unknown case {show(table['case'])}{hint(case, CASES)}; "
+                           f"use one of {', '.join(CASES)}")
     if case == "custom":
         missing = [k for k in ("solar_constant", "albedo", "planet_ir") if k not in table]
         if missing:
-            raise ModelError(f"case 'custom' needs {', '.join(missing)} (got "
-                             f"{', '.join(sorted(k for k in table if k != 'case')) or 'none'})",
-                             where=f"[environment] {missing[0]}")
+            raise reader.error(missing[0], f"case 'custom' needs {', '.join(missing)} (got "
+                               f"{', '.join(sorted(k for k in table if k != 'case')) or 'none'})")
         base = Environment("custom", None, ALBEDO_NOMINAL, PLANET_IR_NOMINAL)
     else:
         base = design_case(case)
-    values = {"solar_constant": base.solar_constant, "albedo": base.albedo,
-              "planet_ir": base.planet_ir}
-    limits = {"solar_constant": (0.0, math.inf), "albedo": (0.0, 1.0),
-              "planet_ir": (0.0, math.inf)}
-    for key, (lo, hi) in limits.items():
-        if key in table:
-            values[key] = _check_number(key, table[key], lo, hi, None)
-    return Environment(case, values["solar_constant"], values["albedo"], values["planet_ir"])
+    solar = reader.number(
+        "solar_constant", base.solar_constant, minimum=0.0, maximum=SOLAR_CONSTANT_LIMIT,
+        unit="W m-2", why="more than leaves the surface of the Sun",
+        plausible=PLAUSIBLE_SOLAR_CONSTANT,
+        advice_low=("kW m-2 given as W m-2? the solar constant at 1 au is 1361 W m-2"
+                    + (f" (write {table['solar_constant'] * 1000:g})"
+                       if _is_number(table.get("solar_constant"))
+                       and 0.1 <= table["solar_constant"] <= 15.0 else "")),
+        advice_high="the solar constant at 1 au is 1361 W m-2")
+    albedo = reader.number("albedo", base.albedo, minimum=0.0, maximum=1.0,
+                           advice_high="albedo is a fraction: write 0.3 for 30 %")
+    planet_ir = reader.number("planet_ir", base.planet_ir, minimum=0.0,
+                              maximum=PLANET_IR_LIMIT, unit="W m-2",
+                              plausible=PLAUSIBLE_PLANET_IR,
+                              advice_high="the Earth's outgoing long-wave flux is about "
+                                          "150-350 W m-2")
+    return Environment(case, solar, albedo, planet_ir)
+
+
+def _is_number(value) -> bool:
+    return not isinstance(value, bool) and isinstance(value, (int, float))
 
 
 def _check_number(key, value, lo, hi, file) -> float:
+    """Validation of a value set on an :class:`Environment` built in code (the model
+    file's values are read by :func:`environment_from_table`)."""
     units = {"solar_constant": " W m-2", "planet_ir": " W m-2", "albedo": ""}[key]
     if isinstance(value, bool) or not isinstance(value, (int, float, np.floating, np.integer)):
         raise ModelError(f"{key} must be a number, got {value!r}", file=file,

@@ -137,12 +137,17 @@ def parse_epoch(value) -> _dt.datetime:
         raise ValueError(f"not an ISO 8601 date-time: {value!r}")
     if moment.tzinfo is None:
         moment = moment.replace(tzinfo=_dt.timezone.utc)
-    return moment.astimezone(_dt.timezone.utc)
+    try:
+        return moment.astimezone(_dt.timezone.utc)
+    except OverflowError:  # e.g. 0001-01-01T00:00:00+01:00 is in year 0 in UTC
+        raise ValueError(f"{value!r} is out of range in UTC (years 1 to 9999)") from None
 
 
 def format_epoch(moment: _dt.datetime) -> str:
-    """ISO 8601 text of a UTC instant, ``YYYY-MM-DDTHH:MM:SS.ffffffZ``."""
-    return moment.astimezone(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+    """ISO 8601 text of a UTC instant, ``YYYY-MM-DDTHH:MM:SS.ffffffZ`` (four-digit year
+    also before year 1000, where ``strftime("%Y")`` drops the zeros on some systems)."""
+    m = moment.astimezone(_dt.timezone.utc)
+    return f"{m.year:04d}-" + m.strftime("%m-%dT%H:%M:%S.%fZ")
 
 
 def times_from_epoch(epoch_utc, time_s):

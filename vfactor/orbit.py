@@ -25,7 +25,6 @@ from __future__ import annotations
 
 import datetime as _dt
 import functools
-import difflib
 import math
 from dataclasses import dataclass
 
@@ -35,6 +34,7 @@ from vfactor import ephemeris
 from vfactor.constants import TROPICAL_YEAR_S
 from vfactor.errors import ModelError
 from vfactor.planet import EARTH, Planet
+from vfactor.tomlread import TableReader
 
 __all__ = [
     "Orbit",
@@ -59,121 +59,26 @@ MAX_STEPS = 2_000_000
 """Most time steps an ``[orbit]`` table may ask for (the per-step arrays of the trajectory
 and of the heat loads must fit in memory)."""
 
+KARMAN_LINE_KM = 100.0
+"""Altitude [km] below which ``check`` warns that the orbit is inside the atmosphere: the
+Kármán line, the conventional edge of space (FAI; common practice). No orbit lasts there."""
 
-# --------------------------------------------------------------------------------------
-# reading tables (shared with vfactor.attitude)
-# --------------------------------------------------------------------------------------
-_MISSING = object()
+HILL_RADIUS_KM = 1.5e6
+"""Largest altitude, perigee or apogee [km] an ``[orbit]`` table may give: about the radius
+of the Earth's Hill sphere (a ((m/(3M))^(1/3)) with a = 1 au: 1.5 million km, from memory),
+beyond which an orbit is not bound to the Earth. Larger values are slips (metres as km)."""
 
+MAX_ANGLE_DEG = 1e6
+"""Largest magnitude of an angle [deg] read from ``[orbit]``/``[attitude]``: beyond it the
+sine and cosine of a float64 angle lose digits; more than a turn draws a warning."""
 
-class _TableReader:
-    """Typed access to one TOML table with ModelErrors naming the file, table and key."""
+MAX_STEP_S = 1e10
+"""Longest ``step_s`` [s] (about 317 years, more than the whole span of the shipped
+ephemeris)."""
 
-    def __init__(self, table, file: str | None, section: str):
-        self.file = file
-        self.section = section
-        if not isinstance(table, dict):
-            raise ModelError(f"must be a table, got {table!r}", file=file, where=section)
-        self.table = table
-
-    def error(self, key: str | None, message: str) -> ModelError:
-        where = f"{self.section} {key}" if key else self.section
-        return ModelError(message, file=self.file, where=where)
-
-    def has(self, key: str) -> bool:
-        return key in self.table
-
-    def check_keys(self, allowed, context: str, others: dict | None = None) -> None:
-        """Refuse keys outside ``allowed``; suggest a near miss, also among the keys of
-        other kinds (``others``: kind -> keys), naming the kind it belongs to."""
-        others = others or {}
-        pool = sorted(set(allowed).union(*others.values()))
-        for key, value in self.table.items():
-            if key in allowed:
-                continue
-            close = difflib.get_close_matches(str(key), pool, n=1)
-            exact = [k for k, keys in others.items() if key in keys]
-            hint = ""
-            if exact:
-                hint = f" ({key!r} is a key of type = {exact[0]!r})"
-            elif close:
-                owner = "" if close[0] in allowed else next(
-                    f", a key of type = {k!r}" for k, keys in others.items()
-                    if close[0] in keys)
-                hint = f" (did you mean {close[0]!r}{owner}?)"
-            raise self.error(key, f"unknown key (value {value!r}) {context}{hint}; "
-                             f"known keys: {', '.join(sorted(allowed))}")
-
-    def number(self, key, default=_MISSING, minimum=None, maximum=None,
-               exclusive_minimum=None):
-        if key not in self.table:
-            if default is _MISSING:
-                raise self.error(key, "is required")
-            return default
-        value = self.table[key]
-        if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise self.error(key, f"must be a number, got {value!r}")
-        value = float(value)
-        if not math.isfinite(value):
-            raise self.error(key, f"must be finite, got {value!r}")
-        if minimum is not None and value < minimum:
-            raise self.error(key, f"must be at least {minimum:g}, got {value!r}")
-        if maximum is not None and value > maximum:
-            raise self.error(key, f"must be at most {maximum:g}, got {value!r}")
-        if exclusive_minimum is not None and value <= exclusive_minimum:
-            raise self.error(key, f"must be greater than {exclusive_minimum:g}, got {value!r}")
-        return value
-
-    def integer(self, key, default=_MISSING, minimum=None):
-        if key not in self.table:
-            if default is _MISSING:
-                raise self.error(key, "is required")
-            return default
-        value = self.table[key]
-        if isinstance(value, bool) or not isinstance(value, int):
-            raise self.error(key, f"must be a whole number, got {value!r}")
-        if minimum is not None and value < minimum:
-            raise self.error(key, f"must be at least {minimum}, got {value!r}")
-        return int(value)
-
-    def boolean(self, key, default=_MISSING):
-        if key not in self.table:
-            if default is _MISSING:
-                raise self.error(key, "is required")
-            return default
-        value = self.table[key]
-        if not isinstance(value, bool):
-            raise self.error(key, f"must be true or false, got {value!r}")
-        return value
-
-    def string(self, key, default=_MISSING, choices=None):
-        if key not in self.table:
-            if default is _MISSING:
-                raise self.error(key, "is required")
-            return default
-        value = self.table[key]
-        if not isinstance(value, str):
-            raise self.error(key, f"must be a string, got {value!r}")
-        if choices is not None and value not in choices:
-            raise self.error(key, f"must be one of {', '.join(repr(c) for c in choices)}, "
-                             f"got {value!r}")
-        return value
-
-    def vector(self, key, default=_MISSING, length=3, nonzero=True):
-        if key not in self.table:
-            if default is _MISSING:
-                raise self.error(key, "is required")
-            return default
-        value = self.table[key]
-        if (not isinstance(value, (list, tuple)) or len(value) != length
-                or any(isinstance(v, bool) or not isinstance(v, (int, float)) for v in value)):
-            raise self.error(key, f"must be a list of {length} numbers, got {value!r}")
-        array = np.asarray(value, dtype=np.float64)
-        if not np.all(np.isfinite(array)):
-            raise self.error(key, f"must be finite, got {value!r}")
-        if nonzero and not np.linalg.norm(array) > 0.0:
-            raise self.error(key, f"must not be the zero vector, got {value!r}")
-        return array
+MIN_PLAUSIBLE_STEP_S = 0.1
+"""``step_s`` [s] below which ``check`` warns (far below any thermal time constant; a value
+meant in minutes or hours is the usual cause). Our own threshold."""
 
 
 # --------------------------------------------------------------------------------------
@@ -583,7 +488,7 @@ _KEYS = {
 }
 
 
-def _parse_ltan(reader: _TableReader) -> float:
+def _parse_ltan(reader: TableReader) -> float:
     value = reader.table["ltan"]
     if isinstance(value, bool):
         raise reader.error("ltan", f"must be \"HH:MM\" or hours, got {value!r}")
@@ -621,37 +526,88 @@ def _inclination_and_node(reader, a, e, epoch, planet):
         except ValueError as exc:
             raise reader.error("sun_synchronous", str(exc)) from None
     else:
-        inclination = math.radians(reader.number("inclination_deg", minimum=0.0, maximum=180.0))
+        inclination = math.radians(reader.number("inclination_deg", minimum=0.0, maximum=180.0,
+                                                 unit="deg"))
     if reader.has("raan_deg") and reader.has("ltan"):
         raise reader.error("ltan", f"give raan_deg or ltan, not both (ltan = "
                            f"{reader.table['ltan']!r}, raan_deg = {reader.table['raan_deg']!r})")
     if reader.has("ltan"):
         raan = raan_from_ltan(epoch, _parse_ltan(reader))
     else:
-        raan = math.radians(reader.number("raan_deg", 0.0))
+        raan = math.radians(_angle(reader, "raan_deg"))
     return inclination, raan
 
 
-def _check_step_count(reader, n_steps: int):
-    if n_steps > MAX_STEPS:
+def _angle(reader, key: str, default: float = 0.0) -> float:
+    """An angle in degrees: finite, of magnitude <= MAX_ANGLE_DEG; more than a turn warns."""
+    return reader.quantity(key, default, "deg", -MAX_ANGLE_DEG, MAX_ANGLE_DEG,
+                           plausible=(-360.0, 360.0),
+                           advice_low="more than a full turn; write the angle within "
+                                      "-360 .. 360 deg",
+                           advice_high="more than a full turn; write the angle within "
+                                       "-360 .. 360 deg")
+
+
+def _altitude(reader, key: str) -> float:
+    """An altitude in km above the equatorial radius (> 0, within the Hill sphere)."""
+    return reader.number(key, exclusive_minimum=0.0, maximum=HILL_RADIUS_KM, unit="km",
+                         why="beyond about 1.5 million km an orbit is not bound to the "
+                             "Earth",
+                         advice_high="were metres given where km are asked?")
+
+
+def _step_count_checked(reader, period: float, orbits: float, steps_per_orbit, step_s):
+    """:func:`_step_count` after refusing more than MAX_STEPS steps (counted in floating
+    point first, so that a tiny step_s or a huge orbits gives this error, not an
+    overflow)."""
+    count = orbits * period / step_s if step_s is not None else orbits * steps_per_orbit
+    if not count <= MAX_STEPS + 0.5:
         key = "step_s" if reader.has("step_s") else ("steps_per_orbit" if reader.has(
             "steps_per_orbit") else "orbits")
-        raise reader.error(key, f"asks for {n_steps} time steps, more than {MAX_STEPS}; use "
+        shown = f"{count:.3g}" if math.isfinite(count) else "infinitely many"
+        raise reader.error(key, f"asks for {shown} time steps, more than {MAX_STEPS}; use "
                            f"fewer orbits or a longer step (got {reader.table.get(key)!r})")
+    n_steps, step = _step_count(period, orbits, steps_per_orbit, step_s)
+    if step_s is not None and n_steps == 1 and step_s > orbits * period * (1.0 + 1e-9):
+        reader.warning("step_s", f"step_s = {step_s:g} s is longer than the span of "
+                       f"{orbits:g} orbit(s) ({orbits * period:.0f} s): the orbit is sampled "
+                       f"at one instant only; give a step of a fraction of the period")
+    return n_steps, step
 
 
 def _check_ephemeris_span(reader, epoch: _dt.datetime, span_s: float):
+    """The epoch and the end of the span must lie inside the shipped ephemeris (compared
+    in seconds, so that no date past year 9999 is ever formed)."""
     start, end = ephemeris.ephemeris_span_utc()
-    last = epoch + _dt.timedelta(seconds=span_s)
-    if epoch < start or last > end:
-        what = (f"the epoch {ephemeris.format_epoch(epoch)} lies outside" if last == epoch
-                else f"the span {ephemeris.format_epoch(epoch)} to "
-                     f"{ephemeris.format_epoch(last)} leaves")
-        raise reader.error("epoch", f"{what} the shipped ephemeris "
-                           f"{ephemeris.EPHEMERIS_FILE} ({start:%Y-%m-%d} to {end:%Y-%m-%d})")
+    after_start = (epoch - start).total_seconds()
+    before_end = (end - epoch).total_seconds()
+    if after_start < 0.0 or before_end < 0.0:
+        raise reader.error("epoch", f"the epoch {ephemeris.format_epoch(epoch)} lies outside "
+                           f"the shipped ephemeris {ephemeris.EPHEMERIS_FILE} "
+                           f"({start:%Y-%m-%d} to {end:%Y-%m-%d})")
+    if span_s > before_end:
+        room = (_dt.datetime.max.replace(tzinfo=_dt.timezone.utc) - epoch).total_seconds()
+        last = (ephemeris.format_epoch(epoch + _dt.timedelta(seconds=span_s))
+                if span_s < room else f"{span_s / (365.25 * 86400.0):.3g} years later")
+        raise reader.error("epoch", f"the span {ephemeris.format_epoch(epoch)} to {last} "
+                           f"leaves the shipped ephemeris {ephemeris.EPHEMERIS_FILE} "
+                           f"({start:%Y-%m-%d} to {end:%Y-%m-%d})")
 
 
-def orbit_from_table(table: dict, file: str | None = None, planet: Planet = EARTH) -> Orbit:
+def _check_perigee(reader, a: float, e: float, planet: Planet, key: str) -> None:
+    """Warn when the perigee lies below the Kármán line (inside the atmosphere)."""
+    perigee_km = (a * (1.0 - e) - planet.radius) / 1e3
+    if perigee_km < KARMAN_LINE_KM:
+        value = reader.table.get(key)
+        shown = f" (from {key} = {value!r})" if key != "tle" and value is not None else ""
+        reader.warning(key, f"perigee altitude {perigee_km:.3g} km{shown} is below the "
+                       f"Karman line ({KARMAN_LINE_KM:g} km): the vehicle would fly in the "
+                       f"atmosphere; altitudes are in km above the equatorial radius "
+                       f"(550 km is a typical low Earth orbit)")
+
+
+def orbit_from_table(table: dict, file: str | None = None, planet: Planet = EARTH,
+                     problems: list | None = None) -> Orbit:
     """Build an :class:`Orbit` from the ``[orbit]`` table of a model file.
 
     Parameters
@@ -677,6 +633,10 @@ def orbit_from_table(table: dict, file: str | None = None, planet: Planet = EART
         Model file named in error messages.
     planet : Planet
         Central body (Earth by default; "tle" requires Earth).
+    problems : list, optional
+        Receives the warnings (:class:`vfactor.errors.Problem`) about legal but
+        implausible values: a perigee below the Karman line, a step longer than the span,
+        an angle of more than a turn.
 
     Returns
     -------
@@ -688,7 +648,7 @@ def orbit_from_table(table: dict, file: str | None = None, planet: Planet = EART
         Unknown key, wrong type, value out of range, orbit inside the planet, span outside
         the ephemeris; the message names the file, ``[orbit] key`` and the bad value.
     """
-    reader = _TableReader(table, file, "[orbit]")
+    reader = TableReader(table, file, "[orbit]", problems)
     if reader.has("type"):
         kind = reader.string("type", choices=("circular", "elements", "tle"))
     elif reader.has("tle"):
@@ -706,12 +666,18 @@ def orbit_from_table(table: dict, file: str | None = None, planet: Planet = EART
                            "perigee_km and apogee_km or semi_major_axis_km and eccentricity "
                            "(type = \"elements\"), or tle")
 
-    orbits = reader.number("orbits", 1.0, exclusive_minimum=0.0)
+    orbits = reader.number("orbits", 1.0, exclusive_minimum=0.0, maximum=float(MAX_STEPS),
+                           why=f"each orbit takes at least one of the {MAX_STEPS} steps")
     if reader.has("steps_per_orbit") and reader.has("step_s"):
         raise reader.error("step_s", f"give steps_per_orbit or step_s, not both (step_s = "
                            f"{reader.table['step_s']!r})")
-    steps_per_orbit = reader.integer("steps_per_orbit", DEFAULT_STEPS_PER_ORBIT, minimum=1)
-    step_s = reader.number("step_s", None, exclusive_minimum=0.0)
+    steps_per_orbit = reader.integer("steps_per_orbit", DEFAULT_STEPS_PER_ORBIT, minimum=1,
+                                     maximum=MAX_STEPS)
+    step_s = reader.number("step_s", None, exclusive_minimum=0.0, maximum=MAX_STEP_S,
+                           unit="s", plausible=(MIN_PLAUSIBLE_STEP_S, None),
+                           why="longer than the span of the shipped ephemeris",
+                           advice_low="step_s is in seconds; was a value in minutes or "
+                                      "hours meant?")
     shadow = reader.string("shadow", "conical", choices=("conical", "cylindrical"))
 
     if kind == "tle":
@@ -719,20 +685,22 @@ def orbit_from_table(table: dict, file: str | None = None, planet: Planet = EART
 
     try:
         epoch = ephemeris.parse_epoch(reader.table["epoch"]) if reader.has("epoch") else None
-    except ValueError:
+    except ValueError as exc:
         raise reader.error("epoch", f"must be an ISO 8601 UTC date-time such as "
-                           f"\"2027-03-21T00:00:00Z\", got {reader.table['epoch']!r}") from None
+                           f"\"2027-03-21T00:00:00Z\", got {reader.table['epoch']!r}"
+                           f"{_epoch_reason(exc)}") from None
     if epoch is None:
         raise reader.error("epoch", "is required (ISO 8601 UTC, e.g. \"2027-03-21T00:00:00Z\")")
     # provisional span check with the epoch itself, before RAAN-from-LTAN needs the ephemeris
     _check_ephemeris_span(reader, epoch, 0.0)
 
     if kind == "circular":
-        altitude = reader.number("altitude_km", exclusive_minimum=0.0) * 1e3
+        altitude = _altitude(reader, "altitude_km") * 1e3
         a, e = planet.radius + altitude, 0.0
+        size_key = "altitude_km"
         inclination, raan = _inclination_and_node(reader, a, e, epoch, planet)
         arg_perigee = 0.0
-        mean_anomaly = math.radians(reader.number("argument_of_latitude_deg", 0.0))
+        mean_anomaly = math.radians(_angle(reader, "argument_of_latitude_deg"))
     else:
         has_pa = reader.has("perigee_km") or reader.has("apogee_km")
         has_ae = reader.has("semi_major_axis_km") or reader.has("eccentricity")
@@ -740,8 +708,9 @@ def orbit_from_table(table: dict, file: str | None = None, planet: Planet = EART
             raise reader.error("perigee_km", "give perigee_km/apogee_km or "
                                "semi_major_axis_km/eccentricity, not both")
         if has_pa:
-            perigee = reader.number("perigee_km", exclusive_minimum=0.0) * 1e3 + planet.radius
-            apogee = reader.number("apogee_km", exclusive_minimum=0.0) * 1e3 + planet.radius
+            size_key = "perigee_km"
+            perigee = _altitude(reader, "perigee_km") * 1e3 + planet.radius
+            apogee = _altitude(reader, "apogee_km") * 1e3 + planet.radius
             if apogee < perigee:
                 raise reader.error("apogee_km", f"must not be below perigee_km "
                                    f"({reader.table['perigee_km']!r}), got "
@@ -749,7 +718,12 @@ def orbit_from_table(table: dict, file: str | None = None, planet: Planet = EART
             a = 0.5 * (perigee + apogee)
             e = (apogee - perigee) / (apogee + perigee)
         else:
-            a = reader.number("semi_major_axis_km", exclusive_minimum=0.0) * 1e3
+            size_key = "semi_major_axis_km"
+            a = reader.number("semi_major_axis_km", exclusive_minimum=0.0,
+                              maximum=HILL_RADIUS_KM + planet.radius / 1e3, unit="km",
+                              why="beyond about 1.5 million km an orbit is not bound to "
+                                  "the Earth",
+                              advice_high="were metres given where km are asked?") * 1e3
             e = reader.number("eccentricity", minimum=0.0)
             if e >= 1.0:
                 raise reader.error("eccentricity", f"must be below 1 (closed orbits only), "
@@ -760,20 +734,64 @@ def orbit_from_table(table: dict, file: str | None = None, planet: Planet = EART
                                    f"(radius {planet.radius / 1e3:.1f} km); got "
                                    f"{reader.table['semi_major_axis_km']!r}")
         inclination, raan = _inclination_and_node(reader, a, e, epoch, planet)
-        arg_perigee = math.radians(reader.number("arg_perigee_deg", 0.0))
-        nu = math.radians(reader.number("true_anomaly_deg", 0.0))
+        arg_perigee = math.radians(_angle(reader, "arg_perigee_deg"))
+        nu = math.radians(_angle(reader, "true_anomaly_deg"))
         big_e = 2.0 * math.atan2(math.sqrt(1.0 - e) * math.sin(0.5 * nu),
                                  math.sqrt(1.0 + e) * math.cos(0.5 * nu))
         mean_anomaly = big_e - e * math.sin(big_e)
     j2_drift = reader.boolean("j2_drift", False)
+    _check_perigee(reader, a, e, planet, size_key)
     period = 2.0 * math.pi * math.sqrt(a ** 3 / planet.gm)
-    n_steps, step = _step_count(period, orbits, steps_per_orbit, step_s)
-    _check_step_count(reader, n_steps)
+    n_steps, step = _step_count_checked(reader, period, orbits, steps_per_orbit, step_s)
     _check_ephemeris_span(reader, epoch, n_steps * step)
     return Orbit(kind=kind, epoch_utc=ephemeris.format_epoch(epoch), semi_major_axis=a,
                  eccentricity=e, inclination=inclination, raan=raan, arg_perigee=arg_perigee,
                  mean_anomaly=mean_anomaly, n_steps=n_steps, step=step, j2_drift=j2_drift,
                  planet=planet, source_file=file, shadow_model=shadow)
+
+
+TLE_LINE_LENGTH = 69
+"""Characters of each line of a two-line element set, the checksum digit the last
+(CelesTrak, "NORAD Two-Line Element Set Format"; Vallado, Crawford, Hujsak & Kelso 2006,
+"Revisiting Spacetrack Report #3", AIAA 2006-6753, appendix)."""
+
+
+def tle_checksum(line: str) -> int:
+    """The modulo-10 checksum of a two-line element line.
+
+    Parameters
+    ----------
+    line : str — one element line (the first 68 characters are summed)
+
+    Returns
+    -------
+    int — 0..9, the digit column 69 must hold
+
+    Notes
+    -----
+    The sum of all digits of columns 1-68, each minus sign counting 1 and every other
+    character 0, modulo 10 (CelesTrak, "NORAD Two-Line Element Set Format"; Vallado et al.
+    2006, "Revisiting Spacetrack Report #3").
+    """
+    return sum(int(c) if c.isdigit() else (1 if c == "-" else 0) for c in line[:68]) % 10
+
+
+def tle_line_problem(line: str) -> str:
+    """What is wrong with the length or checksum of an element line ('' when nothing)."""
+    if len(line) != TLE_LINE_LENGTH:
+        return (f"has {len(line)} characters; the format has {TLE_LINE_LENGTH}, the last "
+                f"being the checksum")
+    expected = tle_checksum(line)
+    if not line[-1].isdigit() or int(line[-1]) != expected:
+        return (f"has the checksum {line[-1]!r} but its columns 1-68 give {expected} (the "
+                f"modulo-10 sum of the digits, '-' counting 1): the line is damaged or "
+                f"was edited")
+    return ""
+
+
+def _epoch_reason(exc: Exception) -> str:
+    text = str(exc)
+    return f" ({text})" if "out of range" in text else ""
 
 
 def _tle_orbit(reader, orbits, steps_per_orbit, step_s, shadow, planet):
@@ -789,6 +807,10 @@ def _tle_orbit(reader, orbits, steps_per_orbit, step_s, shadow, planet):
     if len(lines) != 2 or not lines[0].startswith("1 ") or not lines[1].startswith("2 "):
         raise reader.error("tle", f"must hold two element lines starting with '1 ' and "
                            f"'2 ' (optionally after a name line), got {text!r}")
+    for number, line in enumerate(lines, start=1):
+        problem = tle_line_problem(line)
+        if problem:
+            raise reader.error("tle", f"element line {number} {problem}: {line!r}")
     try:
         satellite = EarthSatellite(lines[0], lines[1], "vehicle", ephemeris.timescale())
     except (ValueError, IndexError) as exc:
@@ -801,17 +823,17 @@ def _tle_orbit(reader, orbits, steps_per_orbit, step_s, shadow, planet):
     if reader.has("epoch"):
         try:
             epoch = ephemeris.parse_epoch(reader.table["epoch"])
-        except ValueError:
+        except ValueError as exc:
             raise reader.error("epoch", f"must be an ISO 8601 UTC date-time, got "
-                               f"{reader.table['epoch']!r}") from None
+                               f"{reader.table['epoch']!r}{_epoch_reason(exc)}") from None
     else:
         epoch = satellite.epoch.utc_datetime()
     n = model.no_kozai / 60.0
     period = 2.0 * math.pi / n
-    n_steps, step = _step_count(period, orbits, steps_per_orbit, step_s)
-    _check_step_count(reader, n_steps)
+    n_steps, step = _step_count_checked(reader, period, orbits, steps_per_orbit, step_s)
     _check_ephemeris_span(reader, epoch, n_steps * step)
     a = (planet.gm / n ** 2) ** (1.0 / 3.0)
+    _check_perigee(reader, a, float(model.ecco), planet, "tle")
     orbit = Orbit(kind="tle", epoch_utc=ephemeris.format_epoch(epoch), semi_major_axis=a,
                   eccentricity=float(model.ecco), inclination=float(model.inclo),
                   raan=float(model.nodeo), arg_perigee=float(model.argpo),
