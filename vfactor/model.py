@@ -19,7 +19,8 @@ the modules that use them validate their keys.
 Layout of the model file
 ------------------------
 ``[model]``: ``name`` (default: file stem), ``length_unit`` (``m``, ``cm``, ``mm``, ``in``,
-``ft``; default ``m``), ``description``.
+``ft``; default ``m``), ``description``, ``allow_outside_files`` (default false: mesh
+files may make their loader read only files inside the model's folder or below it).
 
 ``[coatings.NAME]``: ``solar_absorptivity``, ``ir_emissivity`` (required, 0..1),
 ``solar_specular``, ``ir_specular`` (0..1, default 0), ``source`` and ``description``
@@ -51,7 +52,7 @@ from vfactor.parts import (
     Side,
     read_parts,
 )
-from vfactor.tomlread import Invalid, Reader, hint, show
+from vfactor.tomlread import Invalid, Reader, hint, label, show
 
 __all__ = [
     "LENGTH_UNITS",
@@ -70,7 +71,7 @@ TOP_LEVEL_SECTIONS = ("model", "coatings", "parts", "radiation", "orbit", "attit
                       "environment")
 """Top-level tables a model file may hold; anything else is an error."""
 
-_MODEL_KEYS = ("name", "length_unit", "description")
+_MODEL_KEYS = ("name", "length_unit", "description", "allow_outside_files")
 _COATING_KEYS = ("solar_absorptivity", "ir_emissivity", "solar_specular", "ir_specular",
                  "source", "description")
 
@@ -84,6 +85,41 @@ _RADIATION_DEFAULTS = {
     "sun_rays_per_facet": 16,
     "planet_rays_per_facet": 256,
 }
+
+
+MIN_ROUNDS = 8
+"""Rounds every node's rays are split into (:data:`vfactor.radiation.MIN_ROUNDS`; kept
+here so that reading a model needs no numba; a test checks that the two agree)."""
+MAX_RAYS_PER_ROUND = (1 << 32) - 1
+"""Most rays of one node in one round: the ray index of the random counter has 32 bits
+(:data:`vfactor.tracing.vf_kernels.MAX_RAYS_PER_ROUND` - 1; a test checks they agree)."""
+MAX_ROUNDS = 1 << 16
+"""Most rounds a node may get (:data:`vfactor.tracing.vf_kernels.MAX_ROUNDS`)."""
+MAX_TALLY_SQUARES = (1 << 63) - 1
+"""Largest sum over the rounds of a squared round tally the int64 sums can hold
+(:class:`vfactor.tallystats.TallySums.squares`)."""
+
+
+def ray_limit_problem(rays_per_node: int, max_rays_per_node: int) -> str:
+    """Why a ray count cannot be traced ('' when it can).
+
+    A node's rays are split into at least :data:`MIN_ROUNDS` rounds of
+    ``m = ceil(rays / 8)`` rays; ``m`` must fit the 32-bit ray index, and the sum over the
+    rounds of ``m^2`` (the worst case of one column taking every ray) must fit int64, with
+    up to ``max_rays_per_node // m`` rounds when ``target_error`` adds rounds.
+    """
+    m = -(-int(rays_per_node) // MIN_ROUNDS)
+    if m > MAX_RAYS_PER_ROUND:
+        return (f"{rays_per_node} rays per node make rounds of {m} rays, more than the "
+                f"{MAX_RAYS_PER_ROUND} the 32-bit ray index holds; use at most "
+                f"{MIN_ROUNDS * MAX_RAYS_PER_ROUND}")
+    rounds = min(MAX_ROUNDS, max(MIN_ROUNDS, int(max_rays_per_node) // m))
+    if rounds * m * m > MAX_TALLY_SQUARES:
+        return (f"{rays_per_node} rays per node (rounds of {m} rays, up to {rounds} rounds "
+                f"within max_rays_per_node = {max_rays_per_node}) overflow the 64-bit sums "
+                f"of squared tallies that give the error estimate; use fewer rays (10^9 per "
+                f"node is already beyond any need)")
+    return ""
 
 
 @dataclass(frozen=True)
@@ -131,6 +167,8 @@ class Model:
     radiation : RadiationSettings
     orbit_table, attitude_table, environment_table : dict or None — raw tables
     description : str
+    allow_outside_files : bool — ``[model] allow_outside_files``: mesh files may refer to
+        files outside ``base_dir``
     """
 
     path: str
@@ -147,6 +185,7 @@ class Model:
     attitude_table: dict | None = None
     environment_table: dict | None = None
     description: str = ""
+    allow_outside_files: bool = False
 
     def part(self, name: str) -> Part:
         """The part called ``name`` (KeyError listing the known names)."""
@@ -243,7 +282,7 @@ def load_model_text(text: str, path_for_messages: str = "<model>", base_dir=None
 def _read_document(doc: dict, text: str, reader: Reader, base: Path) -> Model:
     for key in doc:
         if key not in TOP_LEVEL_SECTIONS:
-            reader.soft_error(f"[{key}]", f"unknown section {key!r}"
+            reader.soft_error(f"[{label(key)}]", f"unknown section {key!r}"
                               f"{hint(key, TOP_LEVEL_SECTIONS)}; known sections are "
                               f"{', '.join(TOP_LEVEL_SECTIONS)}")
 
@@ -251,14 +290,18 @@ def _read_document(doc: dict, text: str, reader: Reader, base: Path) -> Model:
     name = Path(reader.file).stem or "model"
     unit = "m"
     description = ""
+    allow_outside = False
     try:
         mtab = reader.table(doc.get("model", {}), "[model]")
         reader.unknown_keys(mtab, _MODEL_KEYS, "[model]", "[model]")
         if "name" in mtab:
-            name = reader.string(mtab["name"], "[model] name")
+            name = reader.name(mtab["name"], "[model] name", "model name")
         if "description" in mtab:
             description = reader.string(mtab["description"], "[model] description",
                                         nonempty=False)
+        if "allow_outside_files" in mtab:
+            allow_outside = reader.boolean(mtab["allow_outside_files"],
+                                           "[model] allow_outside_files")
         if "length_unit" in mtab:
             unit = mtab["length_unit"]
             if not isinstance(unit, str) or unit not in LENGTH_UNITS:
@@ -271,7 +314,8 @@ def _read_document(doc: dict, text: str, reader: Reader, base: Path) -> Model:
     scale = LENGTH_UNITS[unit]
 
     coatings = _read_coatings(doc.get("coatings"), reader)
-    parts = read_parts(doc.get("parts"), reader, coatings, scale, base)
+    parts = read_parts(doc.get("parts"), reader, coatings, scale, base,
+                       allow_outside_files=allow_outside)
     radiation = _read_radiation(doc.get("radiation"), reader)
 
     raw_tables = {}
@@ -297,6 +341,7 @@ def _read_document(doc: dict, text: str, reader: Reader, base: Path) -> Model:
         attitude_table=raw_tables["attitude"],
         environment_table=raw_tables["environment"],
         description=description,
+        allow_outside_files=allow_outside,
     )
 
 
@@ -311,8 +356,9 @@ def _read_coatings(value, reader: Reader) -> dict:
     except Invalid:
         return coatings
     for cname, tab in value.items():
-        where = f"[coatings.{cname}]"
+        where = f"[coatings.{label(cname)}]"
         try:
+            reader.name(cname, where, "coating name")
             tab = reader.table(tab, where)
             reader.unknown_keys(tab, _COATING_KEYS, where, "coating")
             props = {}
@@ -388,4 +434,10 @@ def _read_radiation(value, reader: Reader) -> RadiationSettings:
         reader.soft_error("[radiation] max_rays_per_node",
                           f"must be >= rays_per_node ({out['max_rays_per_node']} < {rays})")
         out["max_rays_per_node"] = 20 * rays
+    problem = ray_limit_problem(rays, out["max_rays_per_node"])
+    if problem:
+        key = "rays_per_node" if "rays_per_node" in tab else "max_rays_per_node"
+        reader.soft_error(f"[radiation] {key}", problem)
+        out.pop("rays_per_node", None)
+        out["max_rays_per_node"] = 20 * RadiationSettings.rays_per_node
     return RadiationSettings(**out)

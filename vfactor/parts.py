@@ -55,6 +55,7 @@ from __future__ import annotations
 
 import fnmatch
 import math
+import os
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -112,6 +113,13 @@ MIN_SIMPLIFY_FACETS = 4
 DEFAULT_SEGMENTS = 32
 """Divisions around the largest circle of a curved shape when neither ``segments`` nor a
 finer ``max_edge`` is given."""
+MAX_LENGTH_M = 1e4
+"""Largest size, radius, length, depth or centre coordinate of a part [m]: 10 km, far
+beyond any spacecraft (the largest, a space station, is about 100 m across; common
+practice); a larger value is a unit slip, and would overflow the geometry's arithmetic."""
+MAX_MESH_SCALE = 1e6
+"""Largest ``scale`` of a mesh part (a file in micrometres read as metres needs 1e-6; a
+million the other way is already absurd)."""
 
 
 @dataclass(frozen=True)
@@ -219,7 +227,8 @@ class Part:
         return f"part {self.name!r}"
 
 
-def read_parts(value, reader: Reader, coatings: dict, scale: float, base: Path) -> list:
+def read_parts(value, reader: Reader, coatings: dict, scale: float, base: Path,
+               allow_outside_files: bool = False) -> list:
     """The ``[[parts]]`` array as a list of :class:`Part` (lengths in metres).
 
     Parameters
@@ -229,6 +238,8 @@ def read_parts(value, reader: Reader, coatings: dict, scale: float, base: Path) 
     coatings : dict of str -> Coating — the coatings read so far
     scale : float — metres per model length unit
     base : Path — folder that relative mesh paths are resolved against
+    allow_outside_files : bool — mesh files may refer to files outside ``base`` (else
+        such a reference is an error naming it)
 
     Returns
     -------
@@ -247,7 +258,7 @@ def read_parts(value, reader: Reader, coatings: dict, scale: float, base: Path) 
         try:
             tab = reader.table(tab, where)
             if "name" in tab:
-                pname = reader.string(tab["name"], f"{where} name").strip()
+                pname = reader.name(tab["name"], f"{where} name", "part name")
                 where = f"part {pname!r}"
             else:
                 reader.soft_error(where, "missing key 'name'")
@@ -264,32 +275,30 @@ def read_parts(value, reader: Reader, coatings: dict, scale: float, base: Path) 
             allowed = _COMMON_PART_KEYS + _SHAPE_KEYS[shape]
             reader.unknown_keys(tab, allowed, where, f"{shape} part")
             parts.append(_read_part(tab, pname, shape, index, where, reader, coatings,
-                                    scale, base))
+                                    scale, base, allow_outside_files))
         except Invalid:
             continue
     return parts
 
 
-def _read_part(tab, pname, shape, index, where, reader, coatings, scale, base) -> Part:
+def _read_part(tab, pname, shape, index, where, reader, coatings, scale, base,
+               allow_outside_files=False) -> Part:
     for key in _REQUIRED_SHAPE_KEYS[shape]:
         if key not in tab:
             reader.error(where, f"missing key {key!r} for a {shape}")
     params: dict = {}
+    unit = _unit_name(scale)
     if "size" in tab:
         n = 2 if shape == "rectangle" else 3
-        size = reader.vector(tab["size"], f"{where} size", n)
-        for s in size:
-            if s <= 0.0:
-                reader.error(f"{where} size", f"every size must be > 0, got {show(tab['size'])}")
-        params["size"] = tuple(s * scale for s in size)
+        if not isinstance(tab["size"], list) or len(tab["size"]) != n:
+            reader.error(f"{where} size", f"must be a list of {n} numbers, got "
+                         f"{show(tab['size'])}")
+        size = tuple(_length(reader, v, f"{where} size", scale, unit) for v in tab["size"])
+        params["size"] = tuple(v * scale for v in size)
     for key in _LENGTH_KEYS:
         if key in tab:
-            if key in ("inner_radius", "top_radius"):
-                v = reader.number(tab[key], f"{where} {key}")
-                if v < 0.0:
-                    reader.error(f"{where} {key}", f"must be >= 0, got {show(tab[key])}")
-            else:
-                v = reader.positive(tab[key], f"{where} {key}")
+            v = _length(reader, tab[key], f"{where} {key}", scale, unit,
+                        zero_allowed=key in ("inner_radius", "top_radius"))
             params[key] = v * scale
     if shape == "disk":
         params.setdefault("inner_radius", 0.0)
@@ -310,7 +319,10 @@ def _read_part(tab, pname, shape, index, where, reader, coatings, scale, base) -
         params["file_as_written"] = fname
         params["file"] = str((base / fname).resolve()) if not Path(fname).is_absolute() \
             else fname
-        s = reader.positive(tab.get("scale", 1.0), f"{where} scale")
+        if not allow_outside_files:
+            _check_references(params["file"], fname, base, where, reader)
+        s = reader.quantity(tab.get("scale", 1.0), f"{where} scale", "", 0.0,
+                            MAX_MESH_SCALE, low_open=True)
         params["scale"] = s * _mesh_unit(tab, fname, where, reader, scale, s)
         params["closed"] = (reader.boolean(tab["closed"], f"{where} closed")
                             if "closed" in tab else None)
@@ -325,10 +337,14 @@ def _read_part(tab, pname, shape, index, where, reader, coatings, scale, base) -
                               if "simplify" in tab else None)
     center = tuple(c * scale for c in reader.vector(tab.get("center", [0.0, 0.0, 0.0]),
                                                     f"{where} center", 3))
+    if max(abs(c) for c in center) > MAX_LENGTH_M:
+        reader.error(f"{where} center", f"must lie within {MAX_LENGTH_M / scale:g} {unit} "
+                     f"({MAX_LENGTH_M / 1e3:g} km) of the origin, got {show(tab['center'])}; "
+                     f"is the length unit right?")
     z_axis, x_axis = _frame(tab, reader, where)
     max_edge = None
     if "max_edge" in tab:
-        max_edge = reader.positive(tab["max_edge"], f"{where} max_edge") * scale
+        max_edge = _length(reader, tab["max_edge"], f"{where} max_edge", scale, unit) * scale
         size_scale = max([v for k, v in params.items() if k in _LENGTH_KEYS] +
                          list(params.get("size", ())) + [0.0])
         if size_scale > 0.0 and size_scale / max_edge > 2000.0:
@@ -365,7 +381,7 @@ def _read_selections(value, pname, where, reader, coatings) -> tuple:
             reader.unknown_keys(tab, _SELECT_KEYS, at, "select")
             name = f"select{k + 1}"
             if "name" in tab:
-                name = reader.string(tab["name"], f"{at} name").strip()
+                name = reader.name(tab["name"], f"{at} name", "select name")
                 at = f"{where} select {name!r}"
             if name in names:
                 reader.error(at, f"duplicate select name {name!r} in part {pname!r}")
@@ -401,6 +417,26 @@ def _read_selections(value, pname, where, reader, coatings) -> tuple:
         except Invalid:
             continue
     return tuple(out)
+
+
+def _check_references(path: str, fname: str, base: Path, where: str, reader: Reader):
+    """Refuse a mesh file that makes its loader read a file outside the model's folder
+    ``base`` (an XDMF DataItem naming /home/.../other.h5, an HDF5 external link, a glTF
+    buffer beside a mesh file kept elsewhere), unless ``[model] allow_outside_files``."""
+    from vfactor.meshfile import referenced_files
+
+    if not Path(path).is_file():
+        return   # the geometry reports the missing file
+    root = Path(os.path.realpath(base))
+    for ref in referenced_files(path):
+        if ref.resolved != root and root not in ref.resolved.parents:
+            via = "" if Path(os.path.realpath(ref.source)) == Path(os.path.realpath(path)) \
+                else f" (through {ref.source.name!r})"
+            reader.error(f"{where} file", f"mesh file {fname!r} refers to {ref.written!r}"
+                         f"{via}, {ref.kind}, which is {ref.resolved}: outside the model's "
+                         f"folder {root}; mesh files may read only files in that folder or "
+                         f"below it; move the file there, or set [model] "
+                         f"allow_outside_files = true if you trust the mesh file")
 
 
 def _mesh_unit(tab, fname, where, reader, scale, user_scale) -> float:
@@ -448,7 +484,7 @@ def _read_side(value, where: str, reader: Reader, coatings: dict) -> Side:
     if "node" in tab and "nodes" in tab:
         reader.error(where, "give either 'node' (one named node) or 'nodes' (a mode), not both")
     if "node" in tab:
-        node = reader.string(tab["node"], f"{where} node").strip()
+        node = reader.name(tab["node"], f"{where} node", "node name")
         if node in NODE_MODES:
             reader.warning(f"{where} node", f"node = {node!r} makes one node literally "
                            f"named {node!r}; for the node mode write nodes = {node!r}")
@@ -463,11 +499,28 @@ def _read_side(value, where: str, reader: Reader, coatings: dict) -> Side:
     return Side(coating=coating, node=None, nodes=mode)
 
 
+def _unit_name(scale: float) -> str:
+    """The name of the model's length unit (``m`` when the factor is none of ours)."""
+    return next((k for k, v in LENGTH_UNITS.items() if v == scale), "m")
+
+
+def _length(reader: Reader, value, where: str, scale: float, unit: str,
+            zero_allowed: bool = False) -> float:
+    """A length in the model's unit: > 0 (>= 0 when ``zero_allowed``) and at most
+    :data:`MAX_LENGTH_M` in metres."""
+    return reader.quantity(value, where, unit, 0.0, MAX_LENGTH_M / scale,
+                           low_open=not zero_allowed,
+                           why=f"{MAX_LENGTH_M / 1e3:g} km, far beyond any spacecraft",
+                           advice_high="is the length unit right?")
+
+
 def _unit(v, reader, where) -> tuple:
     x = reader.vector(v, where, 3)
-    norm = math.sqrt(sum(c * c for c in x))
-    if norm == 0.0:
+    big = max(abs(c) for c in x)
+    if big == 0.0:
         reader.error(where, f"must not be the zero vector, got {show(v)}")
+    x = tuple(c / big for c in x)   # no overflow in the squares of huge components
+    norm = math.sqrt(sum(c * c for c in x))
     return tuple(c / norm for c in x)
 
 
