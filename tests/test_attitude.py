@@ -214,3 +214,15 @@ def test_table_without_mode_is_nadir_as_the_readme_says():
     assert att.mode == "nadir"
     assert np.array_equal(att.primary_axis, [0.0, 0.0, -1.0])
     assert attitude_from_table({}, "m.toml").mode == "nadir"
+
+
+def test_empty_axis_and_zero_spin_are_model_errors():
+    with pytest.raises(ValueError, match="got ''"):
+        axis_vector("")
+    with pytest.raises(ModelError, match=r"^model.toml: \[attitude\] nadir_axis: .*got ''"):
+        attitude_from_table({"nadir_axis": ""}, file="model.toml")
+    with pytest.raises(ModelError, match=r"\[attitude\] rate_deg_s: is 0: a spin mode"):
+        attitude_from_table({"mode": "spin", "rate_deg_s": 0.0}, file="model.toml")
+    found = []
+    attitude = attitude_from_table({"mode": "spin", "rate_rpm": -5.0}, problems=found)
+    assert attitude.spin_rate == pytest.approx(-5.0 * 2 * np.pi / 60.0) and found == []

@@ -118,9 +118,25 @@ def test_non_finite_mesh_coordinates(write_model, tmp_path):
     only_error(check_model(write_model(mesh_part("nan.obj"))), "part 'm'", "non-finite")
 
 
-def test_non_finite_after_placement(write_model):
+def test_absurd_sizes_are_refused_before_any_arithmetic(write_model, tmp_path):
+    # sizes that would overflow the geometry (1e308 m: numpy warnings, then non-finite
+    # coordinates) are refused by the reader; parts over 10 km are a unit slip (common
+    # practice: the largest spacecraft is about 100 m across)
     text = BOX.replace("size = [1, 1, 1]", "size = [1e308, 1e308, 1e308]\ncenter = [1.7e308, 0, 0]")
-    only_error(check_model(write_model(text)), "part 'body'", "non-finite")
+    only_error(check_model(write_model(text)), "part 'body' size", "<= 10000 m", "1e+308")
+    text = BOX.replace("size = [1, 1, 1]", "size = [1, 1, 1]\ncenter = [2e4, 0, 0]")
+    only_error(check_model(write_model(text)), "part 'body' center", "10 km")
+    # in millimetres the limit is the same 10 km
+    text = "[model]\nlength_unit = \"mm\"\n" + BOX.replace("[1, 1, 1]", "[2e7, 1, 1]")
+    only_error(check_model(write_model(text)), "part 'body' size", "<= 1e+07 mm")
+    assert check_model(write_model(text.replace("2e7", "9e6"))).ok
+    # a mesh file whose coordinates reach past 10 km once scaled
+    (tmp_path / "big.obj").write_text("v 0 0 0\nv 1e303 0 0\nv 0 1e303 0\nf 1 2 3\n")
+    only_error(check_model(write_model(mesh_part("big.obj"))), "part 'm'", "big.obj",
+               "reaches 1e+303 m")
+    (tmp_path / "km.obj").write_text("v 0 0 0\nv 11 0 0\nv 0 11 0\nf 1 2 3\n")
+    only_error(check_model(write_model(mesh_part("km.obj", "scale = 1000.0\n"))),
+               "part 'm'", "reaches 1.1e+04 m")
 
 
 def test_degenerate_facets_and_node_without_area(write_model, tmp_path):
@@ -167,8 +183,8 @@ def test_face_contact_is_a_warning(write_model):
                   'length = 0.5\ncenter = [0, 0, 0.75]\nfront = { coating = "w" }\n')
     report = check_model(write_model(text))
     assert report.ok
-    assert [p.severity for p in report.problems] == ["warning"]
-    assert "face-to-face contact" in report.problems[0].message
+    assert [p.severity for p in report.problems if p.severity != "note"] == ["warning"]
+    assert "face-to-face contact" in report.warnings[0].message
 
 
 def test_intersecting_parts(write_model):
@@ -243,8 +259,10 @@ def warnings_of(report):
 
 def test_warnings(write_model, tmp_path):
     (w,) = warnings_of(check_model(write_model(BOX.replace(
-        'front = { coating = "w", nodes = "per-face" }\n', ""))))
-    assert "no front and no back" in w
+        'front = { coating = "w", nodes = "per-face" }\n', "") + (
+        '[[parts]]\nname = "plate"\nshape = "rectangle"\nsize = [1, 1]\n'
+        'center = [0, 0, 3]\nfront = { coating = "w" }\n'))))
+    assert "no front and no back" in w and "part 'body'" in w
     # 8 segments: inscribed octagons, area about 10 % low
     (w,) = warnings_of(check_model(write_model(
         '[[parts]]\nname = "s"\nshape = "sphere"\nradius = 1\nsegments = 8\n'

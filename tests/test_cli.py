@@ -88,8 +88,12 @@ def test_check_demo_and_bad_model(capsys, demo_model_path, write_model):
     assert code == 0 and "OK" in out
     bad = write_model('[[parts]]\nname = "p"\nshape = "rectangle"\nsize = [1.0, -2.0]\n'
                       'front = { coating = "w" }\n')
-    code, out, _ = _run(capsys, "check", str(bad))
-    assert code == 2 and "size" in out
+    code, out, err = _run(capsys, "check", str(bad))
+    # the error on standard error, one line like every command's bad input; the report
+    # (table and verdict) on standard output
+    assert code == 2 and err.count("\n") == 1
+    assert err.startswith(f"vfactor: error: {bad}: part 'p' size: ") and "-2.0" in err
+    assert "FAILED: 1 error(s)" in out and "vfactor: error" not in out
 
 
 def test_run_with_bad_model_is_one_line_exit_2(capsys, write_model, tmp_path):

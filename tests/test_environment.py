@@ -103,3 +103,21 @@ def test_file_may_be_a_path():
 
     with pytest.raises(ModelError, match=r"^sat.toml: \[environment\] albedo"):
         environment_from_table({"albedo": -1}, file=Path("sat.toml"))
+
+
+def test_solar_constant_in_kw_is_a_warning_with_the_fix():
+    found = []
+    env = environment_from_table({"solar_constant": 1.361}, file="sat.toml", problems=found)
+    assert env.solar_constant == 1.361          # legal: used as given
+    (p,) = found
+    assert p.severity == "warning" and p.where == "[environment] solar_constant"
+    assert "kW m-2" in p.message and "write 1361" in p.message
+    found = []
+    environment_from_table({"solar_constant": 1361.0, "planet_ir": 240.0}, problems=found)
+    assert found == []
+
+
+def test_solar_constant_above_the_sun_surface_is_an_error():
+    # sigma T^4 at T = 5772 K is about 6.3e7 W m-2 (IAU 2015 B3 nominal temperature)
+    with pytest.raises(ModelError, match=r"\[environment\] solar_constant: must be <= 1e\+08"):
+        environment_from_table({"solar_constant": 2e8}, file="sat.toml")

@@ -290,3 +290,44 @@ def test_near_misses_get_a_suggestion():
         load(COATING + PLATE.replace("rectangle", "sphear"))
     with pytest.raises(ModelError, match="did you mean 'radiation'"):
         load(COATING + PLATE + "[radiaton]\nseed = 2\n")
+
+
+def test_ray_limits_agree_with_the_kernels():
+    # model.py keeps copies so that reading a model imports no numba; they must agree
+    from vfactor import model, radiation
+    from vfactor.tracing import vf_kernels
+
+    assert model.MIN_ROUNDS == radiation.MIN_ROUNDS
+    assert model.MAX_RAYS_PER_ROUND == vf_kernels.MAX_RAYS_PER_ROUND - 1
+    assert model.MAX_ROUNDS == vf_kernels.MAX_ROUNDS
+
+
+def test_ray_limit_problem_bounds():
+    from vfactor.model import MAX_RAYS_PER_ROUND, MIN_ROUNDS, ray_limit_problem
+
+    assert ray_limit_problem(200_000, 4_000_000) == ""
+    assert ray_limit_problem(10 ** 9, 2 * 10 ** 10) == ""   # 160 rounds of 1.25e8: 2.5e18
+    # 8 rounds of 2**32 - 1 rays fit the ray index, but not the int64 sums of squares
+    top = MIN_ROUNDS * MAX_RAYS_PER_ROUND
+    assert "64-bit sums" in ray_limit_problem(top, top)
+    assert "32-bit ray index" in ray_limit_problem(top + MIN_ROUNDS, top + MIN_ROUNDS)
+
+
+def test_allow_outside_files_is_read_and_checked():
+    model = load(COATING + PLATE + "[model]\nallow_outside_files = true\n")
+    assert model.allow_outside_files is True
+    assert load(COATING + PLATE).allow_outside_files is False
+    with pytest.raises(ModelError, match=r"\[model\] allow_outside_files: must be true or"):
+        load(COATING + PLATE + "[model]\nallow_outside_files = \"yes\"\n")
+
+
+@pytest.mark.parametrize("bad, where", [
+    ('[coatings."a\\tb"]\nsolar_absorptivity = 0.2\nir_emissivity = 0.8\n',
+     "[coatings.'a\\tb']"),
+    ('[model]\nname = "x\\n"\n', "[model] name"),
+])
+def test_names_with_control_characters_are_errors_on_one_line(bad, where):
+    with pytest.raises(ModelError) as info:
+        load(COATING + PLATE + bad)
+    message = str(info.value)
+    assert where in message and "printable" in message and "\n" not in message

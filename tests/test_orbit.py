@@ -366,3 +366,56 @@ def test_epoch_outside_the_ephemeris_names_the_epoch_not_an_empty_span():
     assert "m.toml" in message and "[orbit] epoch" in message
     assert "the epoch 2300-03-21T00:00:00" in message and "lies outside" in message
     assert " to 2300" not in message
+
+
+def test_tle_checksum_and_length_are_checked():
+    from vfactor.orbit import tle_checksum, tle_line_problem
+
+    assert tle_line_problem(TLE_LINE1) == "" and tle_line_problem(TLE_LINE2) == ""
+    # the modulo-10 rule (CelesTrak "NORAD Two-Line Element Set Format"): digits summed,
+    # '-' counts 1, letters, spaces, '.' and '+' count 0
+    assert tle_checksum("1 2-3 A+.9" + " " * 58) == (1 + 2 + 1 + 3 + 9) % 10
+    wrong = TLE_LINE1[:-1] + str((int(TLE_LINE1[-1]) + 1) % 10)
+    with pytest.raises(ModelError) as info:
+        orbit_from_table({"tle": f"{wrong}\n{TLE_LINE2}"}, file="model.toml")
+    message = str(info.value)
+    assert message.startswith("model.toml: [orbit] tle: element line 1 has the checksum")
+    assert f"give {TLE_LINE1[-1]}" in message
+    assert "68 characters" in tle_line_problem(TLE_LINE2[:-1])
+
+
+def test_implausible_orbit_values_are_warnings_with_the_key():
+    found = []
+    orbit = orbit_from_table({"altitude_km": 50.0, "inclination_deg": 51.6, "epoch": EPOCH,
+                              "raan_deg": 400.0}, file="model.toml", problems=found)
+    assert orbit.semi_major_axis == pytest.approx(EARTH_EQUATORIAL_RADIUS_M + 50e3)
+    where = sorted(p.where for p in found if p.severity == "warning")
+    assert where == ["[orbit] altitude_km", "[orbit] raan_deg"]
+    # no list: no warnings kept, the same orbit
+    assert orbit_from_table({"altitude_km": 50.0, "inclination_deg": 51.6,
+                             "epoch": EPOCH}).semi_major_axis == orbit.semi_major_axis
+
+
+@pytest.mark.parametrize("extra, key, words", [
+    ({"step_s": 1e-320}, "step_s", ["infinitely many"]),
+    ({"orbits": 1e6, "steps_per_orbit": 72}, "steps_per_orbit", ["7.2e+07"]),
+    ({"epoch": "0001-01-01T00:00:00+01:00"}, "epoch", ["out of range"]),
+    ({"epoch": "1900-01-01T00:00:00Z", "orbits": 1e6, "steps_per_orbit": 1}, "epoch",
+     ["leaves the shipped ephemeris"]),
+])
+def test_extreme_values_are_model_errors_not_overflows(extra, key, words):
+    table = {"altitude_km": 400.0, "inclination_deg": 51.6, "epoch": EPOCH}
+    table.update(extra)
+    with pytest.raises(ModelError) as info:
+        orbit_from_table(table, file="model.toml")
+    message = str(info.value)
+    assert message.startswith(f"model.toml: [orbit] {key}: ")
+    for word in words:
+        assert word in message, message
+
+
+def test_epochs_before_year_1000_keep_four_digits():
+    import datetime as dt
+
+    assert ephemeris.format_epoch(dt.datetime(1, 3, 21, tzinfo=dt.timezone.utc)) == \
+        "0001-03-21T00:00:00.000000Z"

@@ -2,7 +2,9 @@
 
 Exit codes: 0 success; 1 runtime failure (an internal error: one line, the traceback only
 with ``--verbose``); 2 bad input (a model, mesh, results file or argument that cannot be
-used: one line ``vfactor: error: <message>`` on standard error, never a traceback).
+used: one line ``vfactor: error: <message>`` on standard error, never a traceback, also
+with ``--verbose``). Argument errors are one line too (``vfactor: error: <problem>; see
+vfactor CMD --help``), not argparse's usage block.
 """
 
 from __future__ import annotations
@@ -33,8 +35,25 @@ class _Formatter(argparse.RawDescriptionHelpFormatter):
     """Keeps the line breaks of descriptions and examples."""
 
 
+class _UsageError(Exception):
+    """A command line argparse refused: ``prog`` is the (sub)command, ``message`` why."""
+
+    def __init__(self, prog: str, message: str):
+        super().__init__(message)
+        self.prog = prog
+        self.message = message
+
+
+class _Parser(argparse.ArgumentParser):
+    """An ArgumentParser whose errors become one line (see :func:`main`) instead of the
+    usage block and ``sys.exit(2)``; sub-parsers are of the same class."""
+
+    def error(self, message):
+        raise _UsageError(self.prog, message)
+
+
 def _common() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(add_help=False)
+    p = _Parser(add_help=False)
     g = p.add_argument_group("output")
     g.add_argument("-q", "--quiet", action="store_true", default=argparse.SUPPRESS,
                    help="print nothing but errors (no progress bar, no summary lines)")
@@ -76,7 +95,7 @@ def _threshold(text: str) -> float:
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser of the ``vfactor`` command."""
     common = _common()
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog=PROG, formatter_class=_Formatter,
         description="Monte Carlo radiative couplings (view factors, Gebhart factors, exchange "
                     "areas)\nand orbital heat loads (solar, albedo, planet IR) of a "
@@ -217,15 +236,15 @@ def _reporter(args):
 
 
 def _cmd_check(args) -> int:
+    """The report on standard output; its error lines (one per problem) on standard
+    error, like every other command's bad input."""
     from .checks import check_model, format_check_report
 
     report = check_model(args.model)
-    text = format_check_report(report)
-    if report.ok:
-        _say(args, text.rstrip("\n"))
-        return 0
-    print(text.rstrip("\n"), flush=True)
-    return 2
+    for line in format_check_report(report, only_errors=True).splitlines():
+        print(line, file=sys.stderr, flush=True)
+    _say(args, format_check_report(report, errors=False).rstrip("\n"))
+    return 0 if report.ok else 2
 
 
 def _cmd_run(args) -> int:
@@ -281,8 +300,10 @@ def _cmd_demo(args) -> int:
 # ---------------------------------------------------------------------------------------
 # Entry point
 # ---------------------------------------------------------------------------------------
-def _one_line(text: str) -> str:
-    return " ".join(str(text).split())
+def _one_line(text) -> str:
+    """The message on one line, with every non-printable character escaped."""
+    text = " ".join(str(text).split())
+    return "".join(c if c.isprintable() else repr(c)[1:-1] for c in text)
 
 
 def main(argv=None) -> int:
@@ -290,19 +311,23 @@ def main(argv=None) -> int:
     parser = build_parser()
     try:
         args = parser.parse_args(argv)
-    except SystemExit as exc:  # --help, --version (0) and bad arguments (2)
+    except SystemExit as exc:  # --help and --version (0)
         return int(exc.code) if isinstance(exc.code, int) else (0 if exc.code is None else 2)
+    except _UsageError as exc:
+        print(f"{PROG}: error: {_one_line(exc.message)}; see {exc.prog} --help",
+              file=sys.stderr, flush=True)
+        return 2
     for flag in ("quiet", "verbose"):
         if not hasattr(args, flag):
             setattr(args, flag, False)
     if args.command is None:
-        parser.print_help(sys.stderr)
+        print(f"{PROG}: error: no command given; see {PROG} --help", file=sys.stderr,
+              flush=True)
         return 2
     try:
         return int(args.func(args))
     except VfactorError as exc:
-        if args.verbose:
-            traceback.print_exc()
+        # bad input: one line, never a traceback (--verbose shows them for bugs only)
         print(f"{PROG}: error: {_one_line(exc)}", file=sys.stderr, flush=True)
         return 2
     except BrokenPipeError:

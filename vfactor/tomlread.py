@@ -339,14 +339,14 @@ def name_problem(text: str) -> str:
     """What is wrong with a name (empty when nothing): empty, leading or trailing spaces,
     or characters that are not printable (control characters such as newlines, tabs and
     terminal escapes; Python's :meth:`str.isprintable`)."""
-    if not text.strip():
-        return "must not be empty"
-    if text != text.strip():
-        return "must not start or end with spaces"
     if not text.isprintable():
         bad = next(c for c in text if not c.isprintable())
         return (f"must be printable: it holds {bad!r}, a control or other non-printable "
                 f"character (names end up in tables, files and on terminals)")
+    if not text.strip():
+        return "must not be empty"
+    if text != text.strip():
+        return "must not start or end with spaces"
     return ""
 
 
