@@ -13,6 +13,7 @@ import numpy as np
 import pytest
 
 from vfactor import pipeline, radiation
+from vfactor.atomic import OutputError
 from vfactor.errors import ArgumentError, VfactorError
 
 # An open box of four walls (per-face nodes) over a floor plate: six nodes that see each
@@ -227,7 +228,7 @@ def test_results_file_named_like_an_input_is_refused(box, write_model, tmp_path)
     # `vfactor run sat.toml -o sat.toml` used to replace the model file by the results;
     # the same for a mesh file the model reads. Refused in one line, inputs untouched.
     text = box.read_bytes()
-    with pytest.raises(ArgumentError, match="box.toml.*input"):
+    with pytest.raises(OutputError, match="box.toml.*input"):
         pipeline.run(box, box)
     assert box.read_bytes() == text
     (tmp_path / "tri.obj").write_text("v 0 0 0\nv 1 0 0\nv 0 1 0\nf 1 2 3\n")
@@ -242,7 +243,7 @@ front = { coating = "w" }
 rays_per_node = 800
 """, name="mesh.toml")
     before = (tmp_path / "tri.obj").read_bytes()
-    with pytest.raises(ArgumentError, match="tri.obj.*input"):
+    with pytest.raises(OutputError, match="tri.obj.*input"):
         pipeline.run(mesh_model, tmp_path / "tri.obj")
     assert (tmp_path / "tri.obj").read_bytes() == before
 
@@ -272,3 +273,22 @@ rays_per_node = 4000
     assert res.view_factors.raw_inert[0] > 0.9
     assert any("'face'" in n and "inert" in n for n in res.notes)
     assert not any("'panel'" in n for n in res.notes)
+
+
+@pytest.mark.parametrize("cut", ["empty", "half", "foreign"])
+def test_damaged_checkpoint_is_one_line(box, tmp_path, cut):
+    # a checkpoint cut short by a full disk or a copy, or another file under its name:
+    # `--resume` stops in one line (np.load raised BadZipFile / EOFError here) and leaves it
+    out = tmp_path / "o.h5"
+    ckpt = pipeline.checkpoint_path(out)
+    real = pipeline._Checkpoint(ckpt, model_sha256="x", seed=1, rays_per_round=10, n_nodes=2)
+    real.add([0, 1], [0, 1], np.arange(8).reshape(2, 4), force=True)
+    data = ckpt.read_bytes()
+    ckpt.write_bytes({"empty": b"", "half": data[: len(data) // 2],
+                      "foreign": b"PK\x03\x04" + data[4:100]}[cut])
+    before = ckpt.read_bytes()
+    with pytest.raises(VfactorError, match="unreadable checkpoint") as err:
+        pipeline.run(box, out, resume=True)
+    assert "\n" not in str(err.value) and str(err.value).startswith(str(ckpt))
+    assert ckpt.read_bytes() == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["box.toml", "o.h5.partial"]

@@ -34,19 +34,24 @@ seed is refused with a one-line error. It is removed when the results file is wr
 
 from __future__ import annotations
 
+import contextlib
 import os
-import tempfile
+import signal
+import sys
+import threading
 import time
+import zipfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
+from . import atomic
 from .errors import ArgumentError, VfactorError
 from .progress import NullReporter
 from .summary import INERT_WARNING_SHARE
 
-__all__ = ["RunResult", "run", "checkpoint_path", "CHECKPOINT_SUFFIX"]
+__all__ = ["RunResult", "RunTerminated", "run", "checkpoint_path", "CHECKPOINT_SUFFIX"]
 
 CHECKPOINT_SUFFIX = ".partial"
 _CHECKPOINT_KIND = "vfactor-checkpoint-1"
@@ -149,22 +154,20 @@ def _check_arguments(output_path, rays, seed, workers, scheduler):
     return out
 
 
-def _refuse_overwriting_inputs(out: Path, model) -> None:
-    """ArgumentError when the results file would replace the model file or a mesh file the
-    model reads (``vfactor run sat.toml -o sat.toml``)."""
-    if not out.exists():
-        return
+def _model_inputs(model) -> list:
+    """Files a run reads: the model file and the mesh files of its parts."""
     inputs = [Path(model.path)] if getattr(model, "path", None) else []
     inputs += [Path(p.parameters["file"]) for p in model.parts
                if p.shape == "mesh" and p.parameters.get("file")]
-    for src in inputs:
-        try:
-            same = src.exists() and os.path.samefile(out, src)
-        except OSError:
-            same = False
-        if same:
-            raise ArgumentError(f"{out}: is an input of the model ({src}); give the results "
-                                "another file name (e.g. run.h5)")
+    return inputs
+
+
+def _refuse_overwriting_inputs(out: Path, model) -> None:
+    """OutputError when the results file, its checkpoint or its lock file would replace the
+    model file or a mesh file the model reads (``vfactor run sat.toml -o sat.toml``)."""
+    atomic.refuse_inputs([out, checkpoint_path(out), atomic.lock_path(out)],
+                         _model_inputs(model),
+                         hint="give the results another file name (e.g. run.h5)")
 
 
 # ---------------------------------------------------------------------------------------
@@ -187,13 +190,57 @@ def _pair_chunks(count: int, parallel: int, checkpointed: bool = False) -> list:
     return [slice(int(a), int(b)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
 
 
-def _init_worker(geometry, key, threads=None):
+#: How often a worker process checks that its parent still lives [s].
+_PARENT_POLL_S = 0.5
+_PR_SET_PDEATHSIG = 1  # <linux/prctl.h>; prctl(2)
+
+
+def _die_with_parent(parent_pid: int, *, kernel_notice: bool = True) -> None:
+    """Make this worker process end when the process that started it ends.
+
+    * Ctrl-C reaches every process of the terminal's foreground group; the worker ignores
+      SIGINT and leaves the decision to the parent, which terminates its workers.
+    * Linux: ``prctl(PR_SET_PDEATHSIG, SIGKILL)`` asks the kernel to kill this process when
+      its parent dies, however it dies (prctl(2)); a parent that died before the call is
+      caught by comparing ``getppid()`` afterwards (the race prctl(2) describes).
+    * Everywhere: a daemon thread polls ``getppid()`` every :data:`_PARENT_POLL_S`; an
+      orphan is re-parented (to init or a subreaper: getppid changes) and exits at once.
+
+    ``kernel_notice=False`` leaves out the prctl call (the tests check the watchdog alone).
+    """
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    if kernel_notice and sys.platform.startswith("linux"):
+        try:
+            import ctypes
+
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(_PR_SET_PDEATHSIG, int(signal.SIGKILL), 0, 0, 0)
+        except (OSError, AttributeError):  # no libc prctl: the watchdog below still runs
+            pass
+    if os.getppid() != parent_pid:
+        os._exit(1)
+    threading.Thread(target=_watch_parent, args=(parent_pid,), name="vfactor-parent-watch",
+                     daemon=True).start()
+
+
+def _watch_parent(parent_pid: int) -> None:
+    while True:
+        time.sleep(_PARENT_POLL_S)
+        if os.getppid() != parent_pid:
+            os._exit(1)  # no cleanup: the parent's temporaries are cleaned by the next write
+
+
+def _init_worker(geometry, key, threads=None, parent_pid=None):
     """Process-pool initializer: keep the geometry and build its scene once per process.
 
     ``threads``: numba threads of this process (the machine's cores shared among the
-    workers, so that N workers do not each start one thread per core).
+    workers, so that N workers do not each start one thread per core). ``parent_pid``:
+    the process that started the pool; the worker dies with it (:func:`_die_with_parent`).
     """
     from .tracing.scene import Scene
+
+    if parent_pid is not None:
+        _die_with_parent(parent_pid)
 
     if threads is not None:
         import numba
@@ -235,29 +282,61 @@ class _SerialRunner:
     def close(self):
         pass
 
+    def abort(self):
+        pass
+
+
+#: Time a terminated worker gets to exit before it is killed [s].
+_TERMINATE_GRACE_S = 3.0
+
 
 class _ProcessRunner:
+    """Jobs over ``workers`` spawned processes; :meth:`abort` ends them at once."""
+
     def __init__(self, geometry, key, workers):
         import multiprocessing
         from concurrent.futures import ProcessPoolExecutor
 
         self.workers = workers
+        # the pool's processes are the children started from now on (public API:
+        # multiprocessing.active_children; the executor keeps its own list private)
+        self._before = set(multiprocessing.active_children())
         self._pool = ProcessPoolExecutor(max_workers=workers,
                                          mp_context=multiprocessing.get_context("spawn"),
                                          initializer=_init_worker,
                                          initargs=(geometry, key,
-                                                   max(1, (os.cpu_count() or 1) // workers)))
+                                                   max(1, (os.cpu_count() or 1) // workers),
+                                                   os.getpid()))
 
     def map(self, jobs, seed, rays_per_round):
         from concurrent.futures import as_completed
 
-        futures = {self._pool.submit(_job_in_worker, nodes, rounds, seed, rays_per_round):
-                   (nodes, rounds) for nodes, rounds in jobs}
+        with _GATE.deferred():  # submit starts the worker processes
+            futures = {self._pool.submit(_job_in_worker, nodes, rounds, seed, rays_per_round):
+                       (nodes, rounds) for nodes, rounds in jobs}
         for fut in as_completed(futures):
             yield futures[fut], fut.result()
 
     def close(self):
         self._pool.shutdown(wait=True, cancel_futures=True)
+
+    def abort(self):
+        """Stop now (an error, Ctrl-C, SIGTERM): cancel what is queued, SIGTERM the workers,
+        SIGKILL those still there after :data:`_TERMINATE_GRACE_S`."""
+        import multiprocessing
+
+        procs = [p for p in multiprocessing.active_children() if p not in self._before]
+        self._pool.shutdown(wait=False, cancel_futures=True)
+        for p in procs:
+            with contextlib.suppress(OSError, ValueError):
+                p.terminate()
+        deadline = time.monotonic() + _TERMINATE_GRACE_S
+        for p in procs:
+            p.join(max(0.0, deadline - time.monotonic()))
+            if p.is_alive():
+                with contextlib.suppress(OSError, ValueError):
+                    p.kill()
+                p.join(1.0)
 
 
 class _DaskRunner:
@@ -290,6 +369,9 @@ class _DaskRunner:
     def close(self):
         self._client.close()
 
+    def abort(self):
+        self._client.close()
+
 
 # ---------------------------------------------------------------------------------------
 # Checkpoint
@@ -309,15 +391,23 @@ class _Checkpoint:
         if not self.path.exists():
             return 0
         try:
-            with np.load(self.path, allow_pickle=False) as z:
+            # opened here: np.load leaves its own handle open when the zip is unreadable
+            with open(self.path, "rb") as fh:
+                z = np.load(fh, allow_pickle=False)
+                if not isinstance(z, np.lib.npyio.NpzFile):  # a bare .npy array
+                    raise ValueError("a single array, not a checkpoint archive")
                 kind = str(z["kind"])
                 ident = {"model_sha256": str(z["model_sha256"]), "seed": int(z["seed"]),
                          "rays_per_round": int(z["rays_per_round"]),
                          "n_nodes": int(z["n_nodes"])}
                 keys, rows = z["keys"], z["rows"]
-        except (OSError, KeyError, ValueError) as exc:
-            raise VfactorError(f"{self.path}: unreadable checkpoint ({exc}); delete it or run "
-                               "without --resume") from None
+                z.close()
+        except (OSError, KeyError, ValueError, EOFError, zipfile.BadZipFile) as exc:
+            # a truncated or foreign file: np.load raises BadZipFile or EOFError for a cut
+            # .npz, ValueError for other content
+            reason = " ".join(str(exc).split()) or type(exc).__name__
+            raise VfactorError(f"{self.path}: unreadable checkpoint ({reason}); delete it or "
+                               "run without --resume") from None
         if kind != _CHECKPOINT_KIND:
             raise VfactorError(f"{self.path}: not a vfactor checkpoint (kind {kind!r})")
         for name, value in ident.items():
@@ -340,17 +430,9 @@ class _Checkpoint:
         keys = np.array(sorted(self.tallies), dtype=np.int64).reshape(-1, 2)
         rows = (np.stack([self.tallies[tuple(k)] for k in keys]) if len(keys)
                 else np.zeros((0, self.identity["n_nodes"] + 2), np.int64))
-        fd, tmp = tempfile.mkstemp(prefix=f".{self.path.name}.", suffix=".tmp",
-                                   dir=self.path.parent)
-        try:
-            with os.fdopen(fd, "wb") as fh:
-                ident = dict(self.identity, seed=np.uint64(self.identity["seed"]))
-                np.savez(fh, kind=_CHECKPOINT_KIND, keys=keys, rows=rows, **ident)
-            os.replace(tmp, self.path)
-        except BaseException:
-            if os.path.exists(tmp):
-                os.unlink(tmp)
-            raise
+        ident = dict(self.identity, seed=np.uint64(self.identity["seed"]))
+        with atomic.open_atomic(self.path, "the checkpoint") as fh:
+            np.savez(fh, kind=_CHECKPOINT_KIND, keys=keys, rows=rows, **ident)
         self._last = time.monotonic()
 
     def remove(self):
@@ -435,10 +517,17 @@ def _view_factors(radiation, model, geometry, scene, *, rays_per_node, seed, wor
                     bar.set_total(total)
                     resumed += _run_pairs(runner, pair_node, pair_round, sums, ckpt, seed, m,
                                           bar)
-    finally:
-        runner.close()
+    except BaseException:
+        runner.abort()
         if ckpt is not None:
-            ckpt.save()
+            # keep the finished work for --resume; a full disk here must not hide the
+            # error that stopped the run
+            with contextlib.suppress(atomic.OutputError):
+                ckpt.save()
+        raise
+    runner.close()
+    if ckpt is not None:
+        ckpt.save()
     # converged=None: decided from target_error as compute_view_factors decides it
     vf = radiation.view_factors_from_tallies(geometry, sums, target_error=target,
                                              converged=None, smooth=settings.smoothing)
@@ -468,6 +557,103 @@ def _run_pairs(runner, pair_node, pair_round, sums, ckpt, seed, m, bar) -> int:
             ckpt.add(job_rounds, job_nodes, tallies)
         bar.advance(len(job_nodes) * m)
     return int((~todo).sum())
+
+
+# ---------------------------------------------------------------------------------------
+# Signals
+# ---------------------------------------------------------------------------------------
+class RunTerminated(KeyboardInterrupt):
+    """SIGTERM or SIGHUP arrived during :func:`run`.
+
+    Raised in the main thread by the handler :func:`_signals_raise` installs, so that the
+    same clean-up as for Ctrl-C runs: workers terminated, temporaries removed, the
+    checkpoint kept (``--resume``), the lock file removed. A KeyboardInterrupt, so the
+    command line reports it as an interruption.
+
+    Attributes
+    ----------
+    signum : int — the signal received
+    """
+
+    def __init__(self, signum: int):
+        self.signum = int(signum)
+        super().__init__(f"terminated by {signal.Signals(signum).name}")
+
+
+class _SignalGate:
+    """What the signal handler of :func:`_signals_raise` does, and where it must wait.
+
+    A signal that arrives inside :meth:`deferred` (a worker process being started: one
+    interrupted between its start and its registration in the pool would be left running,
+    unknown to the pool) is held and raised when the block ends. After the first signal
+    the handler does nothing more, so the clean-up it starts can finish.
+    """
+
+    def __init__(self):
+        self.reset()
+
+    def reset(self):
+        self.depth, self.pending, self.fired = 0, None, False
+
+    def handler(self, signum, frame):
+        if self.fired:
+            return
+        if self.depth:
+            self.pending = signum
+            return
+        self._raise(signum)
+
+    def _raise(self, signum):
+        self.fired = True
+        if signum == signal.SIGINT:
+            raise KeyboardInterrupt
+        raise RunTerminated(signum)
+
+    @contextlib.contextmanager
+    def deferred(self):
+        self.depth += 1
+        try:
+            yield
+        finally:
+            self.depth -= 1
+            if not self.depth and self.pending is not None and not self.fired:
+                signum, self.pending = self.pending, None
+                self._raise(signum)
+
+
+#: The one gate of this process (signal handlers are per process, like this state).
+_GATE = _SignalGate()
+
+
+@contextlib.contextmanager
+def _signals_raise():
+    """Turn SIGTERM and SIGHUP into :class:`RunTerminated`, and SIGINT into
+    KeyboardInterrupt, at moments where the clean-up can run, while the block runs.
+
+    By default SIGTERM and SIGHUP end a Python process at once, without ``finally``
+    blocks, and a process pool's workers would be left running; SIGINT raises
+    KeyboardInterrupt anywhere, also while a worker is being started. Only in the main
+    thread (signal handlers can only be set there; Python library reference, signal
+    module), and only where the signal still has its default action (a SIG_IGN set by
+    ``nohup`` is kept). See :class:`_SignalGate`; the previous handlers are restored at
+    the end.
+    """
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    _GATE.reset()
+    previous = {}
+    for name, default in (("SIGTERM", signal.SIG_DFL), ("SIGHUP", signal.SIG_DFL),
+                          ("SIGINT", signal.default_int_handler)):
+        sig = getattr(signal, name, None)
+        if sig is not None and signal.getsignal(sig) == default:
+            previous[sig] = signal.signal(sig, _GATE.handler)
+    try:
+        yield
+    finally:
+        for sig, old in previous.items():
+            signal.signal(sig, old)
+        _GATE.reset()
 
 
 # ---------------------------------------------------------------------------------------
@@ -506,7 +692,31 @@ def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=N
     ------
     vfactor.errors.VfactorError
         Bad model, mesh or argument (one line naming the file, key or value).
+    vfactor.atomic.OutputBusyError
+        Another live run writes the same output (it holds ``OUT.h5.lock``).
+    vfactor.atomic.OutputError
+        The output would replace an input, or cannot be written (full disk).
+    RunTerminated
+        SIGTERM or SIGHUP arrived; everything was cleaned up as for KeyboardInterrupt.
+
+    Notes
+    -----
+    For the whole run this process holds ``OUT.h5.lock`` (:class:`vfactor.atomic.OutputLock`)
+    and turns SIGTERM and SIGHUP into :class:`RunTerminated`; worker processes die with it.
     """
+    reporter = reporter or NullReporter()
+    out = _check_arguments(output_path, rays, seed, workers, scheduler)
+    atomic.refuse_inputs(atomic.lock_path(out), [model_path],
+                         hint="give the results another file name (e.g. run.h5)")
+    with _signals_raise(), atomic.OutputLock(out):
+        return _run(model_path, out, rays=rays, seed=seed, workers=workers,
+                    scheduler=scheduler, resume=resume, facet_factors=facet_factors,
+                    reporter=reporter)
+
+
+def _run(model_path, out: Path, *, rays, seed, workers, scheduler, resume, facet_factors,
+         reporter) -> RunResult:
+    """:func:`run` after the argument checks, holding the output's lock."""
     from . import radiation
     from .checks import require_clean
     from .geometry import build_geometry
@@ -514,8 +724,6 @@ def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=N
     from .model import load_model
     from .tracing.scene import Scene
 
-    reporter = reporter or NullReporter()
-    out = _check_arguments(output_path, rays, seed, workers, scheduler)
     elapsed = {}
     t_start = time.perf_counter()
     notes = []
@@ -588,7 +796,7 @@ def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=N
     t0 = time.perf_counter()
     write_results(out, model=model, geometry=geometry, view_factors=view_factors,
                   exchange=exchange, trajectory=trajectory, heating=heating,
-                  provenance=provenance)
+                  provenance=provenance, inputs=_model_inputs(model))
     elapsed["write"] = time.perf_counter() - t0
     if resume:
         checkpoint_path(out).unlink(missing_ok=True)
