@@ -129,6 +129,11 @@ class Model:
     segment_start: np.ndarray = None     # (s m + 1,) int64
     esc_origin: np.ndarray = None        # (e, 3)
     esc_dir: np.ndarray = None           # (e, 3)
+    position: np.ndarray = None          # (s, 3) centroid of each side's facet [m]
+    control: np.ndarray = None           # (s,) bool: planet IR by control variate
+    blk_start: np.ndarray = None         # (s m + 1,) int64, blocked rays of control sides
+    blk_origin: np.ndarray = None        # (b, 3)
+    blk_dir: np.ndarray = None           # (b, 3)
 
 
 @dataclass(frozen=True)
@@ -160,6 +165,14 @@ def prepare(geometry, scene, m, rays_per_facet, sun_samples, seed, max_bounces) 
 
 
 _TRACE_BATCH = 512
+CONTROL_BLOCKED_SHARE = 0.5
+"""A side whose rays the vehicle blocks less often than this gets the planet-IR control
+variate: its estimate is the closed-form view factor minus the Monte Carlo estimate of the
+blocked part (Owen 2013, "Monte Carlo theory, methods and examples", ch. 8, control
+variates with coefficient 1), whose variance is that of the blocked part only. A side
+blocked more often keeps the plain estimate of the seen part, which is then the smaller
+variance; the choice depends only on the vehicle, not on the planet samples, so both
+estimators stay unbiased."""
 
 
 def trace_once(model: Model, bar, need_rays: bool) -> None:
@@ -185,8 +198,25 @@ def trace_once(model: Model, bar, need_rays: bool) -> None:
     model.esc_dir = np.empty((n_esc, 3))
     if need_rays and s.count:
         hk.fill_escaping(model.vertices, model.triangles, model.normals, s.facet, s.sign,
-                         model.seed, model.m, model.k_planet, targets, segment_start,
+                         model.seed, model.m, model.k_planet, targets, segment_start, True,
                          model.esc_origin, model.esc_dir)
+    # control variate for planet IR where the vehicle blocks less than half of the rays
+    blocked = ~escaping.reshape(s.count, n_rays)
+    model.control = blocked.mean(axis=1) < CONTROL_BLOCKED_SHARE if s.count else \
+        np.zeros(0, bool)
+    model.position = model.vertices[model.triangles[s.facet]].mean(axis=1)
+    counted = (blocked & model.control[:, None]).reshape(s.count * model.m, model.k_planet)
+    model.blk_start = np.zeros(s.count * model.m + 1, dtype=np.int64)
+    np.cumsum(counted.sum(axis=1), out=model.blk_start[1:])
+    n_blk = int(model.blk_start[-1]) if need_rays else 0
+    model.blk_origin = np.empty((n_blk, 3))
+    model.blk_dir = np.empty((n_blk, 3))
+    if need_rays and n_blk:
+        # rays of sides without the control variate count as escaping: none is stored
+        marked = np.where(model.control[:, None], targets, hk.TARGET_ESCAPE).astype(np.int32)
+        hk.fill_escaping(model.vertices, model.triangles, model.normals, s.facet, s.sign,
+                         model.seed, model.m, model.k_planet, marked, model.blk_start, False,
+                         model.blk_origin, model.blk_dir)
 
 
 def bands_of(model: Model, geometry, view_factors) -> dict:
@@ -245,15 +275,22 @@ def one_step(model: Model, bands, step: Step, use_cache: bool, k: int, out: dict
     # planet: hits and albedo cosines per (side, replicate)
     hits = np.zeros(s.count * m)
     cos_sum = np.zeros(s.count * m)
+    blocked = np.zeros(s.count * m)
     if s.count:
         if use_cache:
             hk.planet_cached(model.segment_start, model.esc_origin, model.esc_dir, step.centre,
                              step.radius, step.sun, hits, cos_sum)
+            hk.planet_cached(model.blk_start, model.blk_origin, model.blk_dir, step.centre,
+                             step.radius, step.sun, blocked, np.zeros(s.count * m))
         else:
             hk.planet_uncached(model.arrays, model.vertices, model.triangles, model.normals,
                                s.facet, s.sign, model.seed, m, model.k_planet, step.centre,
-                               step.radius, step.sun, hits, cos_sum)
-    ir_rep = (step.olr * s.area)[:, None] * (hits.reshape(s.count, m) / model.k_planet)
+                               step.radius, step.sun, hits, cos_sum, blocked)
+    seen = hits.reshape(s.count, m) / model.k_planet
+    ir_share = np.where(model.control[:, None],
+                        planet_view(model, step)[:, None]
+                        - blocked.reshape(s.count, m) / model.k_planet, seen)
+    ir_rep = (step.olr * s.area)[:, None] * ir_share
     alb_rep = (step.albedo * step.solar * s.area)[:, None] * (
         cos_sum.reshape(s.count, m) / model.k_planet)
 
@@ -360,7 +397,10 @@ def _reflect(model: Model, src, band, step: Step, rep, lit_mask, cos_t):
         if src == "solar":
             rays = _sun_mirror(model, band, step, lit_mask, cos_t)
         else:
-            rays = _planet_mirror(model, src, band, step)
+            rays, uncarried = _planet_mirror(model, src, band, step, rep)
+            # specular power of (side, replicate) pairs with no ray toward the planet to
+            # carry it (a control-variate estimate without a seen ray): reflected diffusely
+            pool += _per_replicate(s.node, uncarried, model.n_nodes)
         a, d, e, q = _run_chains(model, band, *rays)
         # ray weights are shares of the mean over replicates: m times the sum over one
         # replicate's rays is that replicate's estimate
@@ -401,22 +441,49 @@ def _sun_mirror(model: Model, band, step: Step, lit_mask, cos_t):
     return origin[sub_mask], direction[sub_mask], exclude, weight, replicate
 
 
-def _planet_mirror(model: Model, src, band, step: Step):
+def _planet_mirror(model: Model, src, band, step: Step, rep):
     """Mirror rays of the cached planet rays of the specular sides, with their power and
-    replicate."""
+    replicate, and the specular power (s, m) that no ray carries.
+
+    For planet IR the weights of a (side, replicate) are scaled so that they carry its
+    specular share of ``rep`` (the control-variate estimate, see :func:`planet_view`), so
+    that the energy bookkeeping closes.
+    """
     from vfactor.tracing import heat_kernels as hk
 
     s = model.sides
     rows = band["rows"]
     owner = band["owner"]
+    replicate = band["replicate"]
     hit = np.zeros(rows.size, dtype=np.bool_)
     mu = np.zeros(rows.size)
     if rows.size:
         hk.planet_ray_cos(model.esc_origin, model.esc_dir, rows, step.centre, step.radius,
                           step.sun, hit, mu)
-    base = (s.area[owner] / (model.m * model.k_planet) * (1.0 - band["s_abs"][owner])
-            * band["s_spec"][owner])
-    weight = base * (step.albedo * step.solar * mu if src == "albedo" else step.olr)
-    keep = hit & (weight > 0.0)
-    return (band["mirror_origin"][keep], band["mirror"][keep], s.facet[owner[keep]],
-            weight[keep], band["replicate"][keep])
+    spec_share = (1.0 - band["s_abs"]) * band["s_spec"]
+    uncarried = np.zeros((s.count, model.m))
+    if src == "albedo":
+        weight = (s.area[owner] / (model.m * model.k_planet) * spec_share[owner]
+                  * step.albedo * step.solar * mu)
+    else:
+        # seen rays per (side, replicate), and the power each must carry
+        seen = np.bincount(owner[hit] * model.m + replicate[hit],
+                           minlength=s.count * model.m).reshape(s.count, model.m)
+        wanted = spec_share[:, None] * rep / model.m          # of the mean over replicates
+        per_ray = np.divide(wanted, seen, out=np.zeros_like(wanted), where=seen > 0)
+        weight = per_ray[owner, replicate]
+        uncarried = np.where(seen > 0, 0.0, model.m * wanted)
+    keep = hit & (weight != 0.0)
+    return ((band["mirror_origin"][keep], band["mirror"][keep], s.facet[owner[keep]],
+             weight[keep], replicate[keep]), uncarried)
+
+
+def planet_view(model: Model, step: Step) -> np.ndarray:
+    """Unblocked view factor of every side to the planet at this step (closed form,
+    :func:`vfactor.planetview.plate_sphere_view_factor`, at the facet's centroid)."""
+    from vfactor.planetview import plate_sphere_view_factor
+
+    to_centre = step.centre[None, :] - model.position
+    dist = np.linalg.norm(to_centre, axis=1)
+    cos_lam = np.einsum("ij,ij->i", model.sides.normal, to_centre) / dist
+    return plate_sphere_view_factor(dist / step.radius, cos_lam)

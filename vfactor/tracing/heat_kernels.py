@@ -15,8 +15,8 @@ Kernels
 -------
 - :func:`trace_targets` : cosine-weighted rays from each side, first hit -> target node
   (``-1`` escapes, ``-2`` lost on an inert side). Done once for rigid geometry.
-- :func:`fill_escaping` : origins and directions of the escaping rays (regenerated, not
-  traced), grouped by (side, replicate).
+- :func:`fill_escaping` : origins and directions of the escaping rays, or of the blocked
+  ones (regenerated, not traced), grouped by (side, replicate).
 - :func:`planet_cached` : per step, escaping rays against the planet sphere.
 - :func:`planet_uncached` : the same result re-tracing every ray against the vehicle.
 - :func:`sun_lit_mask` : per step, sample points of each side traced toward the solar disk.
@@ -124,13 +124,15 @@ def trace_targets(arrays, vertices, triangles, normals, side_facet, side_sign, f
 
 @njit(**JIT_PARALLEL)
 def fill_escaping(vertices, triangles, normals, side_facet, side_sign, seed, replicates,
-                  per_replicate, target, segment_start, out_origin, out_direction):
-    """Store origin and direction of the escaping rays, grouped by (side, replicate).
+                  per_replicate, target, segment_start, escaping, out_origin, out_direction):
+    """Store origin and direction of the escaping (or of the blocked) rays, grouped by
+    (side, replicate).
 
     Parameters
     ----------
     target : (s, replicates * per_replicate) int32 — from :func:`trace_targets`
     segment_start : (s * replicates + 1,) int64 — first row of segment ``s * replicates + r``
+    escaping : bool — True: the rays that escape the vehicle; False: the rays it blocks
     out_origin, out_direction : (e, 3) float64, written [m], [1]
     """
     for s in prange(side_facet.shape[0]):
@@ -140,7 +142,7 @@ def fill_escaping(vertices, triangles, normals, side_facet, side_sign, seed, rep
         for r in range(replicates):
             row = segment_start[s * replicates + r]
             for k in range(per_replicate):
-                if target[s, r * per_replicate + k] != TARGET_ESCAPE:
+                if (target[s, r * per_replicate + k] == TARGET_ESCAPE) != escaping:
                     continue
                 x, y, z, dx, dy, dz = _side_ray(vertices, triangles, normals, f, sign, seed,
                                                 stream, r, k)
@@ -210,12 +212,15 @@ def planet_cached(segment_start, origin, direction, centre, radius, sun, out_hit
 
 @njit(**JIT_PARALLEL)
 def planet_uncached(arrays, vertices, triangles, normals, side_facet, side_sign, seed,
-                    replicates, per_replicate, centre, radius, sun, out_hits, out_cos):
+                    replicates, per_replicate, centre, radius, sun, out_hits, out_cos,
+                    out_blocked):
     """Per step, without the cache: re-trace every ray against the vehicle, then the planet.
 
     Same outputs (segment ``s * replicates + r``) and the same rays as
     :func:`trace_targets` + :func:`fill_escaping` + :func:`planet_cached`, hence the same
     numbers; used for articulated geometry and as the reference of the benchmark.
+    ``out_blocked`` (g,) float64, written: rays the vehicle blocks that would meet the
+    planet (the blocked cache of ``fill_escaping(..., escaping=False)`` against the planet).
     """
     cx = centre[0]
     cy = centre[1]
@@ -230,17 +235,21 @@ def planet_uncached(arrays, vertices, triangles, normals, side_facet, side_sign,
         for r in range(replicates):
             hits = 0.0
             cos_sum = 0.0
+            blocked = 0.0
             for k in range(per_replicate):
                 x, y, z, dx, dy, dz = _side_ray(vertices, triangles, normals, f, sign, seed,
                                                 stream, r, k)
-                if any_hit(arrays, x, y, z, dx, dy, dz, np.inf, f):
-                    continue
                 hit, mu = _sphere(x, y, z, dx, dy, dz, cx, cy, cz, radius, sx, sy, sz)
-                if hit:
-                    hits += 1.0
-                    cos_sum += mu
+                if not hit:
+                    continue
+                if any_hit(arrays, x, y, z, dx, dy, dz, np.inf, f):
+                    blocked += 1.0
+                    continue
+                hits += 1.0
+                cos_sum += mu
             out_hits[s * replicates + r] = hits
             out_cos[s * replicates + r] = cos_sum
+            out_blocked[s * replicates + r] = blocked
 
 
 @njit(**JIT)
