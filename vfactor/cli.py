@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import argparse
 import os
+import signal
 import sys
 import traceback
 from pathlib import Path
@@ -340,13 +341,17 @@ def main(argv=None) -> int:
         except (OSError, ValueError, AttributeError):
             pass
         return 1
-    except KeyboardInterrupt:
+    except KeyboardInterrupt as exc:
         hint = ""
         if getattr(args, "command", None) == "run":
             hint = ("; finished work is kept, rerun with --resume to continue"
                     if args.resume else "; with --resume a rerun would continue from here")
-        print(f"{PROG}: interrupted{hint}", file=sys.stderr, flush=True)
-        return 1
+        signum = getattr(exc, "signum", None)      # pipeline.RunTerminated: SIGTERM, SIGHUP
+        what = f"terminated ({signal.Signals(signum).name})" if signum else "interrupted"
+        print(f"{PROG}: {what}{hint}", file=sys.stderr, flush=True)
+        # exit status of a process ended by a signal: 128 + its number (POSIX shells,
+        # common practice); Ctrl-C keeps 1 as documented
+        return 128 + signum if signum else 1
     except Exception as exc:  # noqa: BLE001 - the one place every other failure is reported
         if args.verbose:
             traceback.print_exc()

@@ -733,7 +733,7 @@ def _run(model_path, out: Path, *, rays, seed, workers, scheduler, resume, facet
     model = load_model(model_path)
     _refuse_overwriting_inputs(out, model)
     geometry = build_geometry(model)
-    found = require_clean(model, geometry)
+    found = require_clean(model, geometry, rays=rays)
     check_warnings = [": ".join(x for x in (p.where, p.message) if x)
                       for p in found if p.severity == "warning"]
     notes.extend(f"warning: {w}" for w in check_warnings)
