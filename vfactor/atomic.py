@@ -45,7 +45,7 @@ import secrets
 import socket
 from pathlib import Path
 
-from .errors import VfactorError
+from .errors import OutputBusyError, OutputError, VfactorError
 
 try:  # POSIX only (Python library reference, fcntl module)
     import fcntl as _fcntl
@@ -61,25 +61,6 @@ _MARK = ".vfactor-"
 _TEMP = re.compile(r"^\.(?P<name>.*)\.vfactor-(?P<host>[0-9a-f]{8})-(?P<pid>[0-9]+)-"
                    r"(?P<token>[0-9a-f]+)\.tmp$")
 _MAX_NAME = 150  # bytes of the target name kept in a temporary's name (NAME_MAX is 255)
-
-
-class OutputError(VfactorError):
-    """A file that cannot be written: full disk, read-only folder, an input in the way.
-
-    Attributes
-    ----------
-    file : str — the file that was to be written (never the temporary)
-    errno : int or None — the operating system's error number, when there was one
-    """
-
-    def __init__(self, message: str, file=None, errno_=None):
-        self.file = None if file is None else str(file)
-        self.errno = errno_
-        super().__init__(message)
-
-
-class OutputBusyError(OutputError):
-    """Another live process is writing the same results file (it holds its lock)."""
 
 
 # ---------------------------------------------------------------------------------------

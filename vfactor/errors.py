@@ -20,6 +20,8 @@ __all__ = [
     "GeometryError",
     "ResultsFileError",
     "ArgumentError",
+    "OutputError",
+    "OutputBusyError",
     "Problem",
 ]
 
@@ -88,6 +90,25 @@ class ResultsFileError(VfactorError):
 
 class ArgumentError(VfactorError):
     """A command-line argument that cannot be used (for example a negative ray count)."""
+
+
+class OutputError(VfactorError):
+    """A file that cannot be written: full disk, read-only folder, an input in the way.
+
+    Attributes
+    ----------
+    file : str — the file that was to be written (never the temporary)
+    errno : int or None — the operating system's error number, when there was one
+    """
+
+    def __init__(self, message: str, file=None, errno_=None):
+        self.file = None if file is None else str(file)
+        self.errno = errno_
+        super().__init__(message)
+
+
+class OutputBusyError(OutputError):
+    """Another live process is writing the same results file (it holds its lock)."""
 
 
 @dataclass(frozen=True)
