@@ -491,10 +491,10 @@ def test_workers_die_with_their_parent(tmp_path, capsys, how):
 def test_a_worker_without_prctl_notices_its_parent_is_gone(tmp_path):
     # the portable watchdog alone (getppid polled in a thread): a middle process forks a
     # child that arms it, then the middle process is killed with SIGKILL
-    script = ("import os, sys, time\nfrom vfactor import pipeline\nparent = os.getpid()\n"
+    script = ("import os, sys, time\nfrom vfactor import runners\nparent = os.getpid()\n"
               "child = os.fork()\n"
               "if child == 0:\n"
-              "    pipeline._die_with_parent(parent, kernel_notice=False)\n"
+              "    runners.die_with_parent(parent, kernel_notice=False)\n"
               "    time.sleep(60)\n    os._exit(0)\n"
               "print(child, flush=True)\ntime.sleep(60)\n")
     middle = subprocess.Popen([sys.executable, "-c", script], stdout=subprocess.PIPE,
@@ -507,7 +507,7 @@ def test_a_worker_without_prctl_notices_its_parent_is_gone(tmp_path):
         t0 = time.monotonic()
         while atomic.pid_alive(child) and time.monotonic() - t0 < 10:
             time.sleep(0.05)
-        # polled every pipeline._PARENT_POLL_S (0.5 s); 3 s leaves room for a busy machine
+        # polled every runners.PARENT_POLL_S (0.5 s); 3 s leaves room for a busy machine
         assert not atomic.pid_alive(child) and time.monotonic() - t0 < 3.0
     finally:
         middle.stdout.close()

@@ -14,6 +14,7 @@ import pytest
 
 from vfactor import pipeline, radiation
 from vfactor.atomic import OutputError
+from vfactor.checkpoint import Checkpoint
 from vfactor.errors import ArgumentError, VfactorError
 
 # An open box of four walls (per-face nodes) over a floor plate: six nodes that see each
@@ -281,7 +282,7 @@ def test_damaged_checkpoint_is_one_line(box, tmp_path, cut):
     # `--resume` stops in one line (np.load raised BadZipFile / EOFError here) and leaves it
     out = tmp_path / "o.h5"
     ckpt = pipeline.checkpoint_path(out)
-    real = pipeline._Checkpoint(ckpt, model_sha256="x", seed=1, rays_per_round=10, n_nodes=2)
+    real = Checkpoint(ckpt, model_sha256="x", seed=1, rays_per_round=10, n_nodes=2)
     real.add([0, 1], [0, 1], np.arange(8).reshape(2, 4), force=True)
     data = ckpt.read_bytes()
     ckpt.write_bytes({"empty": b"", "half": data[: len(data) // 2],

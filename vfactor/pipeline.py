@@ -12,7 +12,8 @@ The view factors are summed from integer tallies of independent *rounds*
 (geometry, seed, node, round, rays per round). The pipeline asks
 :func:`vfactor.radiation.plan_rounds` which (node, round) pairs to trace — the same pairs
 :func:`vfactor.radiation.compute_view_factors` traces — cuts them into jobs
-(:func:`vfactor.radiation.trace_pairs`) and sends them to
+(:func:`vfactor.radiation.trace_pairs`) and sends them to one of the runners of
+:mod:`vfactor.runners`:
 
 * this process (``workers=1``),
 * ``workers`` processes on this machine (:class:`concurrent.futures.ProcessPoolExecutor`,
@@ -26,7 +27,7 @@ any of these and any number of workers.
 Resuming
 --------
 With ``resume=True`` finished jobs are kept in a checkpoint file beside the output
-(``OUT.h5.partial``, NumPy ``.npz`` content), written atomically every few seconds. A rerun
+(``OUT.h5.partial``, :mod:`vfactor.checkpoint`), written atomically every few seconds. A rerun
 with ``resume=True`` skips the jobs it holds and gives identical bits. The checkpoint
 records the model hash, seed, rays per round and node count; one from another model or
 seed is refused with a one-line error. It is removed when the results file is written.
@@ -36,27 +37,21 @@ from __future__ import annotations
 
 import contextlib
 import os
-import signal
-import sys
-import threading
 import time
-import zipfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 from . import atomic
-from .errors import ArgumentError, VfactorError
+from .checkpoint import CHECKPOINT_SUFFIX, Checkpoint, checkpoint_path
+from .errors import ArgumentError
+from .interrupts import RunTerminated, signals_raise
 from .progress import NullReporter
+from .runners import DaskRunner, ProcessRunner, SerialRunner
 from .summary import INERT_WARNING_SHARE
 
 __all__ = ["RunResult", "RunTerminated", "run", "checkpoint_path", "CHECKPOINT_SUFFIX"]
-
-CHECKPOINT_SUFFIX = ".partial"
-_CHECKPOINT_KIND = "vfactor-checkpoint-1"
-_CHECKPOINT_EVERY_S = 5.0
-
 
 @dataclass(frozen=True)
 class RunResult:
@@ -125,12 +120,6 @@ class RunResult:
         return "\n".join(lines)
 
 
-def checkpoint_path(output_path) -> Path:
-    """The checkpoint file of ``output_path``: the same name plus ``.partial``."""
-    p = Path(output_path)
-    return p.with_name(p.name + CHECKPOINT_SUFFIX)
-
-
 # ---------------------------------------------------------------------------------------
 # Argument checks
 # ---------------------------------------------------------------------------------------
@@ -173,9 +162,6 @@ def _refuse_overwriting_inputs(out: Path, model) -> None:
 # ---------------------------------------------------------------------------------------
 # Jobs: (round, block of nodes) -> integer tallies
 # ---------------------------------------------------------------------------------------
-_WORKER_STATE: dict = {}
-
-
 def _pair_chunks(count: int, parallel: int, checkpointed: bool = False) -> list:
     """Slices cutting ``count`` (node, round) pairs into jobs: one job in this process,
     four per worker otherwise (so that the load balances); at least eight when a
@@ -188,256 +174,6 @@ def _pair_chunks(count: int, parallel: int, checkpointed: bool = False) -> list:
     pieces = min(count, pieces)
     bounds = np.linspace(0, count, pieces + 1).round().astype(np.int64)
     return [slice(int(a), int(b)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
-
-
-#: How often a worker process checks that its parent still lives [s].
-_PARENT_POLL_S = 0.5
-_PR_SET_PDEATHSIG = 1  # <linux/prctl.h>; prctl(2)
-
-
-def _die_with_parent(parent_pid: int, *, kernel_notice: bool = True) -> None:
-    """Make this worker process end when the process that started it ends.
-
-    * Ctrl-C reaches every process of the terminal's foreground group; the worker ignores
-      SIGINT and leaves the decision to the parent, which terminates its workers.
-    * Linux: ``prctl(PR_SET_PDEATHSIG, SIGKILL)`` asks the kernel to kill this process when
-      its parent dies, however it dies (prctl(2)); a parent that died before the call is
-      caught by comparing ``getppid()`` afterwards (the race prctl(2) describes).
-    * Everywhere: a daemon thread polls ``getppid()`` every :data:`_PARENT_POLL_S`; an
-      orphan is re-parented (to init or a subreaper: getppid changes) and exits at once.
-
-    ``kernel_notice=False`` leaves out the prctl call (the tests check the watchdog alone).
-    """
-    signal.signal(signal.SIGINT, signal.SIG_IGN)
-    if kernel_notice and sys.platform.startswith("linux"):
-        try:
-            import ctypes
-
-            libc = ctypes.CDLL(None, use_errno=True)
-            libc.prctl(_PR_SET_PDEATHSIG, int(signal.SIGKILL), 0, 0, 0)
-        except (OSError, AttributeError):  # no libc prctl: the watchdog below still runs
-            pass
-    if os.getppid() != parent_pid:
-        os._exit(1)
-    threading.Thread(target=_watch_parent, args=(parent_pid,), name="vfactor-parent-watch",
-                     daemon=True).start()
-
-
-def _watch_parent(parent_pid: int) -> None:
-    while True:
-        time.sleep(_PARENT_POLL_S)
-        if os.getppid() != parent_pid:
-            os._exit(1)  # no cleanup: the parent's temporaries are cleaned by the next write
-
-
-def _init_worker(geometry, key, threads=None, parent_pid=None):
-    """Process-pool initializer: keep the geometry and build its scene once per process.
-
-    ``threads``: numba threads of this process (the machine's cores shared among the
-    workers, so that N workers do not each start one thread per core). ``parent_pid``:
-    the process that started the pool; the worker dies with it (:func:`_die_with_parent`).
-    """
-    from .tracing.scene import Scene
-
-    if parent_pid is not None:
-        _die_with_parent(parent_pid)
-
-    if threads is not None:
-        import numba
-
-        numba.set_num_threads(max(1, min(int(threads), numba.config.NUMBA_NUM_THREADS)))
-    _WORKER_STATE.clear()
-    _WORKER_STATE["key"] = key
-    _WORKER_STATE["geometry"] = geometry
-    _WORKER_STATE["scene"] = Scene.build(geometry.vertices, geometry.triangles)
-
-
-def _job_in_worker(nodes, rounds, seed, rays_per_round):
-    from .radiation import trace_pairs
-
-    return trace_pairs(_WORKER_STATE["geometry"], _WORKER_STATE["scene"], nodes, rounds, seed,
-                       rays_per_round)
-
-
-def _job_on_dask(geometry, key, nodes, rounds, seed, rays_per_round):
-    """Run one job on a dask worker, building the scene once per worker process."""
-    if _WORKER_STATE.get("key") != key:
-        _init_worker(geometry, key)
-    return _job_in_worker(nodes, rounds, seed, rays_per_round)
-
-
-class _SerialRunner:
-    workers = 1
-
-    def __init__(self, geometry, scene):
-        self.geometry, self.scene = geometry, scene
-
-    def map(self, jobs, seed, rays_per_round):
-        from .radiation import trace_pairs
-
-        for nodes, rounds in jobs:
-            yield (nodes, rounds), trace_pairs(self.geometry, self.scene, nodes, rounds, seed,
-                                               rays_per_round)
-
-    def close(self):
-        pass
-
-    def abort(self):
-        pass
-
-
-#: Time a terminated worker gets to exit before it is killed [s].
-_TERMINATE_GRACE_S = 3.0
-
-
-class _ProcessRunner:
-    """Jobs over ``workers`` spawned processes; :meth:`abort` ends them at once."""
-
-    def __init__(self, geometry, key, workers):
-        import multiprocessing
-        from concurrent.futures import ProcessPoolExecutor
-
-        self.workers = workers
-        # the pool's processes are the children started from now on (public API:
-        # multiprocessing.active_children; the executor keeps its own list private)
-        self._before = set(multiprocessing.active_children())
-        self._pool = ProcessPoolExecutor(max_workers=workers,
-                                         mp_context=multiprocessing.get_context("spawn"),
-                                         initializer=_init_worker,
-                                         initargs=(geometry, key,
-                                                   max(1, (os.cpu_count() or 1) // workers),
-                                                   os.getpid()))
-
-    def map(self, jobs, seed, rays_per_round):
-        from concurrent.futures import as_completed
-
-        with _GATE.deferred():  # submit starts the worker processes
-            futures = {self._pool.submit(_job_in_worker, nodes, rounds, seed, rays_per_round):
-                       (nodes, rounds) for nodes, rounds in jobs}
-        for fut in as_completed(futures):
-            yield futures[fut], fut.result()
-
-    def close(self):
-        self._pool.shutdown(wait=True, cancel_futures=True)
-
-    def abort(self):
-        """Stop now (an error, Ctrl-C, SIGTERM): cancel what is queued, SIGTERM the workers,
-        SIGKILL those still there after :data:`_TERMINATE_GRACE_S`."""
-        import multiprocessing
-
-        procs = [p for p in multiprocessing.active_children() if p not in self._before]
-        self._pool.shutdown(wait=False, cancel_futures=True)
-        for p in procs:
-            with contextlib.suppress(OSError, ValueError):
-                p.terminate()
-        deadline = time.monotonic() + _TERMINATE_GRACE_S
-        for p in procs:
-            p.join(max(0.0, deadline - time.monotonic()))
-            if p.is_alive():
-                with contextlib.suppress(OSError, ValueError):
-                    p.kill()
-                p.join(1.0)
-
-
-class _DaskRunner:
-    workers = 0
-
-    def __init__(self, geometry, key, address):
-        try:
-            from distributed import Client
-        except ImportError:
-            raise ArgumentError("--scheduler needs dask.distributed: pip install "
-                                "'vfactor[dask]'") from None
-        try:
-            self._client = Client(address, timeout=30, set_as_default=False)
-        except (OSError, TimeoutError, ValueError) as exc:
-            raise ArgumentError(f"--scheduler {address}: cannot connect ({exc})") from None
-        self._geometry = self._client.scatter(geometry, broadcast=True)
-        self._key = key
-
-    def map(self, jobs, seed, rays_per_round):
-        from distributed import as_completed
-
-        futures = {}
-        for nodes, rounds in jobs:
-            fut = self._client.submit(_job_on_dask, self._geometry, self._key, nodes, rounds,
-                                      seed, rays_per_round, pure=False)
-            futures[fut] = (nodes, rounds)
-        for fut in as_completed(list(futures), loop=self._client.loop):
-            yield futures[fut], fut.result()
-
-    def close(self):
-        self._client.close()
-
-    def abort(self):
-        self._client.close()
-
-
-# ---------------------------------------------------------------------------------------
-# Checkpoint
-# ---------------------------------------------------------------------------------------
-class _Checkpoint:
-    """Finished (round, node) tallies of one computation, kept beside the output file."""
-
-    def __init__(self, path: Path, *, model_sha256, seed, rays_per_round, n_nodes):
-        self.path = path
-        self.identity = {"model_sha256": str(model_sha256), "seed": int(seed),
-                         "rays_per_round": int(rays_per_round), "n_nodes": int(n_nodes)}
-        self.tallies: dict = {}   # (round, node) -> (n + 2,) int64
-        self._last = time.monotonic()
-
-    def load(self) -> int:
-        """Read an existing checkpoint; return how many (round, node) tallies it held."""
-        if not self.path.exists():
-            return 0
-        try:
-            # opened here: np.load leaves its own handle open when the zip is unreadable
-            with open(self.path, "rb") as fh:
-                z = np.load(fh, allow_pickle=False)
-                if not isinstance(z, np.lib.npyio.NpzFile):  # a bare .npy array
-                    raise ValueError("a single array, not a checkpoint archive")
-                kind = str(z["kind"])
-                ident = {"model_sha256": str(z["model_sha256"]), "seed": int(z["seed"]),
-                         "rays_per_round": int(z["rays_per_round"]),
-                         "n_nodes": int(z["n_nodes"])}
-                keys, rows = z["keys"], z["rows"]
-                z.close()
-        except (OSError, KeyError, ValueError, EOFError, zipfile.BadZipFile) as exc:
-            # a truncated or foreign file: np.load raises BadZipFile or EOFError for a cut
-            # .npz, ValueError for other content
-            reason = " ".join(str(exc).split()) or type(exc).__name__
-            raise VfactorError(f"{self.path}: unreadable checkpoint ({reason}); delete it or "
-                               "run without --resume") from None
-        if kind != _CHECKPOINT_KIND:
-            raise VfactorError(f"{self.path}: not a vfactor checkpoint (kind {kind!r})")
-        for name, value in ident.items():
-            if value != self.identity[name]:
-                raise VfactorError(
-                    f"{self.path}: checkpoint belongs to another computation ({name} "
-                    f"{value!r}, this run {self.identity[name]!r}); delete it or run without "
-                    "--resume")
-        for (r, i), row in zip(keys, rows):
-            self.tallies[(int(r), int(i))] = row.astype(np.int64)
-        return len(self.tallies)
-
-    def add(self, rounds, nodes, tallies, force=False):
-        for r, i, row in zip(rounds, nodes, tallies):
-            self.tallies[(int(r), int(i))] = np.asarray(row, dtype=np.int64)
-        if force or time.monotonic() - self._last >= _CHECKPOINT_EVERY_S:
-            self.save()
-
-    def save(self):
-        keys = np.array(sorted(self.tallies), dtype=np.int64).reshape(-1, 2)
-        rows = (np.stack([self.tallies[tuple(k)] for k in keys]) if len(keys)
-                else np.zeros((0, self.identity["n_nodes"] + 2), np.int64))
-        ident = dict(self.identity, seed=np.uint64(self.identity["seed"]))
-        with atomic.open_atomic(self.path, "the checkpoint") as fh:
-            np.savez(fh, kind=_CHECKPOINT_KIND, keys=keys, rows=rows, **ident)
-        self._last = time.monotonic()
-
-    def remove(self):
-        if self.path.exists():
-            self.path.unlink()
 
 
 # ---------------------------------------------------------------------------------------
@@ -488,18 +224,18 @@ def _view_factors(radiation, model, geometry, scene, *, rays_per_node, seed, wor
     ckpt = None
     resumed = 0
     if resume:
-        ckpt = _Checkpoint(checkpoint, model_sha256=model.sha256, seed=seed,
+        ckpt = Checkpoint(checkpoint, model_sha256=model.sha256, seed=seed,
                            rays_per_round=m, n_nodes=n)
         resumed_pairs = ckpt.load()
         if resumed_pairs:
             reporter.message(f"resuming: {resumed_pairs} (node, round) tallies from {checkpoint}")
     key = f"{model.sha256}:{geometry.n_facets}"
     if scheduler is not None:
-        runner = _DaskRunner(geometry, key, scheduler)
+        runner = DaskRunner(geometry, key, scheduler)
     elif workers > 1:
-        runner = _ProcessRunner(geometry, key, workers)
+        runner = ProcessRunner(geometry, key, workers)
     else:
-        runner = _SerialRunner(geometry, scene)
+        runner = SerialRunner(geometry, scene)
     try:
         with reporter.stage("view factors", total=n * min_rounds * m, unit="rays") as bar:
             # the first rounds, then the rounds radiation.plan_rounds asks for: the same
@@ -562,100 +298,6 @@ def _run_pairs(runner, pair_node, pair_round, sums, ckpt, seed, m, bar) -> int:
 # ---------------------------------------------------------------------------------------
 # Signals
 # ---------------------------------------------------------------------------------------
-class RunTerminated(KeyboardInterrupt):
-    """SIGTERM or SIGHUP arrived during :func:`run`.
-
-    Raised in the main thread by the handler :func:`_signals_raise` installs, so that the
-    same clean-up as for Ctrl-C runs: workers terminated, temporaries removed, the
-    checkpoint kept (``--resume``), the lock file removed. A KeyboardInterrupt, so the
-    command line reports it as an interruption.
-
-    Attributes
-    ----------
-    signum : int — the signal received
-    """
-
-    def __init__(self, signum: int):
-        self.signum = int(signum)
-        super().__init__(f"terminated by {signal.Signals(signum).name}")
-
-
-class _SignalGate:
-    """What the signal handler of :func:`_signals_raise` does, and where it must wait.
-
-    A signal that arrives inside :meth:`deferred` (a worker process being started: one
-    interrupted between its start and its registration in the pool would be left running,
-    unknown to the pool) is held and raised when the block ends. After the first signal
-    the handler does nothing more, so the clean-up it starts can finish.
-    """
-
-    def __init__(self):
-        self.reset()
-
-    def reset(self):
-        self.depth, self.pending, self.fired = 0, None, False
-
-    def handler(self, signum, frame):
-        if self.fired:
-            return
-        if self.depth:
-            self.pending = signum
-            return
-        self._raise(signum)
-
-    def _raise(self, signum):
-        self.fired = True
-        if signum == signal.SIGINT:
-            raise KeyboardInterrupt
-        raise RunTerminated(signum)
-
-    @contextlib.contextmanager
-    def deferred(self):
-        self.depth += 1
-        try:
-            yield
-        finally:
-            self.depth -= 1
-            if not self.depth and self.pending is not None and not self.fired:
-                signum, self.pending = self.pending, None
-                self._raise(signum)
-
-
-#: The one gate of this process (signal handlers are per process, like this state).
-_GATE = _SignalGate()
-
-
-@contextlib.contextmanager
-def _signals_raise():
-    """Turn SIGTERM and SIGHUP into :class:`RunTerminated`, and SIGINT into
-    KeyboardInterrupt, at moments where the clean-up can run, while the block runs.
-
-    By default SIGTERM and SIGHUP end a Python process at once, without ``finally``
-    blocks, and a process pool's workers would be left running; SIGINT raises
-    KeyboardInterrupt anywhere, also while a worker is being started. Only in the main
-    thread (signal handlers can only be set there; Python library reference, signal
-    module), and only where the signal still has its default action (a SIG_IGN set by
-    ``nohup`` is kept). See :class:`_SignalGate`; the previous handlers are restored at
-    the end.
-    """
-    if threading.current_thread() is not threading.main_thread():
-        yield
-        return
-    _GATE.reset()
-    previous = {}
-    for name, default in (("SIGTERM", signal.SIG_DFL), ("SIGHUP", signal.SIG_DFL),
-                          ("SIGINT", signal.default_int_handler)):
-        sig = getattr(signal, name, None)
-        if sig is not None and signal.getsignal(sig) == default:
-            previous[sig] = signal.signal(sig, _GATE.handler)
-    try:
-        yield
-    finally:
-        for sig, old in previous.items():
-            signal.signal(sig, old)
-        _GATE.reset()
-
-
 # ---------------------------------------------------------------------------------------
 # The pipeline
 # ---------------------------------------------------------------------------------------
@@ -708,7 +350,7 @@ def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=N
     out = _check_arguments(output_path, rays, seed, workers, scheduler)
     atomic.refuse_inputs(atomic.lock_path(out), [model_path],
                          hint="give the results another file name (e.g. run.h5)")
-    with _signals_raise(), atomic.OutputLock(out):
+    with signals_raise(), atomic.OutputLock(out):
         return _run(model_path, out, rays=rays, seed=seed, workers=workers,
                     scheduler=scheduler, resume=resume, facet_factors=facet_factors,
                     reporter=reporter)
