@@ -85,13 +85,19 @@ def test_multi_primitive_glb_names_are_stable(tmp_path):
     assert sorted(areas) == pytest.approx(sorted(exact), rel=1e-6)
 
 
-def test_two_runs_of_a_multi_primitive_glb_give_the_same_nodes(tmp_path):
+def _bus_model(tmp_path, extra=""):
+    """A model of one part, the multi-primitive GLB of BOXES, one node per group."""
     _glb_with_primitives(tmp_path / "bus.glb", BOXES)
     model_file = tmp_path / "m.toml"
     model_file.write_text(
-        '[coatings.w]\nsolar_absorptivity = 0.2\nir_emissivity = 0.8\n'
+        '[coatings.w]\nsolar_absorptivity = 0.2\nir_emissivity = 0.8\n' + extra +
         '[[parts]]\nname = "sat"\nshape = "mesh"\nfile = "bus.glb"\n'
         'front = { coating = "w", nodes = "per-group" }\n')
+    return model_file
+
+
+def test_two_runs_of_a_multi_primitive_glb_give_the_same_nodes(tmp_path):
+    model_file = _bus_model(tmp_path)
     names = [build_geometry(load_model(model_file)).nodes.names for _ in range(2)]
     assert names[0] == names[1]
     assert names[0] == ("sat.bus", "sat.bus.1", "sat.bus.2")
@@ -320,13 +326,7 @@ def test_two_runs_of_a_multi_primitive_glb_give_identical_results(tmp_path):
 
     from vfactor.pipeline import run
 
-    _glb_with_primitives(tmp_path / "bus.glb", BOXES)
-    model_file = tmp_path / "m.toml"
-    model_file.write_text(
-        '[coatings.w]\nsolar_absorptivity = 0.2\nir_emissivity = 0.8\n'
-        '[radiation]\nrays_per_node = 2000\n'
-        '[[parts]]\nname = "sat"\nshape = "mesh"\nfile = "bus.glb"\n'
-        'front = { coating = "w", nodes = "per-group" }\n')
+    model_file = _bus_model(tmp_path, '[radiation]\nrays_per_node = 2000\n')
     outs = [tmp_path / f"r{k}.h5" for k in range(2)]
     for out in outs:
         run(model_file, out)
