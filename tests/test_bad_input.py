@@ -19,7 +19,7 @@ import tomli_w
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from vfactor import checks, cli
+from vfactor import cli, resources
 
 BASE = {
     "model": {"name": "fuzz box"},
@@ -266,10 +266,10 @@ def test_resource_estimate_counts_dense_matrices_and_per_step_arrays(tmp_path):
 
     model = load_model(_per_facet_demo(tmp_path, 0.1))
     geometry = build_geometry(model)
-    est = checks.estimate_resources(model, geometry, cores=2)
+    est = resources.estimate_resources(model, geometry, cores=2)
     n, f = geometry.n_nodes, geometry.n_facets
-    # our own formulas (checks.estimate_resources Notes), recomputed here by hand
-    assert est.parts["dense node matrices"] == checks.DENSE_NODE_MATRICES * 8.0 * n * (n + 2)
+    # our own formulas (resources.estimate_resources Notes), recomputed here by hand
+    assert est.parts["dense node matrices"] == resources.DENSE_NODE_MATRICES * 8.0 * n * (n + 2)
     assert est.parts["per-step results"] == 8.0 * 72 * (3 * f + 9 * n + 35)
     assert est.steps == 72 and est.cores == 2
     # the view-factor rays: n nodes x 100000, four times for the traced Gebhart factors
@@ -277,7 +277,7 @@ def test_resource_estimate_counts_dense_matrices_and_per_step_arrays(tmp_path):
     sides = int((geometry.front_node >= 0).sum() + (geometry.back_node >= 0).sum())
     assert est.rays == 4 * n * 100_000 + sides * 256
     # more rays per node: the time grows, the memory does not
-    more = checks.estimate_resources(model, geometry, rays=10 ** 6, cores=2)
+    more = resources.estimate_resources(model, geometry, rays=10 ** 6, cores=2)
     assert more.seconds > est.seconds and more.memory_bytes == est.memory_bytes
 
 
@@ -288,7 +288,7 @@ def test_resource_estimate_counts_dense_matrices_and_per_step_arrays(tmp_path):
 ])
 def test_check_refuses_what_exceeds_the_machine(capsys, tmp_path, monkeypatch, changes,
                                                 largest):
-    monkeypatch.setattr(checks, "machine_memory_bytes", lambda: 2.0 ** 30)   # 1 GiB
+    monkeypatch.setattr(resources, "machine_memory_bytes", lambda: 2.0 ** 30)   # 1 GiB
     path = _model(tmp_path, **changes)
     code, out, err = _cli(capsys, "check", path)
     assert code == 2
@@ -308,7 +308,7 @@ def test_per_facet_nodes_on_the_demo_are_refused(capsys, tmp_path):
 
 
 def test_many_steps_warn_of_the_time(capsys, tmp_path):
-    # 2 000 000 steps of a 6-facet box: at 6 ms a step (checks.SECONDS_PER_STEP, measured)
+    # 2 000 000 steps of a 6-facet box: at 6 ms a step (resources.SECONDS_PER_STEP, measured)
     # over 3 hours, far beyond the hour above which check warns
     path = _model(tmp_path, orbit={"steps_per_orbit": 2_000_000})
     code, out, err = _cli(capsys, "check", path)
@@ -316,7 +316,7 @@ def test_many_steps_warn_of_the_time(capsys, tmp_path):
     (line,) = [x for x in out.splitlines() if x.startswith(f"vfactor: warning: {path}: "
                                                           f"resources: a run would take")]
     assert "2000000 heating steps" in line
-    est_h = 2_000_000 * checks.SECONDS_PER_STEP / 3600.0
+    est_h = 2_000_000 * resources.SECONDS_PER_STEP / 3600.0
     assert est_h > 3.0 and " h on " in line
 
 
@@ -326,12 +326,12 @@ def test_memory_warning_above_half_the_machine(capsys, tmp_path, monkeypatch):
     from vfactor.model import load_model
 
     model = load_model(path)
-    need = checks.estimate_resources(model, build_geometry(model)).memory_bytes
-    monkeypatch.setattr(checks, "machine_memory_bytes", lambda: 1.5 * need)
+    need = resources.estimate_resources(model, build_geometry(model)).memory_bytes
+    monkeypatch.setattr(resources, "machine_memory_bytes", lambda: 1.5 * need)
     code, out, err = _cli(capsys, "check", path)
     assert code == 0 and err == ""
     assert "more than 50 % of this machine's" in out
-    monkeypatch.setattr(checks, "machine_memory_bytes", lambda: 3.0 * need)
+    monkeypatch.setattr(resources, "machine_memory_bytes", lambda: 3.0 * need)
     code, out, _ = _cli(capsys, "check", path)
     assert code == 0 and "of this machine's" not in out
 
@@ -342,7 +342,7 @@ def test_run_refuses_even_when_the_check_passed_before(capsys, tmp_path, monkeyp
     path = _model(tmp_path, radiation={"rays_per_node": 800})
     code, _, _ = _cli(capsys, "check", path)
     assert code == 0
-    monkeypatch.setattr(checks, "machine_memory_bytes", lambda: 1e8)   # 100 MB
+    monkeypatch.setattr(resources, "machine_memory_bytes", lambda: 1e8)   # 100 MB
     target = tmp_path / "o.h5"
     code, out, err = _cli(capsys, "run", path, "-o", target)
     assert code == 2 and out == ""
@@ -351,7 +351,7 @@ def test_run_refuses_even_when_the_check_passed_before(capsys, tmp_path, monkeyp
 
 
 def test_machine_memory_is_positive_and_below_a_petabyte():
-    memory = checks.machine_memory_bytes()
+    memory = resources.machine_memory_bytes()
     assert memory is not None and 1e8 < memory < 1e15
 
 

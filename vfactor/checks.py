@@ -14,18 +14,16 @@ Warnings besides those: a part with no active side, too few rays per node, an ap
 beyond Earth orbits in use (metres given as km?), values outside their plausible range
 (:meth:`vfactor.tomlread.Reader.quantity`), a spin the time step aliases.
 
-Resources: :func:`estimate_resources` gives the peak memory and a rough time of a run
-from the model (facets, nodes, rays, steps); ``check`` prints it as a ``note:`` line, warns
-above :data:`MEMORY_WARNING_SHARE` of the machine's memory or beyond
-:data:`TIME_WARNING_S`, and refuses a model whose estimate exceeds the machine's memory.
-``run`` makes the same refusal (:func:`require_clean`) before anything large is allocated,
-also when the other checks are skipped because they passed before.
+Resources (:mod:`vfactor.resources`): the estimated peak memory and time of a run;
+``check`` prints it as a ``note:`` line, warns when it is large and refuses a model whose
+estimate exceeds the machine's memory. ``run`` makes the same refusal
+(:func:`require_clean`) before anything large is allocated, also when the other checks are
+skipped because they passed before.
 """
 
 from __future__ import annotations
 
 import math
-import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -40,6 +38,7 @@ from vfactor.geomchecks import (
 )
 from vfactor.geometry import Geometry, build_geometry
 from vfactor.model import Model, load_model
+from vfactor.resources import resource_problems
 from vfactor.tomlread import label, name_problem
 
 __all__ = [
@@ -47,12 +46,9 @@ __all__ = [
     "RELATIVE_TOLERANCE",
     "AreaDifference",
     "CheckReport",
-    "ResourceEstimate",
     "check_geometry",
     "check_model",
-    "estimate_resources",
     "format_check_report",
-    "machine_memory_bytes",
     "require_clean",
 ]
 
@@ -351,267 +347,6 @@ def _check_altitude(orbit, table: dict, file: str, report: CheckReport) -> None:
         "warning", file, f"[orbit] {key}",
         f"apogee altitude {apogee_km:,.0f} km{f' (from {key}{shown})' if shown else ''} "
         f"is beyond {ALTITUDE_WARNING_KM:,.0f} km; were metres given where km are asked?"))
-
-
-# --------------------------------------------------------------------------------------
-# Resources
-# --------------------------------------------------------------------------------------
-RESOURCE_WHERE = "resources"
-"""Location of the resource findings (kept out of the records of passed checks: they
-depend on the machine and are made afresh before every run)."""
-
-MEMORY_WARNING_SHARE = 0.5
-"""Share of the machine's memory above which the estimate draws a warning (our own
-threshold: the rest is the system's and other programs')."""
-
-TIME_WARNING_S = 3600.0
-"""Estimated run time [s] above which ``check`` warns (our own threshold)."""
-
-DENSE_NODE_MATRICES = 20
-"""Dense (n, n + 2) float64 node matrices a run holds at its peak, counted from the code
-(our own count): tally sums and squares, their mean and error, raw and smoothed view
-factors and their error, the smoothing's variances and work arrays, Gebhart factors,
-exchange areas, conductances and their error, the matrix of the Gebhart solve and its
-factorisation, and the heating stage's solar and infrared Gebhart factors."""
-
-BYTES_PER_FACET = 600.0
-"""Geometry, ray-tracing scene (BVH) and per-facet tables [bytes per facet], rough (our
-own estimate from the arrays of Geometry and Scene)."""
-
-BASELINE_BYTES = 4e8
-"""The interpreter, numpy, numba and the compiled kernels [bytes] (measured resident
-size of a small run, about 0.35 GB)."""
-
-RAYS_PER_S_PER_CORE = 1.0e6
-"""Conservative ray-tracing throughput per core [rays s-1]: about half of what the demo
-model gives (3.8 M rays/s for the view factors on the shared 2-core machine)."""
-
-HEATING_TESTS_PER_S = 2.0e7
-"""Conservative rate of the heating stage's per-step work [ray tests s-1] (sun
-occlusion rays and planet tests of the cached escaping rays): about half of the demo's
-(9052 facet sides x 272 tests in 53 ms per step on the shared 2-core machine)."""
-
-SECONDS_PER_STEP = 6e-3
-"""Fixed cost of one heating step [s], whatever the model's size (measured 6.3 ms per
-step on a 14-facet model, shared 2-core machine)."""
-
-
-@dataclass(frozen=True)
-class ResourceEstimate:
-    """Rough peak memory and time of ``vfactor run`` on a model.
-
-    Attributes
-    ----------
-    memory_bytes : float — estimated peak resident memory [bytes]
-    parts : dict of str -> float — the main terms of ``memory_bytes`` [bytes]
-    seconds : float — estimated run time on this machine [s]
-    rays : float — rays traced in all (view factors, Gebhart tracing, heating) [1]
-    steps : int — time steps of the orbit (0 without one)
-    cores : int — cores the estimate assumes
-    heating_seconds : float — the part of ``seconds`` spent in the heating steps [s]
-    """
-
-    memory_bytes: float
-    parts: dict
-    seconds: float
-    rays: float
-    steps: int
-    cores: int
-    heating_seconds: float = 0.0
-
-    @property
-    def largest(self) -> str:
-        """The term that dominates the memory estimate."""
-        return max(self.parts, key=self.parts.get)
-
-
-def estimate_resources(model: Model, geometry: Geometry, rays: int | None = None,
-                       cores: int | None = None) -> ResourceEstimate:
-    """Estimate the peak memory and the time of a run before anything is allocated.
-
-    Parameters
-    ----------
-    model : Model — ``[radiation]`` settings and the raw ``[orbit]``/``[attitude]`` tables
-    geometry : Geometry — facets, sides and nodes after tessellation
-    rays : int, optional — rays per node (default ``[radiation] rays_per_node``)
-    cores : int, optional — cores to assume (default ``os.cpu_count()``)
-
-    Returns
-    -------
-    ResourceEstimate
-
-    Notes
-    -----
-    Memory (bytes; n nodes, f facets, s active facet sides, t steps, P planet and S sun
-    rays per facet side, rounded up to the 8 replicates of the heating stage):
-    ``DENSE_NODE_MATRICES * 8 n (n + 2)`` for the node matrices; ``8 t (3 f + 9 n + 35)``
-    for the per-step results (absorbed flux per facet of three sources, per node absorbed,
-    incident and error of three sources, the trajectory); ``52 s P`` for the heating
-    stage's ray cache (first hit, and origin and direction of every escaping ray); ``s S``
-    for one step's sun-sample mask; ``24`` per stored facet factor when asked; plus
-    :data:`BYTES_PER_FACET` per facet and :data:`BASELINE_BYTES`. An upper estimate: not
-    every term is alive at once.
-
-    Time: ``n rays`` view-factor rays (three times that again when infrared specular
-    shares make the Gebhart factors by reflection tracing) and ``s P`` escaping-direction
-    rays at :data:`RAYS_PER_S_PER_CORE` per core, and per step :data:`SECONDS_PER_STEP`
-    plus ``s (S + P)`` tests at :data:`HEATING_TESTS_PER_S`. Rough, by design.
-    """
-    g = geometry
-    settings = model.radiation
-    n = g.n_nodes
-    f = g.n_facets
-    sides = int(np.count_nonzero(np.asarray(g.front_node) >= 0)
-                + np.count_nonzero(np.asarray(g.back_node) >= 0))
-    rays_per_node = float(rays if rays is not None else settings.rays_per_node)
-    cores = int(cores or os.cpu_count() or 1)
-    steps = _planned_steps(model)
-    replicates = 8
-    planet = float(replicates * -(-int(settings.planet_rays_per_facet) // replicates))
-    sun = float(replicates * -(-int(settings.sun_rays_per_facet) // replicates))
-
-    parts = {
-        "dense node matrices": DENSE_NODE_MATRICES * 8.0 * n * (n + 2.0),
-        "interpreter, libraries and geometry": BYTES_PER_FACET * f + BASELINE_BYTES,
-    }
-    vf_rays = n * rays_per_node
-    if np.any(np.asarray(g.nodes.ir_specular) > 0.0):
-        vf_rays *= 4.0   # view factors, then Gebhart factors by reflection tracing
-    if settings.facet_factors:
-        parts["facet factors"] = 24.0 * min(2.0 * f * (n + 2.0), n * rays_per_node)
-    heating_s = 0.0
-    heat_rays = 0.0
-    if steps:
-        parts["per-step results"] = 8.0 * steps * (3.0 * f + 9.0 * n + 35.0)
-        parts["heating ray cache"] = 52.0 * sides * planet
-        parts["sun samples of a step"] = sides * sun
-        heat_rays = sides * planet
-        heating_s = steps * (SECONDS_PER_STEP + sides * (sun + planet) / HEATING_TESTS_PER_S)
-    seconds = (vf_rays + heat_rays) / (RAYS_PER_S_PER_CORE * cores) + heating_s
-    return ResourceEstimate(memory_bytes=float(sum(parts.values())), parts=parts,
-                            seconds=float(seconds), rays=float(vf_rays + heat_rays),
-                            steps=steps, cores=cores, heating_seconds=float(heating_s))
-
-
-def _planned_steps(model: Model) -> int:
-    """Steps of the model's orbit (0 without one, or when the ``[orbit]`` table cannot be
-    read: its own error says why)."""
-    if model.orbit_table is None:
-        return 0
-    from vfactor.orbit import orbit_from_table
-
-    try:
-        return int(orbit_from_table(model.orbit_table, file=model.path).n_steps)
-    except ModelError:
-        return 0
-
-
-def machine_memory_bytes() -> float | None:
-    """Memory this process may use [bytes]: the machine's physical memory
-    (``os.sysconf`` page size times physical pages), or the memory limit of its control
-    group (a container) when that is lower; None when neither can be read."""
-    total = None
-    try:
-        total = float(os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES"))
-    except (ValueError, OSError, AttributeError):
-        pass
-    for path in ("/sys/fs/cgroup/memory.max", "/sys/fs/cgroup/memory/memory.limit_in_bytes"):
-        try:
-            text = Path(path).read_text().strip()
-        except OSError:
-            continue
-        if text.isdigit() and (total is None or float(text) < total):
-            total = float(text)
-    return total if total and total > 0 else None
-
-
-def _size(nbytes: float) -> str:
-    for unit, factor in (("TiB", 2.0 ** 40), ("GiB", 2.0 ** 30), ("MiB", 2.0 ** 20)):
-        if nbytes >= factor:
-            return f"{nbytes / factor:.3g} {unit}"
-    return f"{nbytes / 2.0 ** 20:.2g} MiB"
-
-
-def _duration(seconds: float) -> str:
-    if seconds < 90:
-        return f"{seconds:.2g} s"
-    if seconds < 5400:
-        return f"{seconds / 60:.2g} min"
-    if seconds < 2 * 86400:
-        return f"{seconds / 3600:.3g} h"
-    return f"{seconds / 86400:.3g} days"
-
-
-def resource_problems(model: Model, geometry: Geometry, rays: int | None = None) -> list:
-    """The resource note, and a warning or error when the estimate is too large.
-
-    Returns
-    -------
-    list of Problem (``where`` = :data:`RESOURCE_WHERE`): a note with the estimate; an
-    error when the memory estimate exceeds the machine's memory; a warning above
-    :data:`MEMORY_WARNING_SHARE` of it or beyond :data:`TIME_WARNING_S`. Empty for a
-    model without nodes (nothing would run).
-    """
-    if geometry is None or geometry.n_nodes == 0:
-        return []
-    est = estimate_resources(model, geometry, rays=rays)
-    file = str(model.path)
-    memory = machine_memory_bytes()
-    steps = f", {est.steps} steps" if est.steps else ""
-    text = (f"estimated peak memory {_size(est.memory_bytes)} (largest: {est.largest}, "
-            f"{_size(est.parts[est.largest])}), time about {_duration(est.seconds)} on "
-            f"{est.cores} core(s) ({est.rays:.3g} rays{steps})")
-    out = [Problem("note", file, RESOURCE_WHERE, text)]
-    fix = _resource_fix(est, model, geometry)
-    if memory is not None and est.memory_bytes > memory:
-        out.append(Problem("error", file, RESOURCE_WHERE,
-                           f"a run would need about {_size(est.memory_bytes)} of memory "
-                           f"({est.largest}: {_size(est.parts[est.largest])}), more than "
-                           f"this machine's {_size(memory)}; {fix}"))
-    elif memory is not None and est.memory_bytes > MEMORY_WARNING_SHARE * memory:
-        out.append(Problem("warning", file, RESOURCE_WHERE,
-                           f"a run would need about {_size(est.memory_bytes)} of memory, "
-                           f"more than {100 * MEMORY_WARNING_SHARE:.0f} % of this machine's "
-                           f"{_size(memory)} ({est.largest}: "
-                           f"{_size(est.parts[est.largest])}); {fix}"))
-    if est.seconds > TIME_WARNING_S:
-        out.append(Problem("warning", file, RESOURCE_WHERE,
-                           f"a run would take about {_duration(est.seconds)} on "
-                           f"{est.cores} core(s) ({est.rays:.3g} rays{steps}); "
-                           f"{_time_fix(est, model)}"))
-    return out
-
-
-def _resource_fix(est: ResourceEstimate, model: Model, geometry: Geometry) -> str:
-    largest = est.largest
-    if largest == "dense node matrices":
-        return (f"{geometry.n_nodes} nodes make {geometry.n_nodes} x {geometry.n_nodes} "
-                f"matrices; use fewer nodes (nodes = \"single\" or \"per-face\" instead "
-                f"of \"per-facet\", or a coarser max_edge)")
-    if largest == "per-step results":
-        return (f"{est.steps} steps x {geometry.n_facets} facets of per-facet results; use "
-                f"fewer steps (steps_per_orbit, step_s, orbits) or fewer facets")
-    if largest == "heating ray cache":
-        return (f"planet_rays_per_facet = {model.radiation.planet_rays_per_facet} is too "
-                f"many for {geometry.n_facets} facets; the default is 256")
-    if largest == "sun samples of a step":
-        return (f"sun_rays_per_facet = {model.radiation.sun_rays_per_facet} is too many "
-                f"for {geometry.n_facets} facets; the default is 16")
-    if largest == "facet factors":
-        return "leave facet_factors off, or use fewer facets"
-    return f"use fewer facets ({geometry.n_facets} now; a larger max_edge or simplify)"
-
-
-def _time_fix(est: ResourceEstimate, model: Model) -> str:
-    settings = model.radiation
-    if est.steps and est.heating_seconds > 0.5 * est.seconds:
-        return (f"most of it in the {est.steps} heating steps; use fewer steps "
-                f"(steps_per_orbit, step_s, orbits), or fewer sun_rays_per_facet "
-                f"({settings.sun_rays_per_facet}) and planet_rays_per_facet "
-                f"({settings.planet_rays_per_facet})")
-    return (f"use fewer rays (rays_per_node = {settings.rays_per_node}, "
-            f"sun_rays_per_facet = {settings.sun_rays_per_facet}, planet_rays_per_facet = "
-            f"{settings.planet_rays_per_facet}) or --workers / --scheduler")
 
 
 def _area(a: float) -> str:
