@@ -13,8 +13,8 @@ JSON file named by a key over everything its outcome depends on:
 The record keeps the warnings found, which ``run`` shows and stores as before. The
 folder is ``VFACTOR_CACHE_DIR`` when set, else ``$XDG_CACHE_HOME/vfactor`` or
 ``~/.cache/vfactor``; a folder that cannot be written only means no record is kept.
-Records are written to a temporary file and renamed into place, so a killed process
-never leaves a half-written one; an unreadable record is ignored and rewritten.
+Records are written through :mod:`vfactor.atomic` (temporary file, rename), so a killed
+process never leaves a half-written one; an unreadable record is ignored and rewritten.
 """
 
 from __future__ import annotations
@@ -22,12 +22,12 @@ from __future__ import annotations
 import hashlib
 import json
 import os
-import tempfile
 from pathlib import Path
 
 import numpy as np
 
-from vfactor.errors import Problem
+from vfactor.atomic import write_bytes
+from vfactor.errors import OutputError, Problem
 
 __all__ = ["cache_dir", "check_key", "load_passed", "store_passed"]
 
@@ -89,14 +89,8 @@ def store_passed(key: str, problems) -> bool:
                             "message": p.message} for p in problems]}
     try:
         folder.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(dir=folder, prefix=".", suffix=".tmp")
-        try:
-            with os.fdopen(fd, "w", encoding="utf-8") as f:
-                json.dump(record, f)
-            os.replace(tmp, folder / f"{key}.json")
-        except BaseException:
-            Path(tmp).unlink(missing_ok=True)
-            raise
-    except OSError:
+        write_bytes(folder / f"{key}.json", json.dumps(record).encode("utf-8"),
+                    "a record of a passed check")
+    except (OSError, OutputError):
         return False
     return True
