@@ -69,3 +69,18 @@ def test_open_sheet_and_moebius_strip():
         faces += [[a0, b0, a1], [a1, b0, b1]]
     r = edge_report(np.array(faces))
     assert r.non_orientable and not r.consistent
+
+
+def test_closed_bodies_per_body():
+    # two closed boxes touching along an edge stay closed each; a box without its top does not
+    from vfactor.topology import closed_bodies
+
+    a = trimesh.creation.box()
+    b = trimesh.creation.box()
+    b.apply_translation((1.0, 1.0, 0.0))
+    both = _merged(trimesh.util.concatenate([a, b]))
+    body = np.repeat([0, 1], [len(a.faces), len(b.faces)])
+    assert closed_bodies(both.faces, body).tolist() == [True, True]
+    top_open = np.repeat([0, 1], [len(a.faces) - 2, len(b.faces)])
+    faces = np.vstack([both.faces[:10], both.faces[12:]])   # two facets of box 0 removed
+    assert closed_bodies(faces, top_open).tolist() == [False, True]

@@ -79,7 +79,6 @@ __all__ = [
     "Reference",
     "referenced_files",
     "mesh_is_watertight",
-    "mesh_winding_consistent",
     "read_mesh",
     "stated_file_unit",
 ]
@@ -585,16 +584,6 @@ def mesh_is_watertight(vertices: np.ndarray, triangles: np.ndarray) -> bool:
     m = trimesh.Trimesh(vertices, triangles, process=False)
     m.merge_vertices()
     return bool(m.is_watertight)
-
-
-def mesh_winding_consistent(vertices: np.ndarray, triangles: np.ndarray) -> bool:
-    """Whether every shared edge is traversed in opposite directions by its two facets
-    (consistent front side), once equal vertices are merged (trimesh's test)."""
-    import trimesh
-
-    m = trimesh.Trimesh(vertices, triangles, process=False)
-    m.merge_vertices()
-    return bool(m.is_winding_consistent)
 
 
 def _unique_labels(labels) -> list:

@@ -52,7 +52,7 @@ def repair_piece(vertices: np.ndarray, faces: np.ndarray):
     import trimesh
 
     from vfactor.shapes import merge_exact
-    from vfactor.topology import orientation_classes
+    from vfactor.topology import closed_bodies, orientation_classes
 
     # bit-identical copies (an STL file repeats every vertex per facet) are not a defect
     vertices, faces = merge_exact(np.asarray(vertices, float), np.asarray(faces, np.int64))
@@ -81,10 +81,10 @@ def repair_piece(vertices: np.ndarray, faces: np.ndarray):
     cross = np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0])
     area = 0.5 * np.linalg.norm(cross, axis=1)
     volume = np.einsum("ij,ij->i", tri[:, 0], np.cross(tri[:, 1], tri[:, 2])) / 6.0
-    edges = np.sort(faces_now[:, [0, 1, 1, 2, 2, 0]].reshape(-1, 2), axis=1)
+    closed_of = closed_bodies(faces_now, body)
     for b in np.unique(body):
         sel = body == b
-        closed = _is_closed(edges.reshape(-1, 3, 2)[sel].reshape(-1, 2))
+        closed = bool(closed_of[b])
         if closed:
             turn = volume[sel].sum() < 0.0
         else:
@@ -96,12 +96,6 @@ def repair_piece(vertices: np.ndarray, faces: np.ndarray):
                 counts["bodies_turned_outward"] += 1
     counts["flipped_facets"] = int(flipped.sum())
     return v, faces_now, counts
-
-
-def _is_closed(edges: np.ndarray) -> bool:
-    """Every (sorted) edge used exactly twice."""
-    _, n = np.unique(edges, axis=0, return_counts=True)
-    return bool(len(n)) and bool((n == 2).all())
 
 
 def simplify_piece(vertices: np.ndarray, faces: np.ndarray, target: int):

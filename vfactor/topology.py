@@ -22,7 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["EdgeReport", "edge_report", "orientation_classes"]
+__all__ = ["EdgeReport", "edge_report", "orientation_classes", "closed_bodies"]
 
 
 @dataclass(frozen=True)
@@ -115,6 +115,25 @@ def orientation_classes(triangles: np.ndarray):
     reference = up[first[body]]
     turn = (up != reference) & ~bad_body[body]
     return body, turn, ~bad_body[body]
+
+
+def closed_bodies(triangles: np.ndarray, body: np.ndarray) -> np.ndarray:
+    """Whether each body (labels 0..b-1 per facet) is closed: every edge of its facets is
+    used by exactly two facets of that body (bodies touching along an edge stay closed).
+    Returns (b,) bool."""
+    t = np.asarray(triangles, np.int64)
+    body = np.asarray(body, np.int64)
+    n_bodies = int(body.max()) + 1 if body.size else 0
+    if not t.size:
+        return np.zeros(n_bodies, bool)
+    start = t.reshape(-1)
+    end = t[:, [1, 2, 0]].reshape(-1)
+    owner = np.repeat(body, 3)
+    keys = np.stack([owner, np.minimum(start, end), np.maximum(start, end)], axis=1)
+    uniq, count = np.unique(keys, axis=0, return_counts=True)
+    open_body = np.zeros(n_bodies, bool)
+    open_body[uniq[count != 2, 0]] = True
+    return ~open_body
 
 
 def edge_report(triangles: np.ndarray) -> EdgeReport:
