@@ -4,9 +4,12 @@ from __future__ import annotations
 
 import h5py
 import numpy as np
+import scipy.sparse as sp
 import pytest
 
 from vfactor import h5io
+from vfactor.h5read import read_coupling_matrix
+from vfactor.sparsetools import dense
 from vfactor.atomic import OutputError
 from vfactor.constants import STEFAN_BOLTZMANN
 from vfactor.errors import ResultsFileError
@@ -41,7 +44,8 @@ def test_contract_layout_units_and_descriptions(written):
             assert name in h, name
             assert h[name].attrs["units"] == units, name
         every = []
-        h.visititems(lambda n, o: every.append((n, o)) if isinstance(o, h5py.Dataset) else None)
+        h.visititems(lambda n, o: every.append((n, o)) if isinstance(o, h5py.Dataset) and
+                     not n.rsplit("/", 1)[-1] in ("indices", "indptr", "data") else None)
         assert len(every) > len(CONTRACT)
         for name, ds in every:
             assert "units" in ds.attrs, name
@@ -60,8 +64,12 @@ def test_contract_layout_units_and_descriptions(written):
         assert h["heating/facet/solar"].compression == "gzip"
         assert h["heating/facet/solar"].chunks is not None
         # conductance = sigma * exchange area (Stefan-Boltzmann constant, CODATA 2018)
-        np.testing.assert_array_equal(h["exchange/conductance"][()],
-                                      STEFAN_BOLTZMANN * kw["exchange"].area)
+        np.testing.assert_array_equal(read_coupling_matrix(h["exchange/conductance"]).toarray(),
+                                      STEFAN_BOLTZMANN * dense(kw["exchange"].area))
+        # couplings are CSR groups with their own units and description (schema 2)
+        assert h["exchange/gebhart"].attrs["units"] == "1"
+        assert h["exchange/area"].attrs["description"]
+        assert tuple(h["exchange/area"].attrs["shape"]) == (2, 2)
         # orbit stored at the edge in km and degrees
         np.testing.assert_allclose(h["orbit/position"][()] * 1e3, kw["trajectory"].position,
                                    rtol=0, atol=1e-6)
@@ -80,10 +88,14 @@ def test_round_trip(written):
     assert g.coatings == g0.coatings
     vf, vf0 = r.view_factors, kw["view_factors"]
     for name in ("matrix", "space", "inert", "stderr", "raw_matrix", "rays"):
-        np.testing.assert_array_equal(getattr(vf, name), getattr(vf0, name))
+        np.testing.assert_array_equal(dense(getattr(vf, name)), dense(getattr(vf0, name)))
     assert vf.target_error is None and vf.method == vf0.method
     assert (vf.facet_matrix != vf0.facet_matrix).nnz == 0
-    np.testing.assert_array_equal(r.exchange.area, kw["exchange"].area)
+    np.testing.assert_array_equal(dense(r.exchange.area), dense(kw["exchange"].area))
+    assert isinstance(r.exchange.area, sp.csr_array)
+    rd = h5io.read_results(path, dense_couplings=True)
+    assert isinstance(rd.exchange.area, np.ndarray)
+    np.testing.assert_array_equal(rd.view_factors.matrix, dense(vf0.matrix))
     tr, tr0 = r.trajectory, kw["trajectory"]
     np.testing.assert_array_equal(tr.time, tr0.time)
     np.testing.assert_allclose(tr.position, tr0.position, rtol=1e-15)
@@ -210,9 +222,10 @@ DAMAGE = {
     "text in nodes/area": (lambda h: _replace(h, "nodes/area", np.array(["a", "b"], object),
                                               dtype=h5py.string_dtype()),
                            r"/nodes/area: holds text"),
-    "reshaped matrix": (lambda h: _replace(h, "view_factors/matrix",
-                                           h["view_factors/matrix"][()].reshape(1, 4)),
-                        r"/view_factors/matrix: has shape \(1, 4\), expected \(2, 2\)"),
+    "reshaped matrix": (lambda h: h["view_factors/matrix"].attrs.__setitem__("shape", [1, 4]),
+                        r"/view_factors/matrix: attribute shape \(1, 4\), expected \(2, 2\)"),
+    "column index out of range": (lambda h: h["view_factors/matrix/indices"].__setitem__(0, 7),
+                                  r"/view_factors/matrix: row offsets or column indices out"),
     "triangle index out of range": (lambda h: h["facets/triangles"].__setitem__((0, 0), 99),
                                     r"/facets/triangles: index 99 out of range 0\.\.7"),
     "node index out of range": (lambda h: h["facets/back_node"].__setitem__(1, 2),
@@ -229,9 +242,12 @@ DAMAGE = {
     "facet table missing": (lambda h: h.__delitem__("heating/facet"), r"/heating/facet: missing"),
     "orbit period as text": (lambda h: h["orbit"].attrs.__setitem__("period_s", "x"),
                              r"/orbit attribute period_s: 'x' is not a number"),
-    "a group instead of a dataset": (lambda h: (h.__delitem__("exchange/area"),
-                                                h.create_group("exchange/area")),
-                                     r"/exchange/area: missing"),
+    "an empty group instead of a matrix": (lambda h: (h.__delitem__("exchange/area"),
+                                                      h.create_group("exchange/area")),
+                                           r"/exchange/area: attribute shape \(\), expected"),
+    "a group instead of a dataset": (lambda h: (h.__delitem__("exchange/area_space"),
+                                                h.create_group("exchange/area_space")),
+                                     r"/exchange/area_space: missing"),
 }
 
 

@@ -10,6 +10,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.sparse as sp
 
 __all__ = ["ViewFactors", "Exchange"]
 
@@ -20,10 +21,12 @@ class ViewFactors:
 
     Attributes
     ----------
-    matrix : (n, n) float — smoothed view factors; row i = from node i [1]
+    matrix : (n, n) scipy.sparse.csr_array — smoothed view factors; row i = from node i [1]
+        (every (n, n) field is a CSR array holding the entries ever hit; dense copies with
+        :func:`vfactor.sparsetools.dense`)
     space : (n,) float — smoothed view factor to deep space [1]
     inert : (n,) float — share of emitted rays lost on inert sides [1]
-    stderr : (n, n) float — one-sigma statistical error of each raw entry [1]: standard
+    stderr : (n, n) csr_array — one-sigma statistical error of each raw entry [1]: standard
         error of the mean over independent randomised replicates (rounds), see
         :func:`vfactor.tallystats.tally_statistics`
     stderr_space : (n,) float — one-sigma error of ``raw_space`` [1]
@@ -37,12 +40,12 @@ class ViewFactors:
     facet_matrix : scipy.sparse.csr_matrix or None — facet-side-to-node-side factors on request
     """
 
-    matrix: np.ndarray
+    matrix: sp.csr_array
     space: np.ndarray
     inert: np.ndarray
-    stderr: np.ndarray
+    stderr: sp.csr_array
     stderr_space: np.ndarray
-    raw_matrix: np.ndarray
+    raw_matrix: sp.csr_array
     raw_space: np.ndarray
     raw_inert: np.ndarray
     rays: np.ndarray
@@ -52,6 +55,17 @@ class ViewFactors:
     target_error: float | None = None
     facet_matrix: object = None
 
+    def largest_relative_error(self, level: float) -> float:
+        """Largest ``stderr / F`` over raw node entries ``F >= level`` (0 when none)."""
+        raw, err = self.raw_matrix, self.stderr
+        if raw.nnz == 0:
+            return 0.0
+        same = (raw.nnz == err.nnz and np.array_equal(raw.indptr, err.indptr)
+                and np.array_equal(raw.indices, err.indices))
+        e = err.data if same else np.asarray(err[raw.nonzero()]).ravel()
+        sig = raw.data >= level
+        return float((e[sig] / raw.data[sig]).max()) if sig.any() else 0.0
+
 
 @dataclass(frozen=True)
 class Exchange:
@@ -59,19 +73,23 @@ class Exchange:
 
     Attributes
     ----------
-    gebhart : (n, n) float — B_ij, share of energy emitted by i absorbed by j [1]
+    gebhart : (n, n) csr_array — B_ij, share of energy emitted by i absorbed by j [1]
     gebhart_space : (n,) float — share of energy emitted by i that escapes to space [1]
-    area : (n, n) float — exchange area eps_i A_i B_ij [m2]; conductance = sigma * area
+    area : (n, n) csr_array — exchange area eps_i A_i B_ij [m2]; conductance = sigma * area
     area_space : (n,) float — eps_i A_i B_i,space [m2]
-    stderr : (n, n) float or None — one-sigma error of ``gebhart`` where it was estimated [1]
+    stderr : (n, n) csr_array or None — one-sigma error of ``gebhart`` where it was
+        estimated [1]
     method : str — ``"matrix"`` (diffuse linear solve) or ``"monte-carlo"`` (reflection tracing)
     band : str — ``"ir"`` or ``"solar"``
+    dropped : (n,) float — share of each node's emission carried by entries left out below
+        :data:`vfactor.gebhart.DROP_TOLERANCE` (reported, never silently lost) [1]
     """
 
-    gebhart: np.ndarray
+    gebhart: sp.csr_array
     gebhart_space: np.ndarray
-    area: np.ndarray
+    area: sp.csr_array
     area_space: np.ndarray
-    stderr: np.ndarray | None
+    stderr: sp.csr_array | None
     method: str
     band: str = "ir"
+    dropped: np.ndarray | None = None

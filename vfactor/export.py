@@ -27,6 +27,7 @@ from . import atomic
 from .constants import STEFAN_BOLTZMANN
 from .errors import ArgumentError
 from .h5io import Results
+from .sparsetools import as_csr, values_at
 
 __all__ = ["FORMATS", "DEFAULT_THRESHOLD", "export", "export_csv", "export_vtk",
            "export_gltf", "facet_fields"]
@@ -151,17 +152,24 @@ def _csv_tables(results: Results, folder: Path, threshold: float, batch) -> list
         header = ["from", "to", "view_factor [1]", "view_factor_stderr [1]"]
         if ex is not None:
             header += ["gebhart [1]", "exchange_area [m2]", "conductance [W K-4]"]
+        # the stored entries of F and B (row-major): cost grows with the non-zeros
+        F = as_csr(vf.matrix)
+        pattern = (F + as_csr(ex.gebhart)) if ex is not None else F
+        coo = as_csr(pattern).tocoo()
+        order = np.lexsort((coo.col, coo.row))
+        ii, jj = coo.row[order].astype(np.int64), coo.col[order].astype(np.int64)
+        f_all = values_at(F, ii, jj)
+        e_all = values_at(vf.stderr, ii, jj)
+        b_all = values_at(ex.gebhart, ii, jj) if ex is not None else np.zeros(ii.size)
+        a_all = values_at(ex.area, ii, jj) if ex is not None else np.zeros(ii.size)
+        keep = (np.maximum(f_all, b_all) >= threshold) & ~((f_all == 0) & (b_all == 0))
         rows = []
-        for i in range(n):
-            for j in range(n):
-                f_ij = vf.matrix[i, j]
-                b_ij = ex.gebhart[i, j] if ex is not None else 0.0
-                if max(f_ij, b_ij) < threshold or (f_ij == 0 and b_ij == 0):
-                    continue
-                row = [nodes.names[i], nodes.names[j], f_ij, vf.stderr[i, j]]
-                if ex is not None:
-                    row += [b_ij, ex.area[i, j], STEFAN_BOLTZMANN * ex.area[i, j]]
-                rows.append(row)
+        for k in np.flatnonzero(keep):
+            i, j = int(ii[k]), int(jj[k])
+            row = [nodes.names[i], nodes.names[j], f_all[k], e_all[k]]
+            if ex is not None:
+                row += [b_all[k], a_all[k], STEFAN_BOLTZMANN * a_all[k]]
+            rows.append(row)
         written.append(_write_csv(batch, folder / "couplings.csv", header, rows,
                                   "the coupling table"))
 

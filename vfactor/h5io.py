@@ -24,6 +24,7 @@ import numpy as np
 
 from .atomic import OutputError, refuse_inputs, write_bytes
 from .h5read import Results, read_results
+from .gebhart import DROP_TOLERANCE
 from .h5schema import FILE_KIND, SCHEMA_VERSION, SOURCES, h5py_quiet
 from .constants import STEFAN_BOLTZMANN
 from .geometry import Geometry
@@ -71,6 +72,34 @@ def _put(group, name, data, units, description, *, compress=False):
     ds.attrs["units"] = units
     ds.attrs["description"] = description
     return ds
+
+
+def _put_csr(group, name, matrix, units, description):
+    """One (n, n) coupling matrix as a CSR group: ``data``, ``indices``, ``indptr`` and
+    the attributes ``shape``, ``layout``, ``units``, ``description`` (gzip, chunked)."""
+    import scipy.sparse as sp
+
+    m = sp.csr_array(matrix)
+    m.sum_duplicates()
+    m.sort_indices()
+    g = group.create_group(name)
+    g.attrs["shape"] = np.asarray(m.shape, dtype=np.int64)
+    g.attrs["layout"] = ("CSR: row i holds columns indices[indptr[i]:indptr[i+1]] with values "
+                         "data[...] (scipy.sparse.csr_array((data, indices, indptr), shape)); "
+                         "entries not stored are zero")
+    g.attrs["units"] = units
+    g.attrs["description"] = description
+    index_type = np.int32 if max(m.shape) < 2 ** 31 else np.int64
+    for key, arr in (("data", m.data.astype(np.float64)),
+                     ("indices", m.indices.astype(index_type)),
+                     ("indptr", m.indptr.astype(np.int64))):
+        if arr.size > 4096:
+            ds = g.create_dataset(key, data=arr, chunks=(min(arr.size, 1 << 18),),
+                                  compression="gzip", compression_opts=4, shuffle=True)
+        else:
+            ds = g.create_dataset(key, data=arr)
+        ds.attrs["units"] = units if key == "data" else "1"
+    return g
 
 
 def _time_weights(time: np.ndarray) -> np.ndarray:
@@ -157,13 +186,13 @@ def _write_geometry(root, geometry: Geometry):
 
 def _write_view_factors(root, vf: ViewFactors):
     g = root.create_group("view_factors")
-    _put(g, "matrix", vf.matrix, "1",
+    _put_csr(g, "matrix", vf.matrix, "1",
          "view factor F_ij, row i = from node i, after reciprocity/closure smoothing")
     _put(g, "space", vf.space, "1", "view factor to deep space, after smoothing")
     _put(g, "inert", vf.inert, "1", "share of emitted rays lost on inert sides")
-    _put(g, "stderr", vf.stderr, "1", "one-sigma statistical error of each raw entry")
+    _put_csr(g, "stderr", vf.stderr, "1", "one-sigma statistical error of each raw entry")
     _put(g, "stderr_space", vf.stderr_space, "1", "one-sigma statistical error of raw_space")
-    _put(g, "raw_matrix", vf.raw_matrix, "1", "view factors straight from the ray tallies")
+    _put_csr(g, "raw_matrix", vf.raw_matrix, "1", "view factors straight from the ray tallies")
     _put(g, "raw_space", vf.raw_space, "1", "view factor to space straight from the tallies")
     _put(g, "raw_inert", vf.raw_inert, "1", "share lost on inert sides, from the tallies")
     _put(g, "rays", np.asarray(vf.rays, dtype=np.int64), "1", "rays emitted per node")
@@ -191,17 +220,21 @@ def _write_view_factors(root, vf: ViewFactors):
 
 def _write_exchange(root, ex: Exchange):
     g = root.create_group("exchange")
-    _put(g, "gebhart", ex.gebhart, "1",
+    _put_csr(g, "gebhart", ex.gebhart, "1",
          f"Gebhart factor B_ij ({ex.band} band): share of i's emission absorbed by j")
     _put(g, "gebhart_space", ex.gebhart_space, "1", "share of i's emission escaping to space")
-    _put(g, "area", ex.area, "m2", "exchange area eps_i A_i B_ij")
+    _put_csr(g, "area", ex.area, "m2", "exchange area eps_i A_i B_ij")
     _put(g, "area_space", ex.area_space, "m2", "exchange area to space eps_i A_i B_i,space")
-    _put(g, "conductance", STEFAN_BOLTZMANN * np.asarray(ex.area), "W K-4",
+    _put_csr(g, "conductance", STEFAN_BOLTZMANN * ex.area, "W K-4",
          "radiative conductance sigma eps_i A_i B_ij (heat flow = G (T_i^4 - T_j^4))")
     _put(g, "conductance_space", STEFAN_BOLTZMANN * np.asarray(ex.area_space), "W K-4",
          "radiative conductance to deep space sigma eps_i A_i B_i,space")
     if ex.stderr is not None:
-        _put(g, "stderr", ex.stderr, "1", "one-sigma statistical error of gebhart")
+        _put_csr(g, "stderr", ex.stderr, "1", "one-sigma statistical error of gebhart")
+    if ex.dropped is not None:
+        _put(g, "dropped", np.asarray(ex.dropped, dtype=np.float64), "1",
+             "share of i's emission in Gebhart entries below the drop tolerance, left out")
+        g.attrs["drop_tolerance"] = float(DROP_TOLERANCE)
     g.attrs["method"] = str(ex.method)
     g.attrs["band"] = str(ex.band)
 

@@ -15,10 +15,11 @@ from .errors import ResultsFileError
 from .geometry import Coating, Geometry, NodeTable
 from .h5schema import FILE_KIND, SCHEMA_VERSION, SOURCES, attr_value, h5py_quiet, validate
 from .heating import Heating
+from .sparsetools import as_csr, dense
 from .radiation import Exchange, ViewFactors
 from .trajectory import Trajectory
 
-__all__ = ["Results", "read_results"]
+__all__ = ["Results", "read_results", "read_coupling_matrix"]
 
 
 @dataclass(frozen=True)
@@ -95,6 +96,19 @@ def _read_geometry(h) -> Geometry:
         part_names=_strs(f["part_names"]), coatings=coatings, nodes=nodes)
 
 
+def read_coupling_matrix(obj):
+    """An (n, n) coupling matrix as a CSR array: a CSR group (schema 2) or a dense
+    dataset (schema 1)."""
+    import h5py
+    import scipy.sparse as sp
+
+    if isinstance(obj, h5py.Dataset):
+        return as_csr(obj[()])
+    shape = tuple(int(x) for x in obj.attrs["shape"])
+    return sp.csr_array((obj["data"][()].astype(np.float64), obj["indices"][()],
+                         obj["indptr"][()]), shape=shape)
+
+
 def _read_view_factors(g) -> ViewFactors:
     facet = None
     if "facet" in g:
@@ -105,9 +119,9 @@ def _read_view_factors(g) -> ViewFactors:
                               shape=tuple(int(x) for x in h.attrs["shape"]))
     target = float(g.attrs["target_error"])
     return ViewFactors(
-        matrix=g["matrix"][()], space=g["space"][()], inert=g["inert"][()],
-        stderr=g["stderr"][()], stderr_space=g["stderr_space"][()],
-        raw_matrix=g["raw_matrix"][()], raw_space=g["raw_space"][()],
+        matrix=read_coupling_matrix(g["matrix"]), space=g["space"][()], inert=g["inert"][()],
+        stderr=read_coupling_matrix(g["stderr"]), stderr_space=g["stderr_space"][()],
+        raw_matrix=read_coupling_matrix(g["raw_matrix"]), raw_space=g["raw_space"][()],
         raw_inert=g["raw_inert"][()], rays=g["rays"][()],
         adjustment_sigma=float(g.attrs["adjustment_sigma"]), method=attr_value(g.attrs["method"]),
         converged=bool(g.attrs["converged"]),
@@ -115,10 +129,11 @@ def _read_view_factors(g) -> ViewFactors:
 
 
 def _read_exchange(g) -> Exchange:
-    return Exchange(gebhart=g["gebhart"][()], gebhart_space=g["gebhart_space"][()],
-                    area=g["area"][()], area_space=g["area_space"][()],
-                    stderr=g["stderr"][()] if "stderr" in g else None,
-                    method=attr_value(g.attrs["method"]), band=attr_value(g.attrs["band"]))
+    return Exchange(gebhart=read_coupling_matrix(g["gebhart"]), gebhart_space=g["gebhart_space"][()],
+                    area=read_coupling_matrix(g["area"]), area_space=g["area_space"][()],
+                    stderr=read_coupling_matrix(g["stderr"]) if "stderr" in g else None,
+                    method=attr_value(g.attrs["method"]), band=attr_value(g.attrs["band"]),
+                    dropped=g["dropped"][()] if "dropped" in g else None)
 
 
 def _read_trajectory(g) -> Trajectory:
@@ -163,12 +178,14 @@ def _read_heating(g, time) -> Heating:
         planet_ir=float(g.attrs["planet_ir_W_m2"]), case=attr_value(g.attrs["case"]))
 
 
-def read_results(path) -> Results:
+def read_results(path, *, dense_couplings=False) -> Results:
     """Read a results file written by :func:`write_results`.
 
     Parameters
     ----------
     path : str or os.PathLike
+    dense_couplings : bool — return the (n, n) couplings as dense numpy arrays instead of
+        ``scipy.sparse.csr_array`` (small models only: n^2 memory)
 
     Returns
     -------
@@ -228,6 +245,15 @@ def read_results(path) -> Results:
                                f"{exc.start})") from None
     except OSError as exc:
         raise ResultsFileError(f"{path}: cannot read results file: {exc}") from None
+    if dense_couplings:
+        import dataclasses
+
+        if vf is not None:
+            vf = dataclasses.replace(vf, matrix=dense(vf.matrix), stderr=dense(vf.stderr),
+                                     raw_matrix=dense(vf.raw_matrix))
+        if ex is not None:
+            ex = dataclasses.replace(ex, gebhart=dense(ex.gebhart), area=dense(ex.area),
+                                     stderr=None if ex.stderr is None else dense(ex.stderr))
     return Results(path=path, attrs=attrs, model_source=source, model_name=name,
                    geometry=geometry, view_factors=vf, exchange=ex, trajectory=tr,
                    heating=heat, node_average=node_avg, facet_average=facet_avg,

@@ -17,7 +17,7 @@ from .errors import ResultsFileError
 
 __all__ = ["SCHEMA_VERSION", "FILE_KIND", "SOURCES", "h5py_quiet", "attr_value", "validate"]
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 """Version of the file layout; raised when a dataset is renamed or changes meaning."""
 
 FILE_KIND = "vfactor-results"
@@ -76,14 +76,12 @@ _DATASETS = {  # group -> {dataset: (kind, shape)}; every entry is required in i
                **{k: ("int", ("f",)) for k in ("front_node", "back_node", "front_coating",
                                                 "back_coating", "part")}},
     "coatings": {"name": ("text", ("c",)), **{k: ("real", ("c",)) for k in _COATING_REALS}},
-    "view_factors": {"matrix": ("real", ("n", "n")), "stderr": ("real", ("n", "n")),
-                     "raw_matrix": ("real", ("n", "n")), "rays": ("int", ("n",)),
+    "view_factors": {"rays": ("int", ("n",)),
                      **{k: ("real", ("n",)) for k in ("space", "inert", "stderr_space",
                                                        "raw_space", "raw_inert")}},
     "view_factors/facet": {"data": ("real", ("k",)), "indices": ("int", ("k",)),
                            "indptr": ("int", ("r",))},
-    "exchange": {"gebhart": ("real", ("n", "n")), "gebhart_space": ("real", ("n",)),
-                 "area": ("real", ("n", "n")), "area_space": ("real", ("n",))},
+    "exchange": {"gebhart_space": ("real", ("n",)), "area_space": ("real", ("n",))},
     "orbit": {"time": ("real", ("t",)), "sun_fraction": ("real", ("t",)),
               "sun_distance": ("real", ("t",)), "planet_distance": ("real", ("t",)),
               "beta": ("real", ("t",)), "body_to_inertial": ("real", ("t", 3, 3)),
@@ -97,11 +95,16 @@ _DATASETS = {  # group -> {dataset: (kind, shape)}; every entry is required in i
     "heating/facet_average": {k: ("real", ("f",)) for k in SOURCES + ("total",)},
 }
 _OPTIONAL = {  # datasets read when present
-    "exchange": {"stderr": ("real", ("n", "n"))},
+    "exchange": {"dropped": ("real", ("n",))},
     "heating": {**{f"{k}_stderr": ("real", ("t", "n")) for k in SOURCES},
                 **{f"escaped_{k}": ("real", ("t",)) for k in SOURCES},
                 **{f"inert_{k}": ("real", ("t",)) for k in SOURCES}},
 }
+#: (n, n) coupling matrices: CSR groups (data, indices, indptr; attribute shape) from
+#: schema 2 on, dense datasets in schema 1 (still read).
+MATRICES = {"view_factors": ("matrix", "stderr", "raw_matrix"),
+            "exchange": ("gebhart", "area", "conductance")}
+OPTIONAL_MATRICES = {"exchange": ("stderr",)}
 _REQUIRED_GROUPS = ("model", "nodes", "facets", "coatings")
 _ATTRS = {  # group ("" = root) -> {attribute: kind}
     "": {"seed": "int", "rays_per_node": "int"},
@@ -253,16 +256,37 @@ def validate(h, path: Path) -> None:
                 raise bad(name, f"index {value} out of range {lowest}..{count - 1} "
                                 f"({count} {_AXIS_WORD[axis]} in /{_AXIS_SOURCE[axis]})")
     if "view_factors/facet" in h:
-        _validate_facet_csr(h["view_factors/facet"], path, size("f"), size("n"))
+        _validate_csr(h["view_factors/facet"], f"{path}: /view_factors/facet",
+                      (2 * size("f"), size("n") + 2), "facet sides, nodes + space + inert")
+    for table, required in ((MATRICES, True), (OPTIONAL_MATRICES, False)):
+        for group, names in table.items():
+            if group not in h:
+                continue
+            for name in names:
+                obj = h[group].get(name)
+                if obj is None and not required:
+                    continue
+                if isinstance(obj, h5py.Dataset):         # schema 1: dense
+                    check(f"{group}/{name}", "real", ("n", "n"))
+                elif isinstance(obj, h5py.Group):
+                    _validate_csr(obj, f"{path}: /{group}/{name}", (size("n"), size("n")),
+                                  "node names in /nodes/name")
+                else:
+                    raise bad(f"{group}/{name}", "missing (damaged or incomplete results file)")
 
 
-def _validate_facet_csr(g, path: Path, n_facets: int, n_nodes: int) -> None:
-    """The sparse facet-side factors: shape (2f, n + 2), CSR arrays consistent."""
-    where = f"{path}: /view_factors/facet"
+def _validate_csr(g, where: str, expected: tuple, axes: str) -> None:
+    """One sparse matrix group: its shape attribute and consistent CSR arrays."""
+    import h5py
+
     shape = tuple(int(x) for x in np.ravel(g.attrs.get("shape", ())))
-    if shape != (2 * n_facets, n_nodes + 2):
-        raise ResultsFileError(f"{where}: attribute shape {shape}, expected "
-                               f"{(2 * n_facets, n_nodes + 2)} (facet sides, nodes + space + inert)")
+    if shape != expected:
+        raise ResultsFileError(f"{where}: attribute shape {shape}, expected {expected} "
+                               f"({axes})")
+    for name, kinds in (("data", "fiub"), ("indices", "iu"), ("indptr", "iu")):
+        ds = g.get(name)
+        if not isinstance(ds, h5py.Dataset) or ds.ndim != 1 or ds.dtype.kind not in kinds:
+            raise ResultsFileError(f"{where}/{name}: missing or not a 1-D numeric array")
     data, indices, indptr = g["data"][()], g["indices"][()], g["indptr"][()]
     if indptr.shape != (shape[0] + 1,) or data.shape != indices.shape:
         raise ResultsFileError(f"{where}: CSR arrays of {data.size} values, {indices.size} "

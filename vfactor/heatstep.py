@@ -13,6 +13,8 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.sparse as sp
+from vfactor.sparsetools import as_csr
 
 __all__ = ["Model", "Step", "prepare", "trace_once", "bands_of", "one_step", "unit"]
 
@@ -82,12 +84,12 @@ def _node_view_factors(sides, targets, n_nodes, node_area):
     src = np.repeat(sides.node, rays)
     tgt = targets.ravel().astype(np.int64)
     hit = tgt >= 0
-    matrix = np.zeros((n_nodes, n_nodes))
-    np.add.at(matrix, (src[hit], tgt[hit]), weight[hit])
+    area = np.where(node_area > 0.0, node_area, 1.0)
+    matrix = as_csr(sp.coo_array((weight[hit] / area[src[hit]], (src[hit], tgt[hit])),
+                                 shape=(n_nodes, n_nodes)))
     space = np.bincount(src[tgt == -1], weights=weight[tgt == -1], minlength=n_nodes)
     inert = np.bincount(src[tgt == -2], weights=weight[tgt == -2], minlength=n_nodes)
-    area = np.where(node_area > 0.0, node_area, 1.0)
-    return matrix / area[:, None], space / area, inert / area
+    return matrix, space / area, inert / area
 
 
 def _gebhart(view, absorptivity):
@@ -95,10 +97,9 @@ def _gebhart(view, absorptivity):
     from vfactor.radiation import gebhart_matrix
 
     matrix, space, inert = view
-    b, b_space = gebhart_matrix(matrix, space, inert, absorptivity)
-    b = np.asarray(b, dtype=np.float64)
-    b_space = np.asarray(b_space, dtype=np.float64)
-    return b, b_space, 1.0 - b.sum(axis=1) - b_space
+    geb = gebhart_matrix(matrix, space, inert, absorptivity)
+    # the dropped share is redistributed nowhere: count it with the inert (lost) power
+    return geb.gebhart, geb.space, geb.inert + geb.dropped
 
 
 def unit(v):
@@ -223,7 +224,7 @@ def bands_of(model: Model, geometry, view_factors) -> dict:
     """Per band: Gebhart factors, side and facet properties, specular sides and rays."""
     n = model.n_nodes
     if view_factors is not None:
-        view = (np.asarray(view_factors.matrix, dtype=np.float64),
+        view = (as_csr(view_factors.matrix),
                 np.asarray(view_factors.space, dtype=np.float64),
                 np.asarray(view_factors.inert, dtype=np.float64))
         if view[0].shape != (n, n):
@@ -410,7 +411,7 @@ def _reflect(model: Model, src, band, step: Step, rep, lit_mask, cos_t):
         lost += q
     if band["gebhart"] is not None:
         b, b_space, b_inert = band["gebhart"]
-        absorbed += pool @ b
+        absorbed += (b.T @ pool.T).T
         escaped += float((pool @ b_space).mean())
         lost += float((pool @ b_inert).mean())
     else:

@@ -29,7 +29,8 @@ files may make their loader read only files inside the model's folder or below i
 ``[[parts]]`` (and ``[[parts.select]]`` under a part): see :mod:`vfactor.parts`.
 
 ``[radiation]``: ``rays_per_node``, ``seed``, ``target_error``, ``max_rays_per_node``,
-``smoothing``, ``facet_factors``, ``sun_rays_per_facet``, ``planet_rays_per_facet``.
+``smoothing``, ``facet_factors``, ``sun_rays_per_facet``, ``planet_rays_per_facet``,
+``gebhart_drop_tolerance``.
 """
 
 from __future__ import annotations
@@ -84,6 +85,7 @@ _RADIATION_DEFAULTS = {
     "facet_factors": False,
     "sun_rays_per_facet": 16,
     "planet_rays_per_facet": 256,
+    "gebhart_drop_tolerance": 1e-6,   # vfactor.gebhart.DROP_TOLERANCE
 }
 
 
@@ -134,6 +136,8 @@ class RadiationSettings:
     max_rays_per_node : int — ray budget per node when ``target_error`` is set
         (default 20 * rays_per_node)
     smoothing : bool — enforce reciprocity and closure (default true)
+    gebhart_drop_tolerance : float — diffuse Gebhart entries below this share of a node's
+        emission are left out, their energy reported (:data:`vfactor.gebhart.DROP_TOLERANCE`)
     facet_factors : bool — also keep facet-to-facet view factors (default false)
     sun_rays_per_facet : int — sample points per facet traced toward the Sun (default 16)
     planet_rays_per_facet : int — escaping directions per facet used for the planet (256)
@@ -144,6 +148,7 @@ class RadiationSettings:
     target_error: float | None = None
     max_rays_per_node: int = 4_000_000
     smoothing: bool = True
+    gebhart_drop_tolerance: float = 1e-6
     facet_factors: bool = False
     sun_rays_per_facet: int = 16
     planet_rays_per_facet: int = 256
@@ -419,6 +424,16 @@ def _read_radiation(value, reader: Reader) -> RadiationSettings:
                 out[key] = fn(tab[key], f"[radiation] {key}")
             except Invalid:
                 pass
+    if "gebhart_drop_tolerance" in tab:
+        try:
+            tol = reader.quantity(tab["gebhart_drop_tolerance"],
+                                  "[radiation] gebhart_drop_tolerance", low=0.0)
+            if tol >= 1e-2:
+                reader.error("[radiation] gebhart_drop_tolerance",
+                             f"must be below 0.01 of a node's emission, got {tol!r}")
+            out["gebhart_drop_tolerance"] = tol
+        except Invalid:
+            pass
     if "target_error" in tab:
         try:
             te = reader.positive(tab["target_error"], "[radiation] target_error")

@@ -50,6 +50,7 @@ from .interrupts import RunTerminated, signals_raise
 from .progress import NullReporter
 from .runners import DaskRunner, ProcessRunner, SerialRunner
 from .summary import INERT_WARNING_SHARE
+from .tallystats import PairTallies
 
 __all__ = ["RunResult", "RunTerminated", "run", "checkpoint_path", "CHECKPOINT_SUFFIX"]
 
@@ -103,11 +104,10 @@ class RunResult:
                  f"  {g.n_nodes} nodes, {g.n_facets} facets, {self.rays_per_node:,} rays per "
                  f"node, seed {self.seed}, {self.elapsed_s.get('total', 0.0):.1f} s"]
         vf = self.view_factors
-        if vf is not None and np.size(vf.raw_matrix):
+        if vf is not None and vf.raw_matrix.nnz:
             from .summary import SIGNIFICANT_VIEW_FACTOR as sig_level
 
-            sig = vf.raw_matrix >= sig_level
-            rel = float((vf.stderr[sig] / vf.raw_matrix[sig]).max()) if sig.any() else 0.0
+            rel = vf.largest_relative_error(sig_level)
             target = ("" if vf.target_error is None else
                       f"; target {vf.target_error:g} " + ("reached" if vf.converged
                                                          else "NOT reached (budget spent)"))
@@ -277,12 +277,16 @@ def _run_pairs(runner, pair_node, pair_round, sums, ckpt, seed, m, bar) -> int:
     """
     todo = np.ones(pair_node.size, bool)
     if ckpt is not None:
+        done_nodes, done_rows = [], []
         for p, (i, r) in enumerate(zip(pair_node.tolist(), pair_round.tolist())):
             row = ckpt.tallies.get((r, i))
             if row is not None:
-                sums.add_pairs([i], row[None, :])
-                bar.advance(m)
+                done_nodes.append(i)
+                done_rows.append(row)
                 todo[p] = False
+        if done_rows:
+            sums.add_pairs(done_nodes, PairTallies.concat(done_rows))
+            bar.advance(m * len(done_rows))
     nodes, rounds = pair_node[todo], pair_round[todo]
     parallel = max(1, getattr(runner, "workers", 1) or 4)
     jobs = [(nodes[sl], rounds[sl])
@@ -408,7 +412,9 @@ def _run(model_path, out: Path, *, rays, seed, workers, scheduler, resume, facet
     t0 = time.perf_counter()
     exchange = radiation.compute_exchange(geometry, scene, view_factors,
                                           rays_per_node=rays_per_node, seed=seed, band="ir",
-                                          reporter=reporter)
+                                          reporter=reporter, drop_tolerance=getattr(
+                                              model.radiation, "gebhart_drop_tolerance",
+                                              None))
     elapsed["exchange"] = time.perf_counter() - t0
 
     t0 = time.perf_counter()

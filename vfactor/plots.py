@@ -25,6 +25,7 @@ import numpy as np
 
 from . import atomic
 from .errors import ArgumentError
+from .sparsetools import as_csr, dense
 from .h5io import Results, node_averages
 
 __all__ = ["SOURCE_COLOURS", "plot_all", "figure_names", "plot_heat_loads", "plot_absorbed_flux",
@@ -261,6 +262,33 @@ def plot_absorbed_flux(results: Results, path, *, batch=None) -> Path:
     return _save(fig, Path(path), batch)
 
 
+#: Above this many nodes the coupling plot shows parts instead of nodes.
+MAX_PLOTTED_NODES = 300
+
+
+def _by_part(geometry, matrix, to_space, *, weighted):
+    """Coupling matrix and space column summed over the nodes of each part."""
+    import scipy.sparse as sp
+
+    n = geometry.n_nodes
+    part = np.zeros(n, dtype=np.int64)
+    for side in (geometry.back_node, geometry.front_node):   # front wins
+        s = np.asarray(side)
+        ok = s >= 0
+        part[s[ok]] = np.asarray(geometry.part)[ok]
+    k = len(geometry.part_names)
+    P = sp.csr_array((np.ones(n), (np.arange(n), part)), shape=(n, k))
+    w = np.asarray(geometry.nodes.area, dtype=np.float64) if weighted else np.ones(n)
+    M = P.T @ (sp.diags_array(w) @ as_csr(matrix)) @ P
+    sp_col = P.T @ (w * np.asarray(to_space))
+    if weighted:
+        part_area = P.T @ w
+        scale = np.where(part_area > 0, 1.0 / np.where(part_area > 0, part_area, 1.0), 0.0)
+        M = sp.diags_array(scale) @ M
+        sp_col = scale * sp_col
+    return as_csr(M), np.asarray(sp_col), list(geometry.part_names) + ["space"]
+
+
 def plot_couplings(results: Results, path, *, batch=None) -> Path:
     """The exchange-area matrix eps_i A_i B_ij with a space column, log colour scale [m2].
 
@@ -272,14 +300,21 @@ def plot_couplings(results: Results, path, *, batch=None) -> Path:
     g = results.geometry
     names = list(g.nodes.names) + ["space"]
     if results.exchange is not None:
-        m = np.column_stack([results.exchange.area, results.exchange.area_space])
+        matrix, to_space = results.exchange.area, results.exchange.area_space
         label = "exchange area eps_i A_i B_ij [m2]"
         title = "infrared exchange areas (row = emitting node)"
     else:
         vf = results.view_factors
-        m = np.column_stack([vf.matrix, vf.space])
+        matrix, to_space = vf.matrix, vf.space
         label = "view factor F_ij [1]"
         title = "view factors (row = emitting node)"
+    if g.n_nodes > MAX_PLOTTED_NODES:
+        # many nodes: sums over the nodes of each part (exchange areas add; view factors
+        # are area-weighted into part-to-part factors)
+        matrix, to_space, names = _by_part(g, matrix, to_space,
+                                           weighted=results.exchange is None)
+        title = title.replace("node", "part") + f" ({g.n_nodes} nodes summed by part)"
+    m = np.column_stack([dense(matrix), to_space])
     n = m.shape[0]
     positive = m[m > 0]
     vmax = float(positive.max()) if positive.size else 1.0

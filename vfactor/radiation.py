@@ -31,13 +31,15 @@ from __future__ import annotations
 from typing import NamedTuple
 
 import numpy as np
+import scipy.sparse as sp
 
 from vfactor.couplings import Exchange, ViewFactors
-from vfactor.gebhart import GebhartFactors, exchange_from_gebhart, gebhart_matrix
+from vfactor.gebhart import DROP_TOLERANCE, GebhartFactors, exchange_from_gebhart, gebhart_matrix
 from vfactor.smoothing import (NO_SMOOTHING, SMOOTHING_METHOD, SmoothedViewFactors,
                                smooth_view_factors)
-from vfactor.tallystats import (SIGNIFICANCE, TallyStatistics, TallySums, significant_mask,
-                                tally_statistics)
+from vfactor.sparsetools import row_ids, row_max, values_at
+from vfactor.tallystats import (SIGNIFICANCE, PairTallies, TallyStatistics, TallySums,
+                                significant_mask, tally_statistics)
 
 __all__ = [
     "compute_view_factors",
@@ -51,6 +53,7 @@ __all__ = [
     "ViewFactors",
     "Exchange",
     "TallySums",
+    "PairTallies",
     "TallyStatistics",
     "SmoothedViewFactors",
     "GebhartFactors",
@@ -162,8 +165,9 @@ def trace_tallies(geometry, scene, node_indices, seed, rays_per_node, round_inde
 
     Returns
     -------
-    (k, n + 2) int64
-        Rays of each node whose first hit is node 0..n-1, space (column n) or an inert side
+    PairTallies
+        Sparse rows (``.toarray()`` gives the dense ``(k, n + 2)`` int64 counts): rays of
+        each node whose first hit is node 0..n-1, space (column n) or an inert side
         (column n + 1); each row sums to ``rays_per_node``.
 
     Notes
@@ -193,8 +197,8 @@ def trace_pairs(geometry, scene, node_indices, round_indices, seed, rays_per_nod
 
     Returns
     -------
-    (k, n + 2) int64 — row ``p`` equals ``trace_tallies(geometry, scene, [node_indices[p]],
-        seed, rays_per_node, round_indices[p])[0]``, bit for bit.
+    PairTallies — row ``p`` equals that of ``trace_tallies(geometry, scene,
+        [node_indices[p]], seed, rays_per_node, round_indices[p])``, bit for bit.
     """
     kin = _kernel_inputs(geometry, scene)
     nodes = np.asarray(node_indices, dtype=np.int64).reshape(-1)
@@ -213,11 +217,11 @@ def trace_pairs(geometry, scene, node_indices, round_indices, seed, rays_per_nod
 
 
 def _trace_pairs(scene, kin, nodes, rounds, seed, m, bar, facet_acc, sums=None):
-    """Trace (node, round) pairs batch by batch; return their (k, n + 2) tallies, or, with
-    ``sums``, add each batch to it as it comes (memory bounded by one batch)."""
+    """Trace (node, round) pairs batch by batch; return their :class:`PairTallies`, or,
+    with ``sums``, add each batch to it as it comes (memory bounded by one batch)."""
     from .tracing.vf_kernels import vf_pairs
 
-    out = None if sums is not None else np.zeros((nodes.size, kin.n_nodes + 2), np.int64)
+    out = []
     for sl in _pair_batches(nodes.size, m, kin.n_nodes):
         k = sl.stop - sl.start
         part = np.zeros((k, kin.n_nodes + 2), np.int64)
@@ -230,11 +234,17 @@ def _trace_pairs(scene, kin, nodes, rounds, seed, m, bar, facet_acc, sums=None):
                 facet_acc.add(kin.side_id[ray_side], ray_col)
             if bar is not None:
                 bar.advance(k * (j_hi - j_lo))
+        rows = PairTallies.from_dense(part)
         if sums is not None:
-            sums.add_pairs(nodes[sl], part)
+            sums.add_pairs(nodes[sl], rows)
         else:
-            out[sl] = part
-    return out
+            out.append(rows)
+    if sums is not None:
+        return None
+    if not out:
+        return PairTallies(np.zeros(1, np.int64), np.zeros(0, np.int64),
+                           np.zeros(0, np.int64), kin.n_nodes + 2)
+    return PairTallies.concat(out)
 
 
 class _FacetAccumulator:
@@ -265,11 +275,10 @@ class _FacetAccumulator:
 
 def _row_error_ratio(stats, target_error, significance):
     """Largest stderr / (target * value) over the significant entries of each row."""
-    n = stats.mean.shape[0]
-    sig = significant_mask(stats.mean, significance)
+    sig = significant_mask(stats.mean, significance).data
     with np.errstate(divide="ignore", invalid="ignore"):
-        ratio = np.where(sig, stats.stderr / (target_error * stats.mean), 0.0)
-    return ratio.max(axis=1) if n else np.zeros(0)
+        ratio = np.where(sig, stats.stderr.data / (target_error * stats.mean.data), 0.0)
+    return row_max(stats.mean, ratio)
 
 
 def round_sizes(rays_per_node, max_rays_per_node=None):
@@ -417,10 +426,27 @@ def compute_view_factors(geometry, scene, *, rays_per_node, seed, target_error=N
 
 
 def _smoothing_variances(stats):
-    """Variances used as smoothing weights: stderr^2 plus a floor of (1 / rays)^2 so that
-    entries never hit (or hit identically in every round) keep a finite weight."""
+    """Variances used as smoothing weights: ``stderr^2`` on the pattern of the entries hit
+    (CSR), plus a floor of ``(1 / rays)^2`` per row (``(n,)``) that every entry gets, so
+    that entries never hit (or hit identically in every round) keep a finite weight."""
     floor = (1.0 / stats.rays.astype(np.float64)) ** 2
-    return stats.stderr ** 2 + floor[:, None]
+    var = stats.stderr.copy()
+    var.data = var.data ** 2
+    return var, floor
+
+
+def _split_columns(matrix, n):
+    """Node part (CSR, n x n) and the space and inert columns (dense) of an (n, n + 2)
+    CSR array."""
+    coo = matrix.tocoo()
+    node = coo.col < n
+    nodes = sp.csr_array((coo.data[node], (coo.row[node], coo.col[node])), shape=(n, n))
+    nodes.sort_indices()
+    space = np.zeros(n)
+    inert = np.zeros(n)
+    space[coo.row[coo.col == n]] = coo.data[coo.col == n]
+    inert[coo.row[coo.col == n + 1]] = coo.data[coo.col == n + 1]
+    return nodes, space, inert
 
 
 def view_factors_from_tallies(geometry, sums: TallySums, *, target_error=None,
@@ -451,39 +477,35 @@ def view_factors_from_tallies(geometry, sums: TallySums, *, target_error=None,
     if stats.mean.shape != (n, n + 2):
         raise ValueError(f"view_factors_from_tallies: tallies of shape {stats.mean.shape} "
                          f"for {n} nodes")
-    V = _smoothing_variances(stats)
-    raw = stats.mean
-    if not smooth:
-        if converged is None:
-            converged = True if target_error is None else bool(
-                np.all(_row_error_ratio(stats, target_error, significance) <= 1))
-        return ViewFactors(matrix=raw[:, :n].copy(), space=raw[:, n].copy(),
-                           inert=raw[:, n + 1].copy(), stderr=stats.stderr[:, :n].copy(),
-                           stderr_space=stats.stderr[:, n].copy(),
-                           raw_matrix=raw[:, :n].copy(), raw_space=raw[:, n].copy(),
-                           raw_inert=raw[:, n + 1].copy(), rays=stats.rays.astype(np.int64),
-                           adjustment_sigma=0.0, method=NO_SMOOTHING,
-                           converged=bool(converged), target_error=target_error,
-                           facet_matrix=facet_matrix)
-    sm = smooth_view_factors(raw[:, :n], raw[:, n], raw[:, n + 1], V[:, :n], V[:, n],
-                             V[:, n + 1], geometry.nodes.area)
-    ii, jj = np.nonzero(significant_mask(raw, significance))
-    if ii.size:
-        node_col = jj < n
-        smoothed = np.where(node_col, sm.matrix[ii, np.minimum(jj, n - 1)], sm.space[ii])
-        adjustment = float(np.max(np.abs(smoothed - raw[ii, jj]) / np.sqrt(V[ii, jj])))
-    else:
-        adjustment = 0.0
+    raw, raw_space, raw_inert = _split_columns(stats.mean, n)
+    err, err_space, _ = _split_columns(stats.stderr, n)
     if converged is None:
         converged = True if target_error is None else bool(
             np.all(_row_error_ratio(stats, target_error, significance) <= 1))
+    common = dict(stderr=err, stderr_space=err_space, raw_matrix=raw, raw_space=raw_space,
+                  raw_inert=raw_inert, rays=stats.rays.astype(np.int64),
+                  converged=bool(converged), target_error=target_error,
+                  facet_matrix=facet_matrix)
+    if not smooth:
+        return ViewFactors(matrix=raw.copy(), space=raw_space.copy(), inert=raw_inert.copy(),
+                           adjustment_sigma=0.0, method=NO_SMOOTHING, **common)
+    var, floor = _smoothing_variances(stats)
+    v_nodes, v_space, v_inert = _split_columns(var, n)
+    sm = smooth_view_factors(raw, raw_space, raw_inert, v_nodes, v_space + floor,
+                             v_inert + floor, geometry.nodes.area, variance_floor=floor)
+    sig = significant_mask(stats.mean, significance)
+    ii = row_ids(stats.mean)[sig.data]
+    jj = stats.mean.indices[sig.data]
+    if ii.size:
+        node_col = jj < n
+        smoothed = np.where(node_col, values_at(sm.matrix, ii, np.minimum(jj, n - 1)),
+                            sm.space[ii])
+        sigma = np.sqrt(var.data[sig.data] + floor[ii])
+        adjustment = float(np.max(np.abs(smoothed - stats.mean.data[sig.data]) / sigma))
+    else:
+        adjustment = 0.0
     return ViewFactors(matrix=sm.matrix, space=sm.space, inert=sm.inert,
-                       stderr=stats.stderr[:, :n].copy(), stderr_space=stats.stderr[:, n].copy(),
-                       raw_matrix=raw[:, :n].copy(), raw_space=raw[:, n].copy(),
-                       raw_inert=raw[:, n + 1].copy(), rays=stats.rays.astype(np.int64),
-                       adjustment_sigma=adjustment, method=SMOOTHING_METHOD,
-                       converged=bool(converged), target_error=target_error,
-                       facet_matrix=facet_matrix)
+                       adjustment_sigma=adjustment, method=SMOOTHING_METHOD, **common)
 
 
 # --------------------------------------------------------------------------------------
@@ -540,9 +562,8 @@ def gebhart_tallies(geometry, scene, *, band="ir", rays_per_node, seed, reporter
     with reporter.stage(f"Gebhart factors ({band}, reflection tracing)",
                         total=pair_node.size * m, unit="rays") as bar:
         for sl in _pair_batches(pair_node.size, m, n):
-            sums.add_pairs(pair_node[sl],
-                           gebhart_pairs(scene.arrays, kin.emit, kin.geo, absorb, specular,
-                                         pair_node[sl], pair_round[sl], int(seed), m))
+            sums.add_pairs(pair_node[sl], PairTallies.from_dense(gebhart_pairs(scene.arrays, kin.emit, kin.geo, absorb, specular,
+                                         pair_node[sl], pair_round[sl], int(seed), m)))
             bar.advance((sl.stop - sl.start) * m)
     return sums
 
@@ -582,27 +603,36 @@ def monte_carlo_gebhart(geometry, scene, *, band="ir", rays_per_node, seed,
                            seed=seed, reporter=reporter)
     stats = tally_statistics(sums)
     n = geometry.n_nodes
-    raw = stats.mean
-    B = raw[:, :n].copy()
-    Bs = raw[:, n].copy()
+    B, Bs, Bl = _split_columns(stats.mean, n)
+    err, _, _ = _split_columns(stats.stderr, n)
     emit = np.flatnonzero(absorb > 0)
     if emit.size:
-        V = _smoothing_variances(stats)
-        sub = np.ix_(emit, emit)
+        var, floor = _smoothing_variances(stats)
+        v_nodes, v_space, v_inert = _split_columns(var, n)
         # energy absorbed by non-absorbing nodes is impossible: their columns are zero
-        lost = raw[emit, n + 1] + raw[emit][:, :n][:, absorb <= 0].sum(axis=1)
-        sm = smooth_view_factors(raw[:, :n][sub], raw[emit, n], lost, V[:, :n][sub],
-                                 V[emit, n], V[emit, n + 1],
-                                 absorb[emit] * geometry.nodes.area[emit])
-        B[sub] = sm.matrix
+        lost = Bl[emit] + np.asarray(B[emit][:, np.flatnonzero(absorb <= 0)].sum(axis=1)
+                                     ).ravel()
+        sm = smooth_view_factors(B[emit][:, emit], Bs[emit], lost, v_nodes[emit][:, emit],
+                                 v_space[emit] + floor[emit], v_inert[emit] + floor[emit],
+                                 absorb[emit] * geometry.nodes.area[emit],
+                                 variance_floor=floor[emit])
+        # rows and columns of the emitting nodes from the smoothing, the rest stays raw
+        coo = B.tocoo()
+        is_emit = absorb > 0
+        keep = ~(is_emit[coo.row] & is_emit[coo.col])
+        sub = sm.matrix.tocoo()
+        B = sp.csr_array((np.concatenate([coo.data[keep], sub.data]),
+                          (np.concatenate([coo.row[keep], emit[sub.row]]),
+                           np.concatenate([coo.col[keep], emit[sub.col]]))), shape=(n, n))
+        B.sort_indices()
+        Bs = Bs.copy()
         Bs[emit] = sm.space
-    return exchange_from_gebhart(B, Bs, absorb, geometry.nodes.area,
-                                 stderr=stats.stderr[:, :n].copy(), method="monte-carlo",
-                                 band=band)
+    return exchange_from_gebhart(B, Bs, absorb, geometry.nodes.area, stderr=err,
+                                 method="monte-carlo", band=band)
 
 
 def compute_exchange(geometry, scene, view_factors: ViewFactors, *, rays_per_node, seed,
-                     band="ir", reporter=None) -> Exchange:
+                     band="ir", reporter=None, drop_tolerance=None) -> Exchange:
     """Gebhart factors and exchange areas in one band, by the fitting route.
 
     When every node's coating is diffuse in the band (specular share zero), the linear
@@ -619,6 +649,8 @@ def compute_exchange(geometry, scene, view_factors: ViewFactors, *, rays_per_nod
     rays_per_node, seed : int — for reflection tracing
     band : {"ir", "solar"}
     reporter : vfactor.progress.Reporter or None
+    drop_tolerance : float or None — of the matrix route (default
+        :data:`vfactor.gebhart.DROP_TOLERANCE`), see :func:`gebhart_matrix`
 
     Returns
     -------
@@ -635,13 +667,32 @@ def compute_exchange(geometry, scene, view_factors: ViewFactors, *, rays_per_nod
     """
     absorb, specular = _band_properties(geometry, band)
     if np.all(specular == 0):
-        B, Bs = gebhart_matrix(view_factors.matrix, view_factors.space, view_factors.inert,
-                               absorb)
-        n = B.shape[0]
-        G = np.linalg.inv(np.eye(n) - view_factors.matrix * (1.0 - absorb)[None, :])
-        S = (1.0 - absorb)[:, None] * B + np.diag(absorb)
-        var = (G ** 2) @ ((view_factors.stderr ** 2) @ (S ** 2))
-        return exchange_from_gebhart(B, Bs, absorb, geometry.nodes.area,
-                                     stderr=np.sqrt(var), method="matrix", band=band)
+        geb = gebhart_matrix(view_factors.matrix, view_factors.space, view_factors.inert,
+                             absorb, drop_tolerance=DROP_TOLERANCE if drop_tolerance is None
+                             else drop_tolerance)
+        return exchange_from_gebhart(geb.gebhart, geb.space, absorb, geometry.nodes.area,
+                                     stderr=_matrix_route_stderr(geb, view_factors, absorb),
+                                     method="matrix", band=band, dropped=geb.dropped)
     return monte_carlo_gebhart(geometry, scene, band=band, rays_per_node=rays_per_node,
                                seed=seed, reporter=reporter)
+
+
+def _matrix_route_stderr(geb, view_factors, absorb):
+    """First-order error of the matrix route (see :func:`compute_exchange`), sparse:
+    ``var(B) = (G o G) (stderr^2 (S o S))``, S = diag(1 - eps) B + diag(eps)."""
+    n = absorb.size
+    S = sp.diags_array(1.0 - absorb) @ geb.gebhart + sp.diags_array(absorb)
+    S2 = sp.csr_array(S)
+    S2.data = S2.data ** 2
+    E2 = sp.csr_array(view_factors.stderr, shape=(n, n))
+    E2.data = E2.data ** 2
+    G2 = sp.csr_array(geb.operator)
+    G2.data = G2.data ** 2
+    var = sp.csr_array(G2 @ (E2 @ S2))
+    # the error is reported where B is: elsewhere the factor itself is left out
+    pattern = sp.csr_array((np.ones(geb.gebhart.nnz), geb.gebhart.indices,
+                            geb.gebhart.indptr), shape=(n, n))
+    var = sp.csr_array(var.multiply(pattern))
+    var.data = np.sqrt(var.data)
+    var.sort_indices()
+    return var

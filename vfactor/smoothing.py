@@ -10,8 +10,10 @@ from __future__ import annotations
 from typing import NamedTuple
 
 import numpy as np
+import scipy.sparse as sp
 
 from vfactor.arrays import finite_array
+from vfactor.sparsetools import as_csr, values_at
 
 __all__ = ["SmoothedViewFactors", "smooth_view_factors", "SMOOTHING_METHOD", "NO_SMOOTHING"]
 
@@ -28,7 +30,7 @@ class SmoothedViewFactors(NamedTuple):
 
     Attributes
     ----------
-    matrix : (n, n) float — view factors obeying A_i F_ij = A_j F_ji [1]
+    matrix : (n, n) csr_array — view factors obeying A_i F_ij = A_j F_ji [1]
     space : (n,) float — view factors to space [1]
     inert : (n,) float — shares lost on inert sides [1]
     iterations : int — active-set iterations used (1 when no bound was active)
@@ -41,15 +43,18 @@ class SmoothedViewFactors(NamedTuple):
 
 
 def smooth_view_factors(raw_matrix, raw_space, raw_inert, variance, variance_space,
-                        variance_inert, area) -> SmoothedViewFactors:
+                        variance_inert, area, *, variance_floor=None) -> SmoothedViewFactors:
     """Enforce reciprocity and closure on Monte Carlo view factors by weighted least squares.
 
     Parameters
     ----------
-    raw_matrix : (n, n) float — raw view factors, row i from node i [1]
+    raw_matrix : (n, n) csr_array or dense — raw view factors, row i from node i [1]
     raw_space, raw_inert : (n,) float — raw factors to space and to inert sides [1]
-    variance : (n, n) float — variance of each raw entry [1]; must be > 0 where the entry
-        or its reciprocal is non-zero (callers add a floor, see Notes)
+    variance : (n, n) csr_array or dense — variance of each raw entry [1]; with
+        ``variance_floor`` it must be > 0 where the entry or its reciprocal is non-zero
+    variance_floor : (n,) float or None — added to the variance of every entry of row i
+        (entries not stored in ``variance`` included), so that an entry never hit keeps a
+        finite weight
     variance_space, variance_inert : (n,) float — variances of the space and inert entries
     area : (n,) float — node areas [m2]
 
@@ -96,29 +101,42 @@ def smooth_view_factors(raw_matrix, raw_space, raw_inert, variance, variance_spa
     - R. P. Taylor, R. Luck (1995), "Comparison of reciprocity and closure enforcement
       methods for radiation view factors", J. Thermophys. Heat Transfer 9(4), 660-666.
     """
-    F = finite_array(raw_matrix, "raw_matrix", ndim=2)
+    F = as_csr(raw_matrix)
     n = F.shape[0]
     if F.shape != (n, n):
         raise ValueError(f"smooth_view_factors: raw_matrix must be square, got {F.shape}")
+    V = as_csr(variance)
+    if V.shape != (n, n):
+        raise ValueError(f"smooth_view_factors: variance must have shape ({n}, {n}), "
+                         f"got {V.shape}")
+    for name, m in (("raw_matrix", F), ("variance", V)):
+        if not np.all(np.isfinite(m.data)):
+            raise ValueError(f"smooth_view_factors: {name} has non-finite entries")
     s_hat = finite_array(raw_space, "raw_space", shape=(n,))
     l_hat = finite_array(raw_inert, "raw_inert", shape=(n,))
-    V = finite_array(variance, "variance", shape=(n, n))
     vs = finite_array(variance_space, "variance_space", shape=(n,))
     vl = finite_array(variance_inert, "variance_inert", shape=(n,))
     A = finite_array(area, "area", shape=(n,))
+    floor = np.zeros(n) if variance_floor is None else \
+        finite_array(variance_floor, "variance_floor", shape=(n,))
     if np.any(A <= 0):
         raise ValueError(f"smooth_view_factors: node areas must be > 0, got min {float(A.min())!r}")
 
     # Unknowns: one g = A_i F_ij = A_j F_ji per pair i < j hit in at least one direction
     # (others are structural zeros), the diagonal, space and inert entries of each row.
-    iu, ju = np.nonzero(np.triu((F > 0) | (F.T > 0), k=1))
-    fij, fji = F[iu, ju], F[ju, iu]
-    vij, vji = V[iu, ju], V[ju, iu]
+    hit = sp.csr_array((F.data > 0, F.indices, F.indptr), shape=F.shape)
+    hit.eliminate_zeros()
+    pattern = sp.triu(hit + hit.T, k=1).tocoo()
+    order = np.lexsort((pattern.col, pattern.row))
+    iu = pattern.row[order].astype(np.int64)
+    ju = pattern.col[order].astype(np.int64)
+    fij, fji = values_at(F, iu, ju), values_at(F, ju, iu)
+    vij, vji = values_at(V, iu, ju) + floor[iu], values_at(V, ju, iu) + floor[ju]
     if np.any((vij <= 0) & (fij > 0)) or np.any((vji <= 0) & (fji > 0)) or \
             np.any((vij <= 0) & (vji <= 0)):
         raise ValueError("smooth_view_factors: variance must be > 0 where an entry or its "
                          "reciprocal is hit")
-    fd, vd = np.diag(F).copy(), np.diag(V).copy()
+    fd, vd = F.diagonal().copy(), V.diagonal() + floor
     diag_free0 = fd > 0
     s_free0 = s_hat > 0
     l_free0 = l_hat > 0
@@ -173,10 +191,13 @@ def smooth_view_factors(raw_matrix, raw_space, raw_inert, variance, variance_spa
             continue
         break
     G = np.where(pair_free, G, 0.0)
-    matrix = np.zeros((n, n))
-    matrix[iu, ju] = G / A[iu]
-    matrix[ju, iu] = G / A[ju]
-    matrix[np.diag_indices(n)] = np.where(diag_free, gd, 0.0) / A
+    diag = np.where(diag_free, gd, 0.0) / A
+    keep = G > 0
+    dk = np.flatnonzero(diag > 0)
+    matrix = as_csr(sp.coo_array(
+        (np.concatenate([G[keep] / A[iu[keep]], G[keep] / A[ju[keep]], diag[dk]]),
+         (np.concatenate([iu[keep], ju[keep], dk]), np.concatenate([ju[keep], iu[keep], dk]))),
+        shape=(n, n)))
     space = np.where(s_free, As, 0.0) / A
     inert = np.where(l_free, Al, 0.0) / A
     return SmoothedViewFactors(matrix=matrix, space=space, inert=inert, iterations=iterations)
@@ -201,6 +222,6 @@ def _multipliers(n, iu, ju, h, g_hat, d, r0):
     cols = np.concatenate([ju[keep], iu[keep], np.arange(n)])
     vals = np.concatenate([h[keep], h[keep], diag])
     M = sp.csc_matrix((vals, (rows, cols)), shape=(n, n))
-    if n <= 64 or M.nnz > 0.02 * n * n:        # small or dense enough: LAPACK
+    if n <= 64 or (M.nnz > 0.02 * n * n and n <= 4000):   # small or dense: LAPACK
         return np.linalg.solve(M.toarray(), r)
     return np.asarray(spsolve(M, r)).reshape(n)

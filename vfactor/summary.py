@@ -12,8 +12,11 @@ import json
 import textwrap
 
 import numpy as np
+import scipy.sparse as sp
 
 from .constants import STEFAN_BOLTZMANN
+from .gebhart import DROP_TOLERANCE
+from .sparsetools import as_csr, values_at
 from .h5io import Results
 
 __all__ = ["CAUTIONS", "SIGNIFICANT_VIEW_FACTOR", "summarize", "format_summary", "to_json"]
@@ -44,9 +47,18 @@ RELATIVE_ERROR_WARNING = 0.05
 warns that the ray count is too low [1] (a reporting threshold of our own)."""
 
 
-def _warnings(names, inert, relative_error) -> list:
+#: Share of a node's emission in left-out Gebhart entries above which summary warns.
+DROPPED_WARNING_SHARE = 1e-3
+
+
+def _warnings(names, inert, relative_error, dropped=None) -> list:
     """Findings in the numbers of a results file that are probably a modelling slip."""
     out = []
+    if dropped is not None and len(dropped) and float(np.max(dropped)) > DROPPED_WARNING_SHARE:
+        i = int(np.argmax(dropped))
+        out.append(f"node {names[i]!r}: {100 * float(dropped[i]):.2f} % of its emission is in "
+                   f"Gebhart factors below the drop tolerance and left out of the "
+                   f"couplings; lower [radiation] gebhart_drop_tolerance")
     for name, share in zip(names, inert):
         if share > INERT_WARNING_SHARE:
             out.append(f"node {name!r} sends {100 * share:.1f} % of its emission to inert "
@@ -157,36 +169,47 @@ def summarize(results: Results, top: int = 15) -> dict:
     couplings = space = accuracy = None
     if vf is not None:
         eps_area = nodes.ir_emissivity * nodes.area
-        # pair keys over the upper triangle in numpy: only the shown rows become dicts, so
-        # the summary of a 20,000-node model costs n^2 array work, not n^2 Python objects
-        iu, ju = np.triu_indices(n, k=1)
-        F = np.asarray(vf.matrix)
-        key = (np.asarray(ex.area)[iu, ju] if ex is not None else F[iu, ju] * eps_area[iu])
-        keep = ~((key <= 0) & (F[iu, ju] <= 0))
+        # pair keys over the stored upper-triangle entries: cost grows with the non-zeros
+        F = as_csr(vf.matrix)
+        E = as_csr(vf.stderr)
+        X = None if ex is None else as_csr(ex.area)
+        upper = sp.triu(F + F.T + (X + X.T if X is not None else 0 * F), k=1).tocoo()
+        iu = upper.row.astype(np.int64)
+        ju = upper.col.astype(np.int64)
+        f_ij = values_at(F, iu, ju)
+        key = values_at(X, iu, ju) if X is not None else f_ij * eps_area[iu]
+        keep = ~((key <= 0) & (f_ij <= 0))
         iu, ju, key = iu[keep], ju[keep], key[keep]
         shown = min(top, len(key))
         if shown < len(key):
             best = np.argpartition(-key, shown - 1)[:shown] if shown else np.zeros(0, int)
         else:
             best = np.arange(len(key))
-        best = best[np.lexsort((best, -key[best]))]     # strongest first, ties by position
+        # strongest first, ties by (row, column) position
+        best = best[np.lexsort((ju[best], iu[best], -key[best]))]
+        bi, bj = iu[best], ju[best]
+        got = {name: values_at(m, bi, bj) for name, m in
+               (("f", F), ("e", E), ("a", X), ("b", None if ex is None else ex.gebhart),
+                ("be", None if ex is None or ex.stderr is None else ex.stderr))
+               if m is not None}
+        f_back = values_at(F, bj, bi)
         pairs = []
-        for k in best:
-            i, j = int(iu[k]), int(ju[k])
-            area_ij = float(ex.area[i, j]) if ex is not None else None
+        for k in range(best.size):
+            i, j = int(bi[k]), int(bj[k])
+            area_ij = float(got["a"][k]) if ex is not None else None
             row = {"from": nodes.names[i], "to": nodes.names[j],
-                   "view_factor": float(vf.matrix[i, j]),
-                   "view_factor_stderr": float(vf.stderr[i, j]),
-                   "view_factor_back": float(vf.matrix[j, i])}
+                   "view_factor": float(got["f"][k]),
+                   "view_factor_stderr": float(got["e"][k]),
+                   "view_factor_back": float(f_back[k])}
             if ex is not None:
-                row["gebhart"] = float(ex.gebhart[i, j])
+                row["gebhart"] = float(got["b"][k])
                 row["exchange_area_m2"] = area_ij
                 row["conductance_W_K4"] = STEFAN_BOLTZMANN * area_ij
                 if ex.stderr is not None:
-                    err = float(eps_area[i] * ex.stderr[i, j])
+                    err = float(eps_area[i] * got["be"][k])
                     row["error_basis"] = "gebhart"
-                elif vf.matrix[i, j] > 0:
-                    err = area_ij * float(vf.stderr[i, j] / vf.matrix[i, j])
+                elif got["f"][k] > 0:
+                    err = area_ij * float(got["e"][k] / got["f"][k])
                     row["error_basis"] = "view factor (relative error carried over)"
                 else:
                     err = None
@@ -195,22 +218,27 @@ def summarize(results: Results, top: int = 15) -> dict:
             pairs.append(row)
         couplings = {"pairs_total": int(len(key)), "shown": shown, "strongest": pairs}
         space = []
+        self_view = F.diagonal()
+        dropped = (np.zeros(n) if ex is None or ex.dropped is None
+                   else np.asarray(ex.dropped, dtype=np.float64))
         for i in range(n):
             row = {"node": nodes.names[i], "view_factor": float(vf.space[i]),
                    "view_factor_stderr": float(vf.stderr_space[i]),
-                   "self_view_factor": float(vf.matrix[i, i]),
+                   "self_view_factor": float(self_view[i]),
                    "inert": float(vf.inert[i]), "rays": int(vf.rays[i])}
             if ex is not None:
                 row["gebhart"] = float(ex.gebhart_space[i])
                 row["exchange_area_m2"] = float(ex.area_space[i])
                 row["conductance_W_K4"] = float(STEFAN_BOLTZMANN * ex.area_space[i])
+                row["gebhart_dropped"] = float(dropped[i])
             space.append(row)
-        sig = vf.raw_matrix >= SIGNIFICANT_VIEW_FACTOR
-        rel = np.where(sig, vf.stderr / np.where(sig, vf.raw_matrix, 1.0), 0.0)
         accuracy = {
-            "largest_stderr": float(vf.stderr.max()) if vf.stderr.size else 0.0,
+            "largest_stderr": float(E.data.max()) if E.nnz else 0.0,
             "significant_threshold": SIGNIFICANT_VIEW_FACTOR,
-            "largest_relative_stderr_significant": float(rel.max()) if rel.size else 0.0,
+            "largest_relative_stderr_significant":
+                vf.largest_relative_error(SIGNIFICANT_VIEW_FACTOR),
+            "gebhart_drop_tolerance": DROP_TOLERANCE,
+            "largest_gebhart_dropped": float(dropped.max()) if n else 0.0,
             "smoothing_method": vf.method,
             "largest_adjustment_sigma": float(vf.adjustment_sigma),
             "target_error": vf.target_error,
@@ -221,7 +249,8 @@ def summarize(results: Results, top: int = 15) -> dict:
     warnings = _check_warnings(a)
     if vf is not None:
         warnings += _warnings(nodes.names, vf.inert,
-                              accuracy["largest_relative_stderr_significant"])
+                              accuracy["largest_relative_stderr_significant"],
+                              None if ex is None else ex.dropped)
 
     heat = results.heating
     loads = None
