@@ -269,7 +269,8 @@ def test_resource_estimate_counts_dense_matrices_and_per_step_arrays(tmp_path):
     est = resources.estimate_resources(model, geometry, cores=2)
     n, f = geometry.n_nodes, geometry.n_facets
     # our own formulas (resources.estimate_resources Notes), recomputed here by hand
-    assert est.parts["dense node matrices"] == resources.DENSE_NODE_MATRICES * 8.0 * n * (n + 2)
+    assert est.parts["node couplings"] == resources.COUPLING_COPIES * 8.0 * n * min(
+        n + 2, resources.COUPLED_PER_ROW, model.radiation.rays_per_node)
     assert est.parts["per-step results"] == 8.0 * 72 * (3 * f + 9 * n + 35)
     assert est.steps == 72 and est.cores == 2
     # the view-factor rays: n nodes x 100000, four times for the traced Gebhart factors
@@ -298,13 +299,13 @@ def test_check_refuses_what_exceeds_the_machine(capsys, tmp_path, monkeypatch, c
 
 
 def test_per_facet_nodes_on_the_demo_are_refused(capsys, tmp_path):
-    # max_edge 0.01 m on the body makes ~100 000 nodes: dense n x n matrices of ~80 GB
-    # each, more than any machine these tests run on
-    path = _per_facet_demo(tmp_path, 0.01)
+    # max_edge 0.004 m on the body makes ~600 000 nodes: their sparse couplings alone
+    # (up to 1000 per row) need ~100 GB, more than any machine these tests run on
+    path = _per_facet_demo(tmp_path, 0.004)
     code, out, err = _cli(capsys, "check", path)
     assert code == 2
     line = _one_error_line(err, path, "resources")
-    assert "dense node matrices" in line and "per-facet" in line
+    assert "node couplings" in line and "per-facet" in line
 
 
 def test_many_steps_warn_of_the_time(capsys, tmp_path):

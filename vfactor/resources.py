@@ -1,6 +1,6 @@
 """Estimated peak memory and time of a run, from the model, before anything is allocated.
 
-:func:`estimate_resources` adds up what the run will hold (dense node matrices, per-step
+:func:`estimate_resources` adds up what the run will hold (sparse node couplings, per-step
 results per node and facet, the heating stage's ray cache and one step's samples) and a
 rough time from the ray and step counts at stated conservative rates;
 :func:`resource_problems` turns it into the ``check`` note, a warning above
@@ -23,7 +23,7 @@ from vfactor.model import Model
 
 __all__ = ["ResourceEstimate", "estimate_resources", "resource_problems",
            "machine_memory_bytes", "RESOURCE_WHERE", "MEMORY_WARNING_SHARE", "TIME_WARNING_S",
-           "DENSE_NODE_MATRICES", "SECONDS_PER_STEP"]
+           "COUPLING_COPIES", "COUPLED_PER_ROW", "SECONDS_PER_STEP"]
 
 RESOURCE_WHERE = "resources"
 """Location of the resource findings (kept out of the records of passed checks: they
@@ -36,12 +36,16 @@ threshold: the rest is the system's and other programs')."""
 TIME_WARNING_S = 3600.0
 """Estimated run time [s] above which ``check`` warns (our own threshold)."""
 
-DENSE_NODE_MATRICES = 20
-"""Dense (n, n + 2) float64 node matrices a run holds at its peak, counted from the code
-(our own count): tally sums and squares, their mean and error, raw and smoothed view
-factors and their error, the smoothing's variances and work arrays, Gebhart factors,
-exchange areas, conductances and their error, the matrix of the Gebhart solve and its
-factorisation, and the heating stage's solar and infrared Gebhart factors."""
+COUPLING_COPIES = 24
+"""Bytes per stored coupling entry / 8 at the run's peak, counted from the code (our own
+count): sparse tally sums and squares (keys, values), their mean and error, raw and
+smoothed view factors and their error, smoothing variances and pair arrays, the Gebhart
+reflection series and its partial sums, Gebhart factors, exchange areas and their error."""
+
+COUPLED_PER_ROW = 1000
+"""Stored entries assumed per node row when the node count is larger (our own upper
+guess: a per-facet model of 10,504 nodes measured 53 view-factor entries per row; Gebhart
+rows, which include reflections, are wider)."""
 
 BYTES_PER_FACET = 600.0
 """Geometry, ray-tracing scene (BVH) and per-facet tables [bytes per facet], rough (our
@@ -113,7 +117,8 @@ def estimate_resources(model: Model, geometry: Geometry, rays: int | None = None
     -----
     Memory (bytes; n nodes, f facets, s active facet sides, t steps, P planet and S sun
     rays per facet side, rounded up to the 8 replicates of the heating stage):
-    ``DENSE_NODE_MATRICES * 8 n (n + 2)`` for the node matrices; ``8 t (3 f + 9 n + 35)``
+    ``COUPLING_COPIES * 8 n min(n + 2, COUPLED_PER_ROW, rays per node)`` for the sparse
+    node couplings; ``8 t (3 f + 9 n + 35)``
     for the per-step results (absorbed flux per facet of three sources, per node absorbed,
     incident and error of three sources, the trajectory); ``52 s P`` for the heating
     stage's ray cache (first hit, and origin and direction of every escaping ray); ``s S``
@@ -140,7 +145,8 @@ def estimate_resources(model: Model, geometry: Geometry, rays: int | None = None
     sun = float(replicates * -(-int(settings.sun_rays_per_facet) // replicates))
 
     parts = {
-        "dense node matrices": DENSE_NODE_MATRICES * 8.0 * n * (n + 2.0),
+        "node couplings": COUPLING_COPIES * 8.0 * n * min(n + 2.0, COUPLED_PER_ROW,
+                                                          rays_per_node),
         "interpreter, libraries and geometry": BYTES_PER_FACET * f + BASELINE_BYTES,
     }
     vf_rays = n * rays_per_node
@@ -253,9 +259,9 @@ def resource_problems(model: Model, geometry: Geometry, rays: int | None = None)
 
 def _resource_fix(est: ResourceEstimate, model: Model, geometry: Geometry) -> str:
     largest = est.largest
-    if largest == "dense node matrices":
-        return (f"{geometry.n_nodes} nodes make {geometry.n_nodes} x {geometry.n_nodes} "
-                f"matrices; use fewer nodes (nodes = \"single\" or \"per-face\" instead "
+    if largest == "node couplings":
+        return (f"{geometry.n_nodes} nodes make up to {geometry.n_nodes} x "
+                f"{min(geometry.n_nodes, COUPLED_PER_ROW)} stored couplings; use fewer nodes (nodes = \"single\" or \"per-face\" instead "
                 f"of \"per-facet\", or a coarser max_edge)")
     if largest == "per-step results":
         return (f"{est.steps} steps x {geometry.n_facets} facets of per-facet results; use "

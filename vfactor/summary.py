@@ -403,6 +403,10 @@ def format_summary(results: Results, top: int = 15) -> str:
                          f"{'reached' if acc['converged'] else 'NOT reached (ray budget spent)'}")
         if acc["exchange_method"]:
             lines.append(f"  Gebhart factors by: {acc['exchange_method']}")
+        if acc["exchange_method"] == "matrix":
+            lines.append(f"  Gebhart entries below {acc['gebhart_drop_tolerance']:g} of a node's "
+                         f"emission left out: largest share dropped "
+                         f"{100 * acc['largest_gebhart_dropped']:.2g} % of a node's emission")
 
     o = s["orbit"]
     if o is not None:
