@@ -80,7 +80,7 @@ _RADIATION_DEFAULTS = {
     "rays_per_node": 200_000,
     "seed": 1,
     "target_error": None,
-    "max_rays_per_node": None,   # 20 * rays_per_node
+    "max_rays_per_node": None,   # RAY_BUDGET_FACTOR * rays_per_node
     "smoothing": True,
     "facet_factors": False,
     "sun_rays_per_facet": 16,
@@ -88,6 +88,10 @@ _RADIATION_DEFAULTS = {
     "gebhart_drop_tolerance": 1e-6,   # vfactor.gebhart.DROP_TOLERANCE
 }
 
+
+RAY_BUDGET_FACTOR = 20
+"""Default ray budget per node when ``target_error`` adds rounds, in multiples of
+``rays_per_node`` (the one place of this default; :mod:`vfactor.radiation` uses it too)."""
 
 MIN_ROUNDS = 8
 """Rounds every node's rays are split into (:data:`vfactor.radiation.MIN_ROUNDS`; kept
@@ -134,7 +138,7 @@ class RadiationSettings:
     seed : int — seed of the counter-based random streams (default 1)
     target_error : float or None — one-sigma error to reach by adding rays [1]
     max_rays_per_node : int — ray budget per node when ``target_error`` is set
-        (default 20 * rays_per_node)
+        (default RAY_BUDGET_FACTOR * rays_per_node)
     smoothing : bool — enforce reciprocity and closure (default true)
     gebhart_drop_tolerance : float — diffuse Gebhart entries below this share of a node's
         emission are left out, their energy reported (:data:`vfactor.gebhart.DROP_TOLERANCE`)
@@ -146,7 +150,7 @@ class RadiationSettings:
     rays_per_node: int = 200_000
     seed: int = 1
     target_error: float | None = None
-    max_rays_per_node: int = 4_000_000
+    max_rays_per_node: int = RAY_BUDGET_FACTOR * 200_000
     smoothing: bool = True
     gebhart_drop_tolerance: float = 1e-6
     facet_factors: bool = False
@@ -402,11 +406,11 @@ def _read_coatings(value, reader: Reader) -> dict:
 
 def _read_radiation(value, reader: Reader) -> RadiationSettings:
     if value is None:
-        return RadiationSettings(max_rays_per_node=20 * RadiationSettings.rays_per_node)
+        return RadiationSettings()
     try:
         tab = reader.table(value, "[radiation]")
     except Invalid:
-        return RadiationSettings(max_rays_per_node=20 * RadiationSettings.rays_per_node)
+        return RadiationSettings()
     reader.unknown_keys(tab, tuple(_RADIATION_DEFAULTS), "[radiation]", "[radiation]")
     out = {}
     checks = {
@@ -444,15 +448,15 @@ def _read_radiation(value, reader: Reader) -> RadiationSettings:
         except Invalid:
             pass
     rays = out.get("rays_per_node", RadiationSettings.rays_per_node)
-    out.setdefault("max_rays_per_node", 20 * rays)
+    out.setdefault("max_rays_per_node", RAY_BUDGET_FACTOR * rays)
     if out["max_rays_per_node"] < rays:
         reader.soft_error("[radiation] max_rays_per_node",
                           f"must be >= rays_per_node ({out['max_rays_per_node']} < {rays})")
-        out["max_rays_per_node"] = 20 * rays
+        out["max_rays_per_node"] = RAY_BUDGET_FACTOR * rays
     problem = ray_limit_problem(rays, out["max_rays_per_node"])
     if problem:
         key = "rays_per_node" if "rays_per_node" in tab else "max_rays_per_node"
         reader.soft_error(f"[radiation] {key}", problem)
         out.pop("rays_per_node", None)
-        out["max_rays_per_node"] = 20 * RadiationSettings.rays_per_node
+        out["max_rays_per_node"] = RAY_BUDGET_FACTOR * RadiationSettings.rays_per_node
     return RadiationSettings(**out)

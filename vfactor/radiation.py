@@ -287,7 +287,8 @@ def round_sizes(rays_per_node, max_rays_per_node=None):
     Parameters
     ----------
     rays_per_node : int — rays each node emits at least (>= 1)
-    max_rays_per_node : int or None — ray budget per node (default 100 x rays_per_node)
+    max_rays_per_node : int or None — ray budget per node (default
+        :data:`vfactor.model.RAY_BUDGET_FACTOR` x rays_per_node)
 
     Returns
     -------
@@ -299,7 +300,10 @@ def round_sizes(rays_per_node, max_rays_per_node=None):
 
     rays_per_node = int(rays_per_node)
     m = -(-rays_per_node // MIN_ROUNDS)
-    budget = 100 * rays_per_node if max_rays_per_node is None else int(max_rays_per_node)
+    from .model import RAY_BUDGET_FACTOR
+
+    budget = (RAY_BUDGET_FACTOR * rays_per_node if max_rays_per_node is None
+              else int(max_rays_per_node))
     return m, min(MAX_ROUNDS, max(MIN_ROUNDS, budget // m))
 
 
@@ -350,7 +354,7 @@ def compute_view_factors(geometry, scene, *, rays_per_node, seed, target_error=N
     target_error : float or None — one-sigma *relative* error wanted for every significant
         entry (e.g. 0.005 for 0.5 %); rounds are added to the rows that miss it
     max_rays_per_node : int or None — ray budget per node when ``target_error`` is set
-        (default 100 x ``rays_per_node``)
+        (default :data:`vfactor.model.RAY_BUDGET_FACTOR` x ``rays_per_node``)
     facet_factors : bool — also return facet-side-to-node factors (sparse)
     reporter : vfactor.progress.Reporter or None
     significance : float — share of a row above which an entry is significant [1]
