@@ -238,21 +238,16 @@ def _view_factors(radiation, model, geometry, scene, *, rays_per_node, seed, wor
         runner = SerialRunner(geometry, scene)
     try:
         with reporter.stage("view factors", total=n * min_rounds * m, unit="rays") as bar:
-            # the first rounds, then the rounds radiation.plan_rounds asks for: the same
-            # (node, round) pairs as radiation.compute_view_factors traces
-            pair_node = np.tile(np.arange(n, dtype=np.int64), min_rounds)
-            pair_round = np.repeat(np.arange(min_rounds, dtype=np.int64), n)
-            resumed += _run_pairs(runner, pair_node, pair_round, sums, ckpt, seed, m, bar)
-            if target is not None:
-                total = n * min_rounds * m
-                for _ in range(50):
-                    pair_node, pair_round = radiation.plan_rounds(sums, target, max_rounds)
-                    if pair_node.size == 0:
-                        break
-                    total += pair_node.size * m
-                    bar.set_total(total)
-                    resumed += _run_pairs(runner, pair_node, pair_round, sums, ckpt, seed, m,
-                                          bar)
+            counter = [0]
+
+            def trace(pair_node, pair_round):
+                counter[0] += _run_pairs(runner, pair_node, pair_round, sums, ckpt, seed, m,
+                                         bar)
+
+            # the one round loop of radiation.compute_view_factors: the same pairs
+            radiation.run_rounds(sums, trace, target_error=target, max_rounds=max_rounds,
+                                 bar=bar)
+            resumed += counter[0]
     except BaseException:
         runner.abort()
         if ckpt is not None:

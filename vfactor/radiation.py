@@ -46,6 +46,7 @@ __all__ = [
     "trace_tallies",
     "trace_pairs",
     "plan_rounds",
+    "run_rounds",
     "view_factors_from_tallies",
     "compute_exchange",
     "monte_carlo_gebhart",
@@ -339,6 +340,42 @@ def plan_rounds(sums: TallySums, target_error, max_rounds, significance=SIGNIFIC
     return nodes, rounds
 
 
+#: Passes of :func:`plan_rounds` after the first rounds. Each pass gives every row that
+#: misses the target the rounds its measured error asks for (plus 10 %), so a few passes
+#: suffice; the cap only bounds a pathological case (a row's error estimate that keeps
+#: growing), whose budget ``max_rounds`` also bounds.
+MAX_CONVERGENCE_PASSES = 50
+
+
+def run_rounds(sums: TallySums, trace, *, target_error, max_rounds,
+               significance=SIGNIFICANCE, bar=None) -> None:
+    """The one round loop of a view-factor computation: :data:`MIN_ROUNDS` rounds of every
+    node, then, with ``target_error``, the rounds :func:`plan_rounds` asks for.
+
+    Parameters
+    ----------
+    sums : TallySums — filled by ``trace``
+    trace : callable ``(pair_node, pair_round)`` — traces those (node, round) pairs and adds
+        their tallies to ``sums`` (in this process, or over a runner)
+    target_error, max_rounds, significance : as for :func:`plan_rounds`
+    bar : progress bar or None — its total grows with the planned rays
+    """
+    n, m = sums.n_nodes, sums.rays_per_round
+    trace(np.tile(np.arange(n, dtype=np.int64), MIN_ROUNDS),
+          np.repeat(np.arange(MIN_ROUNDS, dtype=np.int64), n))
+    if target_error is None:
+        return
+    total = n * MIN_ROUNDS * m
+    for _ in range(MAX_CONVERGENCE_PASSES):
+        pair_node, pair_round = plan_rounds(sums, target_error, max_rounds, significance)
+        if pair_node.size == 0:
+            break
+        total += pair_node.size * m
+        if bar is not None:
+            bar.set_total(total)
+        trace(pair_node, pair_round)
+
+
 def compute_view_factors(geometry, scene, *, rays_per_node, seed, target_error=None,
                          max_rays_per_node=None, facet_factors=False, reporter=None,
                          significance=SIGNIFICANCE, smooth=True) -> ViewFactors:
@@ -407,22 +444,12 @@ def compute_view_factors(geometry, scene, *, rays_per_node, seed, target_error=N
     sums = TallySums.empty(n, m)
     acc = _FacetAccumulator(2 * kin.n_facets, n + 2) if facet_factors else None
     with reporter.stage("view factors", total=n * MIN_ROUNDS * m, unit="rays") as bar:
-        done = n * MIN_ROUNDS * m
-        pair_node = np.tile(np.arange(n, dtype=np.int64), MIN_ROUNDS)
-        pair_round = np.repeat(np.arange(MIN_ROUNDS, dtype=np.int64), n)
-        _trace_pairs(scene, kin, pair_node, pair_round, seed, m, bar, acc, sums)
-        converged = True
-        if target_error is not None:
-            for _ in range(50):
-                pair_node, pair_round = plan_rounds(sums, target_error, max_rounds,
-                                                    significance)
-                if pair_node.size == 0:
-                    break
-                done += pair_node.size * m
-                bar.set_total(done)
-                _trace_pairs(scene, kin, pair_node, pair_round, seed, m, bar, acc, sums)
-            stats = tally_statistics(sums)
-            converged = bool(np.all(_row_error_ratio(stats, target_error, significance) <= 1))
+        run_rounds(sums, lambda nodes, rounds: _trace_pairs(scene, kin, nodes, rounds, seed,
+                                                            m, bar, acc, sums),
+                   target_error=target_error, max_rounds=max_rounds,
+                   significance=significance, bar=bar)
+    converged = True if target_error is None else bool(
+        np.all(_row_error_ratio(tally_statistics(sums), target_error, significance) <= 1))
     facet_matrix = acc.factors() if acc is not None else None
     return view_factors_from_tallies(geometry, sums, target_error=target_error,
                                      converged=converged, facet_matrix=facet_matrix,
