@@ -173,7 +173,8 @@ def summarize(results: Results, top: int = 15) -> dict:
         F = as_csr(vf.matrix)
         E = as_csr(vf.stderr)
         X = None if ex is None else as_csr(ex.area)
-        upper = sp.triu(F + F.T + (X + X.T if X is not None else 0 * F), k=1).tocoo()
+        both = F + F.T if X is None else F + F.T + X + X.T     # every stored pair
+        upper = sp.triu(both, k=1).tocoo()
         iu = upper.row.astype(np.int64)
         ju = upper.col.astype(np.int64)
         f_ij = values_at(F, iu, ju)

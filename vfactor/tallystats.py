@@ -83,8 +83,8 @@ class PairTallies:
 
     def row_sums(self) -> np.ndarray:
         """Rays of each pair."""
-        return np.add.reduceat(self.counts, self.indptr[:-1]) * (np.diff(self.indptr) > 0) \
-            if self.counts.size else np.zeros(len(self), np.int64)
+        running = np.concatenate([[0], np.cumsum(self.counts, dtype=np.int64)])
+        return running[self.indptr[1:]] - running[self.indptr[:-1]]
 
     def toarray(self) -> np.ndarray:
         """Dense ``(k, n + 2)`` int64 copy (tests and small models)."""
