@@ -287,8 +287,9 @@ def test_damaged_checkpoint_is_one_line(box, tmp_path, cut):
     # `--resume` stops in one line (np.load raised BadZipFile / EOFError here) and leaves it
     out = tmp_path / "o.h5"
     ckpt = pipeline.checkpoint_path(out)
-    real = Checkpoint(ckpt, model_sha256="x", seed=1, rays_per_round=10, n_nodes=2)
-    real.add([0, 1], [0, 1], np.arange(8).reshape(2, 4), force=True)
+    real = Checkpoint(ckpt, model_sha256="x", seed=1, n_nodes=2)
+    real.pairs("view", rays_per_round=10).add([0, 1], [0, 1], np.arange(8).reshape(2, 4))
+    real.save()
     data = ckpt.read_bytes()
     ckpt.write_bytes({"empty": b"", "half": data[: len(data) // 2],
                       "foreign": b"PK\x03\x04" + data[4:100]}[cut])

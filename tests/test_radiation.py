@@ -14,6 +14,7 @@ import numpy as np
 import pytest
 from scipy.optimize import minimize
 
+from vfactor import exchange as _exchange
 from vfactor import radiation as _radiation
 from vfactor.gebhart import DROP_TOLERANCE
 from vfactor.sparsetools import dense
@@ -95,7 +96,7 @@ class _DenseCouplings:
     below read like the formulas they test (the sparse layout has its own tests)."""
 
     def __getattr__(self, name):
-        return getattr(_radiation, name)
+        return getattr(_radiation if hasattr(_radiation, name) else _exchange, name)
 
     @staticmethod
     def _vf(vf):
@@ -114,10 +115,10 @@ class _DenseCouplings:
         return self._vf(_radiation.view_factors_from_tallies(*a, **k))
 
     def compute_exchange(self, *a, **k):
-        return self._ex(_radiation.compute_exchange(*a, **k))
+        return self._ex(_exchange.compute_exchange(*a, **k))
 
     def monte_carlo_gebhart(self, *a, **k):
-        return self._ex(_radiation.monte_carlo_gebhart(*a, **k))
+        return self._ex(_exchange.monte_carlo_gebhart(*a, **k))
 
     def trace_tallies(self, *a, **k):
         return _radiation.trace_tallies(*a, **k).toarray()

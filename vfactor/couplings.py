@@ -2,7 +2,7 @@
 
 Rows belong to emitting nodes; the columns and units are those of
 :mod:`vfactor.radiation`. Built by :func:`vfactor.radiation.view_factors_from_tallies`
-and :func:`vfactor.radiation.compute_exchange`; written and read by :mod:`vfactor.h5io`.
+and :func:`vfactor.exchange.compute_exchange`; written and read by :mod:`vfactor.h5io`.
 """
 
 from __future__ import annotations

@@ -3,7 +3,7 @@
 :func:`gebhart_matrix` solves for the absorption factors of grey diffuse surfaces from
 the view factors; :func:`exchange_from_gebhart` turns them into exchange areas
 (``eps_i A_i B_ij``) with their errors. The traced (specular) alternative is
-:func:`vfactor.radiation.monte_carlo_gebhart`.
+:func:`vfactor.exchange.monte_carlo_gebhart`.
 """
 
 from __future__ import annotations

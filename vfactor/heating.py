@@ -78,15 +78,17 @@ followed.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+import uuid
+from dataclasses import dataclass, field
+from typing import NamedTuple
 
 import numpy as np
 
 from vfactor.constants import SUN_RADIUS_M
 from vfactor.heatstep import Step, bands_of, one_step, prepare, trace_once, unit
 
-__all__ = ["Heating", "HeatingExtremes", "compute_heating", "heating_extremes", "step_weights",
-           "SOURCES"]
+__all__ = ["Heating", "HeatingExtremes", "HeatingSteps", "compute_heating", "heating_extremes",
+           "step_weights", "SOURCES", "ROWS"]
 
 SOURCES = ("solar", "albedo", "planet_ir")
 """Names of the three environmental sources, in output order."""
@@ -367,53 +369,135 @@ def compute_heating(geometry, scene, trajectory, environment, *, view_factors=No
     """
     from vfactor.progress import NullReporter
 
-    _check_inputs(geometry, scene, trajectory, environment, rays_per_facet, sun_samples,
-                  seed, replicates, max_bounces)
     reporter = reporter or NullReporter()
-    model = prepare(geometry, scene, int(replicates), int(rays_per_facet), int(sun_samples),
-                     int(seed), int(max_bounces))
-    n_steps = trajectory.n_steps
-    n_nodes = geometry.n_nodes
+    task = HeatingSteps.of(geometry, scene, trajectory, environment, view_factors=view_factors,
+                           rays_per_facet=rays_per_facet, sun_samples=sun_samples, seed=seed,
+                           use_cache=use_cache, reflections=reflections,
+                           replicates=replicates, max_bounces=max_bounces)
+    state = task.prepare(geometry, scene, reporter)
+    steps = np.arange(task.n_steps)
+    with reporter.stage("heating", total=task.n_steps, unit="steps") as bar:
+        rows = task.run(state, steps, bar)
+    return task.assemble(rows)
 
-    with reporter.stage("heating: escaping directions", total=max(model.sides.count, 1),
-                        unit="facet sides") as bar:
-        trace_once(model, bar, need_rays=use_cache or reflections)
-    bands = bands_of(model, geometry, view_factors) if reflections else None
 
-    sun_all = np.asarray(trajectory.sun_body, dtype=np.float64)
-    nadir_all = np.asarray(trajectory.nadir_body, dtype=np.float64)
-    dist_all = np.asarray(trajectory.planet_distance, dtype=np.float64)
-    frac_all = np.asarray(trajectory.sun_fraction, dtype=np.float64)
-    sun_dist_all = np.asarray(trajectory.sun_distance, dtype=np.float64)
-    s_const = np.asarray(environment.solar_constant_series(sun_dist_all), dtype=np.float64)
-    env = dict(radius=float(trajectory.planet.radius), olr=float(environment.planet_ir),
-               albedo=float(environment.albedo))
+#: The per-step outputs of the heating stage: name -> which width ("node", "facet", None).
+ROWS = {**{f"{kind}_{src}": "node" for kind in ("node", "incident") for src in SOURCES},
+        **{f"node_{src}_stderr": "node" for src in SOURCES},
+        **{f"facet_{src}": "facet" for src in SOURCES},
+        **{f"{kind}_{src}": None for kind in ("escaped", "inert") for src in SOURCES}}
 
-    out = {f"{kind}_{src}": np.zeros((n_steps, n_nodes))
-           for kind in ("node", "incident") for src in SOURCES}
-    out.update({f"node_{src}_stderr": np.zeros((n_steps, n_nodes)) for src in SOURCES})
-    out.update({f"facet_{src}": np.zeros((n_steps, geometry.n_facets)) for src in SOURCES})
-    out.update({f"{kind}_{src}": np.zeros(n_steps) for kind in ("escaped", "inert")
-                for src in SOURCES})
 
-    with reporter.stage("heating", total=n_steps, unit="steps") as bar:
-        for k in range(n_steps):
-            step = Step(sun=unit(sun_all[k]),
-                        centre=np.ascontiguousarray(unit(nadir_all[k]) * dist_all[k]),
-                        solar=float(s_const[k]), fraction=float(frac_all[k]),
-                        cos_half=math.cos(math.asin(min(1.0, SUN_RADIUS_M / sun_dist_all[k]))),
-                        **env)
-            one_step(model, bands, step, use_cache, k, out)
-            bar.advance(1)
+class _View(NamedTuple):
+    """The node view factors the diffuse redistribution uses (fields of ViewFactors)."""
 
-    return Heating(
-        **{key: out[key] for key in (
-            "node_solar", "node_albedo", "node_planet_ir", "facet_solar", "facet_albedo",
-            "facet_planet_ir", "incident_solar", "incident_albedo", "incident_planet_ir",
-            "node_solar_stderr", "node_albedo_stderr", "node_planet_ir_stderr",
-            "escaped_solar", "escaped_albedo", "escaped_planet_ir", "inert_solar",
-            "inert_albedo", "inert_planet_ir")},
-        solar_constant=s_const, albedo=env["albedo"], planet_ir=env["olr"],
-        case=environment.case, time=np.asarray(trajectory.time, dtype=np.float64).copy(),
-        rays_per_facet=model.m * model.k_planet, sun_samples=model.m * model.k_sun,
-        seed=int(seed))
+    matrix: object
+    space: np.ndarray
+    inert: np.ndarray
+
+
+@dataclass(frozen=True, eq=False)
+class HeatingSteps:
+    """Task of the heating stage (see :mod:`vfactor.runners`): a job is an array of step
+    indices, its result the rows of every output at those steps (:data:`ROWS`).
+
+    :meth:`prepare` (once per worker) traces the cached escape directions and builds the
+    Gebhart factors of the diffuse redistribution; a step is then a pure function of the
+    task and its index, so steps computed anywhere, in any order, give the same bits.
+    Build with :meth:`of` (checks the inputs); :meth:`assemble` turns the rows of all
+    steps into a :class:`Heating`.
+    """
+
+    steps: tuple                  # per step: (sun, centre, solar, fraction, cos_half)
+    env: dict
+    view: object                  # _View or None
+    n_nodes: int
+    n_facets: int
+    time: np.ndarray
+    solar_constant: np.ndarray
+    case: str
+    rays_per_facet: int
+    sun_samples: int
+    seed: int
+    use_cache: bool
+    reflections: bool
+    replicates: int
+    max_bounces: int
+    key: str = field(default_factory=lambda: "heating:" + uuid.uuid4().hex)
+
+    @classmethod
+    def of(cls, geometry, scene, trajectory, environment, *, view_factors=None,
+           rays_per_facet=256, sun_samples=16, seed=1, use_cache=True, reflections=True,
+           replicates=8, max_bounces=16) -> "HeatingSteps":
+        """The task of :func:`compute_heating` with these arguments (checked here)."""
+        _check_inputs(geometry, scene, trajectory, environment, rays_per_facet, sun_samples,
+                      seed, replicates, max_bounces)
+        sun_all = np.asarray(trajectory.sun_body, dtype=np.float64)
+        nadir_all = np.asarray(trajectory.nadir_body, dtype=np.float64)
+        dist_all = np.asarray(trajectory.planet_distance, dtype=np.float64)
+        frac_all = np.asarray(trajectory.sun_fraction, dtype=np.float64)
+        sun_dist_all = np.asarray(trajectory.sun_distance, dtype=np.float64)
+        s_const = np.asarray(environment.solar_constant_series(sun_dist_all), dtype=np.float64)
+        steps = tuple(
+            (unit(sun_all[k]), np.ascontiguousarray(unit(nadir_all[k]) * dist_all[k]),
+             float(s_const[k]), float(frac_all[k]),
+             math.cos(math.asin(min(1.0, SUN_RADIUS_M / sun_dist_all[k]))))
+            for k in range(trajectory.n_steps))
+        view = None if view_factors is None else _View(
+            view_factors.matrix, np.asarray(view_factors.space, dtype=np.float64),
+            np.asarray(view_factors.inert, dtype=np.float64))
+        return cls(steps=steps,
+                   env=dict(radius=float(trajectory.planet.radius),
+                            olr=float(environment.planet_ir), albedo=float(environment.albedo)),
+                   view=view, n_nodes=geometry.n_nodes, n_facets=geometry.n_facets,
+                   time=np.asarray(trajectory.time, dtype=np.float64).copy(),
+                   solar_constant=s_const, case=environment.case,
+                   rays_per_facet=int(rays_per_facet), sun_samples=int(sun_samples),
+                   seed=int(seed), use_cache=bool(use_cache), reflections=bool(reflections),
+                   replicates=int(replicates), max_bounces=int(max_bounces))
+
+    @property
+    def n_steps(self) -> int:
+        return len(self.steps)
+
+    def prepare(self, geometry, scene, reporter=None):
+        """The vehicle's fixed part: sides, cached escape directions, Gebhart factors."""
+        from vfactor.progress import NullReporter
+
+        reporter = reporter or NullReporter()
+        model = prepare(geometry, scene, self.replicates, self.rays_per_facet,
+                        self.sun_samples, self.seed, self.max_bounces)
+        with reporter.stage("heating: escaping directions", total=max(model.sides.count, 1),
+                            unit="facet sides") as bar:
+            trace_once(model, bar, need_rays=self.use_cache or self.reflections)
+        bands = bands_of(model, geometry, self.view) if self.reflections else None
+        return model, bands
+
+    def empty_rows(self, count=None) -> dict:
+        """Zero rows of every output for ``count`` steps (default all)."""
+        t = self.n_steps if count is None else int(count)
+        width = {"node": self.n_nodes, "facet": self.n_facets}
+        return {name: np.zeros((t, width[w])) if w else np.zeros(t) for name, w in ROWS.items()}
+
+    def run(self, state, job, bar=None) -> dict:
+        """Rows of every output at the steps ``job`` (row ``p`` is step ``job[p]``)."""
+        model, bands = state
+        ks = np.asarray(job, dtype=np.int64).reshape(-1)
+        out = self.empty_rows(ks.size)
+        for p, k in enumerate(ks.tolist()):
+            sun, centre, solar, fraction, cos_half = self.steps[k]
+            step = Step(sun=sun, centre=centre, solar=solar, fraction=fraction,
+                        cos_half=cos_half, **self.env)
+            one_step(model, bands, step, self.use_cache, p, out)
+            if bar is not None:
+                bar.advance(1)
+        return out
+
+    def assemble(self, rows: dict) -> Heating:
+        """The :class:`Heating` of the rows of all steps (as :meth:`empty_rows` lays out)."""
+        m = self.replicates
+        return Heating(**{name: rows[name] for name in ROWS},
+                       solar_constant=self.solar_constant, albedo=self.env["albedo"],
+                       planet_ir=self.env["olr"], case=self.case, time=self.time,
+                       rays_per_facet=m * -(-self.rays_per_facet // m),
+                       sun_samples=m * -(-self.sun_samples // m), seed=self.seed)

@@ -50,7 +50,6 @@ from .interrupts import RunTerminated, signals_raise
 from .progress import NullReporter
 from .runners import DaskRunner, ProcessRunner, SerialRunner
 from .summary import INERT_WARNING_SHARE
-from .tallystats import PairTallies
 
 __all__ = ["RunResult", "RunTerminated", "run", "checkpoint_path", "CHECKPOINT_SUFFIX"]
 
@@ -68,7 +67,9 @@ class RunResult:
     rays_per_node : int
     workers : int — processes used for the ray tracing (1 in this process; 0 for dask)
     elapsed_s : dict — stage name -> seconds
-    resumed_jobs : int — (node, round) pairs taken from a checkpoint
+    resumed_jobs : int — results of finished jobs taken from a checkpoint: (node, round)
+        tallies and heating steps
+    resumed_by_stage : dict — stage name -> how many of them
     notes : tuple of str — stages skipped and why; the check's warnings as
         ``warning: WHERE: WHAT``
     """
@@ -85,6 +86,7 @@ class RunResult:
     workers: int = 1
     elapsed_s: dict = field(default_factory=dict)
     resumed_jobs: int = 0
+    resumed_by_stage: dict = field(default_factory=dict)
     notes: tuple = ()
 
     def describe(self) -> str:
@@ -114,7 +116,8 @@ class RunResult:
             lines.append(f"  view factors >= {sig_level:g}: largest one-sigma relative error "
                          f"{100 * rel:.2f} %{target}")
         if self.resumed_jobs:
-            lines.append(f"  {self.resumed_jobs} (node, round) tallies taken from the checkpoint")
+            parts = ", ".join(f"{stage} {count}" for stage, count in self.resumed_by_stage.items())
+            lines.append(f"  taken from the checkpoint: {parts}")
         for n in self.notes:
             lines.append(f"  {n}" if n.startswith("warning: ") else f"  note: {n}")
         return "\n".join(lines)
@@ -160,24 +163,19 @@ def _refuse_overwriting_inputs(out: Path, model) -> None:
 
 
 # ---------------------------------------------------------------------------------------
-# Jobs: (round, block of nodes) -> integer tallies
+# The shared route: one runner and one checkpoint for every stage
 # ---------------------------------------------------------------------------------------
-def _pair_chunks(count: int, parallel: int, checkpointed: bool = False) -> list:
-    """Slices cutting ``count`` (node, round) pairs into jobs: one job in this process,
-    four per worker otherwise (so that the load balances); at least eight when a
-    checkpoint is kept, so that an interrupted batch leaves finished jobs behind."""
-    if count == 0:
-        return []
-    pieces = 1 if parallel <= 1 else 4 * parallel
-    if checkpointed:
-        pieces = max(pieces, 8)
-    pieces = min(count, pieces)
-    bounds = np.linspace(0, count, pieces + 1).round().astype(np.int64)
-    return [slice(int(a), int(b)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
+def _runner(geometry, scene, model, workers, scheduler):
+    key = f"{model.sha256}:{geometry.n_facets}"
+    if scheduler is not None:
+        return DaskRunner(geometry, key, scheduler)
+    if workers > 1:
+        return ProcessRunner(geometry, key, workers)
+    return SerialRunner(geometry, scene)
 
 
 # ---------------------------------------------------------------------------------------
-# View factors over a runner
+# Notes
 # ---------------------------------------------------------------------------------------
 #: Share of a node's emission lost on inert sides above which the run says so [1]: the
 #: summary's warning threshold (one constant, in summary.py).
@@ -195,103 +193,6 @@ def _inert_notes(geometry, view_factors) -> list:
             notes.append(f"node {name!r} sends {100 * share:.0f} % of its emission to inert "
                          f"sides (lost in the network); consider giving those sides a node")
     return notes
-
-
-def _view_factors(radiation, model, geometry, scene, *, rays_per_node, seed, workers,
-                  scheduler, resume, facet_factors, checkpoint, reporter):
-    """View factors in this process, or by jobs of (node, round) pairs over a runner.
-
-    The jobs are exactly the (node, round) pairs that
-    :func:`vfactor.radiation.compute_view_factors` traces, convergence rounds included, so
-    both routes give the same integer sums and hence the same bits.
-    """
-    settings = model.radiation
-    target = settings.target_error
-    max_rays = getattr(settings, "max_rays_per_node", None)
-    distributed = workers > 1 or scheduler is not None
-    if not distributed and not resume or facet_factors:
-        # facet-level factors need the per-ray record of the in-process kernel
-        vf = radiation.compute_view_factors(geometry, scene, rays_per_node=rays_per_node,
-                                            seed=seed, target_error=target,
-                                            max_rays_per_node=max_rays,
-                                            facet_factors=facet_factors, reporter=reporter,
-                                            smooth=settings.smoothing)
-        return vf, 0
-    n = geometry.n_nodes
-    min_rounds = radiation.MIN_ROUNDS
-    m, max_rounds = radiation.round_sizes(rays_per_node, max_rays)
-    sums = radiation.TallySums.empty(n, m)
-    ckpt = None
-    resumed = 0
-    if resume:
-        ckpt = Checkpoint(checkpoint, model_sha256=model.sha256, seed=seed,
-                           rays_per_round=m, n_nodes=n)
-        resumed_pairs = ckpt.load()
-        if resumed_pairs:
-            reporter.message(f"resuming: {resumed_pairs} (node, round) tallies from {checkpoint}")
-    key = f"{model.sha256}:{geometry.n_facets}"
-    if scheduler is not None:
-        runner = DaskRunner(geometry, key, scheduler)
-    elif workers > 1:
-        runner = ProcessRunner(geometry, key, workers)
-    else:
-        runner = SerialRunner(geometry, scene)
-    try:
-        with reporter.stage("view factors", total=n * min_rounds * m, unit="rays") as bar:
-            counter = [0]
-
-            def trace(pair_node, pair_round):
-                counter[0] += _run_pairs(runner, pair_node, pair_round, sums, ckpt, seed, m,
-                                         bar)
-
-            # the one round loop of radiation.compute_view_factors: the same pairs
-            radiation.run_rounds(sums, trace, target_error=target, max_rounds=max_rounds,
-                                 bar=bar)
-            resumed += counter[0]
-    except BaseException:
-        runner.abort()
-        if ckpt is not None:
-            # keep the finished work for --resume; a full disk here must not hide the
-            # error that stopped the run
-            with contextlib.suppress(atomic.OutputError):
-                ckpt.save()
-        raise
-    runner.close()
-    if ckpt is not None:
-        ckpt.save()
-    # converged=None: decided from target_error as compute_view_factors decides it
-    vf = radiation.view_factors_from_tallies(geometry, sums, target_error=target,
-                                             converged=None, smooth=settings.smoothing)
-    return vf, resumed
-
-
-def _run_pairs(runner, pair_node, pair_round, sums, ckpt, seed, m, bar) -> int:
-    """Trace the (node, round) pairs not in the checkpoint; add all of them to ``sums``.
-
-    Returns the number of pairs taken from the checkpoint.
-    """
-    todo = np.ones(pair_node.size, bool)
-    if ckpt is not None:
-        done_nodes, done_rows = [], []
-        for p, (i, r) in enumerate(zip(pair_node.tolist(), pair_round.tolist())):
-            row = ckpt.tallies.get((r, i))
-            if row is not None:
-                done_nodes.append(i)
-                done_rows.append(row)
-                todo[p] = False
-        if done_rows:
-            sums.add_pairs(done_nodes, PairTallies.concat(done_rows))
-            bar.advance(m * len(done_rows))
-    nodes, rounds = pair_node[todo], pair_round[todo]
-    parallel = max(1, getattr(runner, "workers", 1) or 4)
-    jobs = [(nodes[sl], rounds[sl])
-            for sl in _pair_chunks(nodes.size, parallel, checkpointed=ckpt is not None)]
-    for (job_nodes, job_rounds), tallies in runner.map(jobs, seed, m):
-        sums.add_pairs(job_nodes, tallies)
-        if ckpt is not None:
-            ckpt.add(job_rounds, job_nodes, tallies)
-        bar.advance(len(job_nodes) * m)
-    return int((~todo).sum())
 
 
 # ---------------------------------------------------------------------------------------
@@ -358,12 +259,16 @@ def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=N
 def _run(model_path, out: Path, *, rays, seed, workers, scheduler, resume, facet_factors,
          reporter) -> RunResult:
     """:func:`run` after the argument checks, holding the output's lock."""
-    from . import radiation
+    from . import radiation, stagework
     from .checks import require_clean
+    from .environment import environment_from_table
+    from .exchange import compute_exchange, traced_band
     from .geometry import build_geometry
     from .h5io import write_results
+    from .heating import HeatingSteps, compute_heating
     from .model import load_model
     from .tracing.scene import Scene
+    from .trajectory import trajectory_from_model
 
     elapsed = {}
     t_start = time.perf_counter()
@@ -391,45 +296,81 @@ def _run(model_path, out: Path, *, rays, seed, workers, scheduler, resume, facet
     elapsed["scene"] = time.perf_counter() - t0
 
     view_factors = exchange = trajectory = heating = None
-    resumed = 0
-    t0 = time.perf_counter()
-    view_factors, resumed = _view_factors(
-        radiation, model, geometry, scene, rays_per_node=rays_per_node, seed=seed,
-        workers=workers, scheduler=scheduler, resume=resume, facet_factors=facet_factors,
-        checkpoint=checkpoint_path(out), reporter=reporter)
-    elapsed["view_factors"] = time.perf_counter() - t0
-    if facet_factors and (workers > 1 or scheduler is not None or resume):
-        notes.append("--facet-factors: view factors traced in this process, without "
-                     "workers or checkpoint (the per-ray record is not shared)")
-
-    notes.extend(_inert_notes(geometry, view_factors))
-
-    t0 = time.perf_counter()
-    exchange = radiation.compute_exchange(geometry, scene, view_factors,
-                                          rays_per_node=rays_per_node, seed=seed, band="ir",
-                                          reporter=reporter, drop_tolerance=getattr(
-                                              model.radiation, "gebhart_drop_tolerance",
-                                              None))
-    elapsed["exchange"] = time.perf_counter() - t0
-
-    t0 = time.perf_counter()
-    from .trajectory import trajectory_from_model
-
-    trajectory = trajectory_from_model(model)
-    elapsed["trajectory"] = time.perf_counter() - t0
-    if trajectory is not None:
-        from .environment import environment_from_table
-        from .heating import compute_heating
-
-        environment = environment_from_table(model.environment_table, model.path)
+    shared = workers > 1 or scheduler is not None or resume
+    runner = ckpt = None
+    resumed = {}
+    if shared:
+        if resume:
+            ckpt = Checkpoint(checkpoint_path(out), model_sha256=model.sha256, seed=seed,
+                              n_nodes=geometry.n_nodes)
+            held = ckpt.load()
+            if held:
+                reporter.message(f"resuming: {held} finished jobs' results from "
+                                 f"{ckpt.path}")
+        runner = _runner(geometry, scene, model, workers, scheduler)
+    try:
         t0 = time.perf_counter()
-        heating = compute_heating(
-            geometry, scene, trajectory, environment, view_factors=view_factors,
-            rays_per_facet=int(settings.planet_rays_per_facet),
-            sun_samples=int(settings.sun_rays_per_facet), seed=seed, reporter=reporter)
-        elapsed["heating"] = time.perf_counter() - t0
-    else:
-        notes.append("the model has no [orbit]: couplings only, no heat loads")
+        if runner is not None and not facet_factors:
+            view_factors, resumed["view factors"] = stagework.view_factors_on(
+                runner, geometry, settings, rays_per_node=rays_per_node, seed=seed,
+                checkpoint=ckpt, reporter=reporter)
+        else:
+            # facet-level factors need the per-ray record of the in-process kernel
+            view_factors = radiation.compute_view_factors(
+                geometry, scene, rays_per_node=rays_per_node, seed=seed,
+                target_error=settings.target_error,
+                max_rays_per_node=getattr(settings, "max_rays_per_node", None),
+                facet_factors=facet_factors, reporter=reporter, smooth=settings.smoothing)
+            if shared:
+                notes.append("--facet-factors: view factors traced in this process, without "
+                             "workers or checkpoint (the per-ray record is not shared)")
+        elapsed["view_factors"] = time.perf_counter() - t0
+        notes.extend(_inert_notes(geometry, view_factors))
+
+        t0 = time.perf_counter()
+        if runner is not None and traced_band(geometry, "ir"):
+            exchange, resumed["Gebhart factors"] = stagework.gebhart_on(
+                runner, geometry, band="ir", rays_per_node=rays_per_node, seed=seed,
+                checkpoint=ckpt, reporter=reporter)
+        else:
+            exchange = compute_exchange(geometry, scene, view_factors,
+                                        rays_per_node=rays_per_node, seed=seed, band="ir",
+                                        reporter=reporter,
+                                        drop_tolerance=settings.gebhart_drop_tolerance)
+        elapsed["exchange"] = time.perf_counter() - t0
+
+        t0 = time.perf_counter()
+        trajectory = trajectory_from_model(model)
+        elapsed["trajectory"] = time.perf_counter() - t0
+        if trajectory is not None:
+            environment = environment_from_table(model.environment_table, model.path)
+            t0 = time.perf_counter()
+            heat_args = dict(view_factors=view_factors,
+                             rays_per_facet=int(settings.planet_rays_per_facet),
+                             sun_samples=int(settings.sun_rays_per_facet), seed=seed)
+            if runner is not None:
+                task = HeatingSteps.of(geometry, scene, trajectory, environment, **heat_args)
+                heating, resumed["heating steps"] = stagework.heating_on(
+                    runner, geometry, task, checkpoint=ckpt, reporter=reporter)
+            else:
+                heating = compute_heating(geometry, scene, trajectory, environment,
+                                          reporter=reporter, **heat_args)
+            elapsed["heating"] = time.perf_counter() - t0
+        else:
+            notes.append("the model has no [orbit]: couplings only, no heat loads")
+    except BaseException:
+        if runner is not None:
+            runner.abort()
+        if ckpt is not None:
+            # keep the finished work for --resume; a full disk here must not hide the
+            # error that stopped the run
+            with contextlib.suppress(atomic.OutputError):
+                ckpt.save()
+        raise
+    if runner is not None:
+        runner.close()
+    if ckpt is not None:
+        ckpt.save()
 
     elapsed["total"] = time.perf_counter() - t_start
     provenance = {"seed": seed, "rays_per_node": rays_per_node, "elapsed_s": elapsed,
@@ -441,10 +382,12 @@ def _run(model_path, out: Path, *, rays, seed, workers, scheduler, resume, facet
                   exchange=exchange, trajectory=trajectory, heating=heating,
                   provenance=provenance, inputs=_model_inputs(model))
     elapsed["write"] = time.perf_counter() - t0
-    if resume:
-        checkpoint_path(out).unlink(missing_ok=True)
+    if ckpt is not None:
+        ckpt.remove()
     return RunResult(output=out, model=model, geometry=geometry, view_factors=view_factors,
                      exchange=exchange, trajectory=trajectory, heating=heating, seed=seed,
                      rays_per_node=rays_per_node,
                      workers=int(workers) if scheduler is None else 0, elapsed_s=elapsed,
-                     resumed_jobs=resumed, notes=tuple(notes))
+                     resumed_jobs=sum(resumed.values()),
+                     resumed_by_stage={k: v for k, v in resumed.items() if v},
+                     notes=tuple(notes))

@@ -1,11 +1,20 @@
-"""Where the (node, round) jobs of the view factors run: one interface, three runners.
+"""Where the jobs of a run are computed: one interface, three runners.
 
-Every runner has ``map(jobs, seed, rays_per_round)`` (an iterator of ``(nodes, rounds,
-tallies)`` as jobs finish) and ``close()``: :class:`SerialRunner` traces in this process,
+A *task* describes one kind of work and is sent once to every worker: ``task.key`` (a
+string naming its payload), ``task.prepare(geometry, scene, reporter=None)`` (what a worker
+computes once per task, e.g. the heating stage's cached escape directions) and
+``task.run(state, job)`` (one job; a pure function of the task and the job, so that the
+result does not depend on where it runs). The tasks of a run are
+:class:`vfactor.radiation.ViewRounds`, :class:`vfactor.exchange.GebhartRounds` and
+:class:`vfactor.heating.HeatingSteps`.
+
+Every runner has ``map(task, jobs)`` (an iterator of ``(job, result)`` as jobs finish),
+``close()`` and ``abort()``: :class:`SerialRunner` computes in this process,
 :class:`ProcessRunner` in ``workers`` processes on this machine
-(:class:`concurrent.futures.ProcessPoolExecutor`, ``spawn``; each builds the scene once),
-:class:`DaskRunner` on a dask.distributed cluster (the geometry sent once to every
-worker). Worker processes die with their parent (:func:`die_with_parent`).
+(:class:`concurrent.futures.ProcessPoolExecutor`, ``spawn``; each builds the scene once
+and prepares each task once), :class:`DaskRunner` on a dask.distributed cluster (geometry
+and task sent once to every worker; each worker process prepares a task once). Worker
+processes die with their parent (:func:`die_with_parent`).
 """
 
 from __future__ import annotations
@@ -66,15 +75,14 @@ def _watch_parent(parent_pid: int) -> None:
             os._exit(1)  # no cleanup: the parent's temporaries are cleaned by the next write
 
 
-def _init_worker(geometry, key, threads=None, parent_pid=None):
-    """Process-pool initializer: keep the geometry and build its scene once per process.
+def _init_worker(geometry, key, threads=None, parent_pid=None, task=None):
+    """Process-pool initializer: keep the geometry, build its scene and prepare ``task``
+    once per process.
 
     ``threads``: numba threads of this process (the machine's cores shared among the
     workers, so that N workers do not each start one thread per core). ``parent_pid``:
     the process that started the pool; the worker dies with it (:func:`die_with_parent`).
     """
-    from .tracing.scene import Scene
-
     if parent_pid is not None:
         die_with_parent(parent_pid)
 
@@ -82,44 +90,81 @@ def _init_worker(geometry, key, threads=None, parent_pid=None):
         import numba
 
         numba.set_num_threads(max(1, min(int(threads), numba.config.NUMBA_NUM_THREADS)))
+    _load_geometry(geometry, key)
+    if task is not None:
+        _prepared(task)
+
+
+def _load_geometry(geometry, key):
+    from .tracing.scene import Scene
+
     _WORKER_STATE.clear()
     _WORKER_STATE["key"] = key
     _WORKER_STATE["geometry"] = geometry
     _WORKER_STATE["scene"] = Scene.build(geometry.vertices, geometry.triangles)
 
 
-def _job_in_worker(nodes, rounds, seed, rays_per_round):
-    from .radiation import trace_pairs
+def _prepared(task):
+    """The worker's prepared state of ``task`` (prepared on first use; one task kept)."""
+    if _WORKER_STATE.get("task_key") != task.key:
+        _WORKER_STATE.pop("task_state", None)
+        _WORKER_STATE["task_state"] = task.prepare(_WORKER_STATE["geometry"],
+                                                   _WORKER_STATE["scene"])
+        _WORKER_STATE["task_key"] = task.key
+    return _WORKER_STATE["task_state"]
 
-    return trace_pairs(_WORKER_STATE["geometry"], _WORKER_STATE["scene"], nodes, rounds, seed,
-                       rays_per_round)
+
+def _job_in_worker(task, job):
+    return task.run(_prepared(task), job)
 
 
-def _job_on_dask(geometry, key, nodes, rounds, seed, rays_per_round):
-    """Run one job on a dask worker, building the scene once per worker process."""
-    if _WORKER_STATE.get("key") != key:
-        _init_worker(geometry, key)
-    return _job_in_worker(nodes, rounds, seed, rays_per_round)
+_DASK_LOCK = threading.Lock()
+"""One job at a time per dask worker process: its threads share the worker's state, and
+the numba kernels use every core of the process already."""
+
+
+def _job_on_dask(geometry, key, task, job):
+    """Run one job on a dask worker, building the scene and preparing the task once per
+    worker process."""
+    with _DASK_LOCK:
+        if _WORKER_STATE.get("key") != key:
+            _load_geometry(geometry, key)
+        return _job_in_worker(task, job)
+
+
+def _forget_on_dask(key):
+    """Drop what this dask worker keeps for the run ``key`` (called when the run ends)."""
+    with _DASK_LOCK:
+        if _WORKER_STATE.get("key") == key:
+            _WORKER_STATE.clear()
 
 
 class SerialRunner:
+    """Jobs in this process, one after the other (each job uses every core)."""
+
     workers = 1
 
     def __init__(self, geometry, scene):
         self.geometry, self.scene = geometry, scene
+        self._task_key, self._state = None, None
 
-    def map(self, jobs, seed, rays_per_round):
-        from .radiation import trace_pairs
+    def prepare(self, task, reporter=None):
+        """Prepare ``task`` here (its progress to ``reporter``) before :meth:`map` needs it."""
+        if self._task_key != task.key:
+            self._state = None
+            self._state = task.prepare(self.geometry, self.scene, reporter)
+            self._task_key = task.key
 
-        for nodes, rounds in jobs:
-            yield (nodes, rounds), trace_pairs(self.geometry, self.scene, nodes, rounds, seed,
-                                               rays_per_round)
+    def map(self, task, jobs):
+        self.prepare(task)
+        for job in jobs:
+            yield job, task.run(self._state, job)
 
     def close(self):
-        pass
+        self._state = None
 
     def abort(self):
-        pass
+        self._state = None
 
 
 #: Time a terminated worker gets to exit before it is killed [s].
@@ -127,42 +172,65 @@ _TERMINATE_GRACE_S = 3.0
 
 
 class ProcessRunner:
-    """Jobs over ``workers`` spawned processes; :meth:`abort` ends them at once."""
+    """Jobs over ``workers`` spawned processes; :meth:`abort` ends them at once.
+
+    The pool is started for each task (the task goes to every process once, with the
+    geometry, in the pool's initializer), so that a large payload such as the heating
+    stage's view factors is not pickled with every job.
+    """
 
     def __init__(self, geometry, key, workers):
+        self.workers = workers
+        self._geometry, self._key = geometry, key
+        self._pool, self._task_key = None, None
+        self._before: set = set()
+
+    def prepare(self, task, reporter=None):
+        """Start the pool of ``task`` (the workers prepare it as they start)."""
         import multiprocessing
         from concurrent.futures import ProcessPoolExecutor
 
-        self.workers = workers
+        if self._pool is not None and self._task_key == task.key:
+            return
+        self.close()
         # the pool's processes are the children started from now on (public API:
         # multiprocessing.active_children; the executor keeps its own list private)
-        self._before = set(multiprocessing.active_children())
-        self._pool = ProcessPoolExecutor(max_workers=workers,
-                                         mp_context=multiprocessing.get_context("spawn"),
-                                         initializer=_init_worker,
-                                         initargs=(geometry, key,
-                                                   max(1, (os.cpu_count() or 1) // workers),
-                                                   os.getpid()))
+        before = set(multiprocessing.active_children())
+        with GATE.deferred():
+            self._pool = ProcessPoolExecutor(
+                max_workers=self.workers, mp_context=multiprocessing.get_context("spawn"),
+                initializer=_init_worker,
+                initargs=(self._geometry, self._key,
+                          max(1, (os.cpu_count() or 1) // self.workers), os.getpid(), task))
+        self._task_key = task.key
+        self._before = before
 
-    def map(self, jobs, seed, rays_per_round):
+    def map(self, task, jobs):
         from concurrent.futures import as_completed
 
+        jobs = list(jobs)
+        self.prepare(task)
         with GATE.deferred():  # submit starts the worker processes
-            futures = {self._pool.submit(_job_in_worker, nodes, rounds, seed, rays_per_round):
-                       (nodes, rounds) for nodes, rounds in jobs}
+            futures = {self._pool.submit(_job_in_worker, task, job): i
+                       for i, job in enumerate(jobs)}
         for fut in as_completed(futures):
-            yield futures[fut], fut.result()
+            yield jobs[futures[fut]], fut.result()
 
     def close(self):
-        self._pool.shutdown(wait=True, cancel_futures=True)
+        if self._pool is not None:
+            self._pool.shutdown(wait=True, cancel_futures=True)
+        self._pool, self._task_key = None, None
 
     def abort(self):
         """Stop now (an error, Ctrl-C, SIGTERM): cancel what is queued, SIGTERM the workers,
         SIGKILL those still there after :data:`_TERMINATE_GRACE_S`."""
         import multiprocessing
 
+        if self._pool is None:
+            return
         procs = [p for p in multiprocessing.active_children() if p not in self._before]
         self._pool.shutdown(wait=False, cancel_futures=True)
+        self._pool, self._task_key = None, None
         for p in procs:
             with contextlib.suppress(OSError, ValueError):
                 p.terminate()
@@ -176,6 +244,9 @@ class ProcessRunner:
 
 
 class DaskRunner:
+    """Jobs on a dask.distributed cluster: the geometry and each task are scattered once
+    to every worker; each worker process builds the scene and prepares a task once."""
+
     workers = 0
 
     def __init__(self, geometry, key, address):
@@ -188,21 +259,31 @@ class DaskRunner:
             self._client = Client(address, timeout=30, set_as_default=False)
         except (OSError, TimeoutError, ValueError) as exc:
             raise ArgumentError(f"--scheduler {address}: cannot connect ({exc})") from None
-        self._geometry = self._client.scatter(geometry, broadcast=True)
+        self._geometry = self._client.scatter(geometry, broadcast=True, hash=False)
         self._key = key
+        self._task_key, self._task = None, None
+        self.workers = max(1, len(self._client.scheduler_info().get("workers", {})))
 
-    def map(self, jobs, seed, rays_per_round):
+    def prepare(self, task, reporter=None):
+        if self._task_key != task.key:
+            self._task = self._client.scatter(task, broadcast=True, hash=False)
+            self._task_key = task.key
+
+    def map(self, task, jobs):
         from distributed import as_completed
 
+        self.prepare(task)
         futures = {}
-        for nodes, rounds in jobs:
-            fut = self._client.submit(_job_on_dask, self._geometry, self._key, nodes, rounds,
-                                      seed, rays_per_round, pure=False)
-            futures[fut] = (nodes, rounds)
+        for job in jobs:
+            fut = self._client.submit(_job_on_dask, self._geometry, self._key, self._task,
+                                      job, pure=False)
+            futures[fut] = job
         for fut in as_completed(list(futures), loop=self._client.loop):
             yield futures[fut], fut.result()
 
     def close(self):
+        with contextlib.suppress(Exception):  # the workers may be gone already
+            self._client.run(_forget_on_dask, self._key)
         self._client.close()
 
     def abort(self):
