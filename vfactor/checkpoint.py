@@ -134,7 +134,7 @@ class StepSection:
 
     def _restore(self, z, prefix):
         steps = z[prefix + "steps"]
-        names = [key[len(prefix) + 4:] for key in z.files if key.startswith(prefix + "row.")]
+        names = [key[len(prefix) + 4:] for key in z if key.startswith(prefix + "row.")]
         block = {name: z[prefix + "row." + name] for name in names}
         if any(v.shape[:1] != steps.shape for v in block.values()):
             raise ValueError(f"section {self.name}: inconsistent rows")
@@ -229,6 +229,12 @@ class Checkpoint:
     def steps(self, name, **identity) -> StepSection:
         """The section of heating steps ``name`` for these settings, restored if held."""
         return self._section(StepSection, name, {k: int(v) for k, v in identity.items()})
+
+    def counts(self) -> dict:
+        """Section name -> finished jobs' results it holds (sections in use and held)."""
+        out = {name: int(self._z.count(name, kind)) for name, (kind, _) in self._loaded.items()}
+        out.update({name: len(section) for name, section in self._sections.items()})
+        return out
 
     # -- writing ----------------------------------------------------------------------
     def save_if_due(self):
