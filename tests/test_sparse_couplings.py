@@ -91,3 +91,30 @@ def test_sparse_tallies_equal_dense_sums_bit_for_bit():
 def test_values_at_reads_stored_and_missing_entries():
     A = sp.csr_array(np.array([[0.0, 2.0, 0.0], [1.0, 0.0, 3.0]]))
     np.testing.assert_array_equal(values_at(A, [0, 1, 1, 0], [1, 2, 1, 0]), [2.0, 3.0, 0, 0])
+
+
+def test_results_file_records_the_models_drop_tolerance_and_rows_close(write_model, tmp_path):
+    # the open box of test_pipeline, no inert side, with a coarse tolerance: the file
+    # records the model's tolerance (not the default), and every row of B closes to 1e-12
+    # with its escape to space and the share it dropped
+    import h5py
+
+    from test_pipeline import BOX
+    from vfactor import pipeline
+    from vfactor.h5read import read_coupling_matrix
+
+    text = (BOX.replace("seed = 11", "seed = 11\ngebhart_drop_tolerance = 1e-3")
+            .replace("rays_per_node = 4000", "rays_per_node = 800")
+            .replace('front = { coating = "w", node = "floor" }',
+                     'front = { coating = "w", node = "floor" }\n'
+                     'back = { coating = "w", node = "under" }'))
+    res = pipeline.run(write_model(text), tmp_path / "o.h5")
+    with h5py.File(res.output, "r") as h:
+        g = h["exchange"]
+        assert g.attrs["drop_tolerance"] == 1e-3 and g.attrs["method"] == "matrix"
+        assert np.all(h["view_factors/inert"][()] == 0)
+        dropped = g["dropped"][()]
+        rows = (np.asarray(read_coupling_matrix(g["gebhart"]).sum(axis=1)).ravel()
+                + g["gebhart_space"][()] + dropped)
+    assert dropped.max() > 0                       # the tolerance did leave entries out
+    np.testing.assert_allclose(rows, 1.0, rtol=0, atol=1e-12)

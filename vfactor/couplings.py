@@ -82,7 +82,9 @@ class Exchange:
     method : str — ``"matrix"`` (diffuse linear solve) or ``"monte-carlo"`` (reflection tracing)
     band : str — ``"ir"`` or ``"solar"``
     dropped : (n,) float — share of each node's emission carried by entries left out below
-        :data:`vfactor.gebhart.DROP_TOLERANCE` (reported, never silently lost) [1]
+        the drop tolerance (reported, never silently lost) [1]
+    drop_tolerance : float — entries below this share of a node's emission were left out
+        (0: none; the traced route keeps every entry) [1]
     """
 
     gebhart: sp.csr_array
@@ -93,3 +95,4 @@ class Exchange:
     method: str
     band: str = "ir"
     dropped: np.ndarray | None = None
+    drop_tolerance: float = 0.0

@@ -243,12 +243,13 @@ def compute_exchange(geometry, scene, view_factors: ViewFactors, *, rays_per_nod
     """
     absorb, specular = _band_properties(geometry, band)
     if np.all(specular == 0):
+        tol = DROP_TOLERANCE if drop_tolerance is None else float(drop_tolerance)
         geb = gebhart_matrix(view_factors.matrix, view_factors.space, view_factors.inert,
-                             absorb, drop_tolerance=DROP_TOLERANCE if drop_tolerance is None
-                             else drop_tolerance)
+                             absorb, drop_tolerance=tol)
         return exchange_from_gebhart(geb.gebhart, geb.space, absorb, geometry.nodes.area,
                                      stderr=_matrix_route_stderr(geb, view_factors, absorb),
-                                     method="matrix", band=band, dropped=geb.dropped)
+                                     method="matrix", band=band, dropped=geb.dropped,
+                                     drop_tolerance=tol)
     return monte_carlo_gebhart(geometry, scene, band=band, rays_per_node=rays_per_node,
                                seed=seed, reporter=reporter)
 

@@ -181,7 +181,8 @@ def gebhart_matrix(view_factors_matrix, space, inert, emissivity, *,
 
 
 def exchange_from_gebhart(gebhart, gebhart_space, emissivity, area, *, stderr=None,
-                          method="matrix", band="ir", dropped=None) -> Exchange:
+                          method="matrix", band="ir", dropped=None,
+                          drop_tolerance=0.0) -> Exchange:
     """Exchange areas ``eps_i A_i B_ij`` and to space, packed as :class:`Exchange`.
 
     Parameters
@@ -193,6 +194,7 @@ def exchange_from_gebhart(gebhart, gebhart_space, emissivity, area, *, stderr=No
     stderr : (n, n) csr_array, dense or None — one-sigma error of ``gebhart`` [1]
     method, band : str — recorded in the result
     dropped : (n,) float or None — share of each row left out below the drop tolerance
+    drop_tolerance : float — that tolerance (0: nothing was left out)
 
     Returns
     -------
@@ -217,4 +219,5 @@ def exchange_from_gebhart(gebhart, gebhart_space, emissivity, area, *, stderr=No
             raise ValueError(f"exchange_from_gebhart: stderr must be finite of shape ({n}, {n})")
     drop = np.zeros(n) if dropped is None else finite_array(dropped, "dropped", shape=(n,))
     return Exchange(gebhart=B, gebhart_space=bs, area=as_csr(sp.diags_array(ea) @ B),
-                    area_space=ea * bs, stderr=err, method=method, band=band, dropped=drop)
+                    area_space=ea * bs, stderr=err, method=method, band=band, dropped=drop,
+                    drop_tolerance=float(drop_tolerance))

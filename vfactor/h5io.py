@@ -24,7 +24,6 @@ import numpy as np
 
 from .atomic import OutputError, refuse_inputs, write_bytes
 from .h5read import Results, read_results
-from .gebhart import DROP_TOLERANCE
 from .h5schema import FILE_KIND, SCHEMA_VERSION, SOURCES, h5py_quiet
 from .constants import STEFAN_BOLTZMANN
 from .geometry import Geometry
@@ -234,7 +233,7 @@ def _write_exchange(root, ex: Exchange):
     if ex.dropped is not None:
         _put(g, "dropped", np.asarray(ex.dropped, dtype=np.float64), "1",
              "share of i's emission in Gebhart entries below the drop tolerance, left out")
-        g.attrs["drop_tolerance"] = float(DROP_TOLERANCE)
+        g.attrs["drop_tolerance"] = float(ex.drop_tolerance)
     g.attrs["method"] = str(ex.method)
     g.attrs["band"] = str(ex.band)
 

@@ -133,7 +133,8 @@ def _read_exchange(g) -> Exchange:
                     area=read_coupling_matrix(g["area"]), area_space=g["area_space"][()],
                     stderr=read_coupling_matrix(g["stderr"]) if "stderr" in g else None,
                     method=attr_value(g.attrs["method"]), band=attr_value(g.attrs["band"]),
-                    dropped=g["dropped"][()] if "dropped" in g else None)
+                    dropped=g["dropped"][()] if "dropped" in g else None,
+                    drop_tolerance=float(g.attrs.get("drop_tolerance", 0.0)))
 
 
 def _read_trajectory(g) -> Trajectory:

@@ -7,30 +7,30 @@ trajectory and the absorbed heat loads; then writes everything to one HDF5 file
 
 Sharing the ray tracing
 -----------------------
-The view factors are summed from integer tallies of independent *rounds*
-(:func:`vfactor.radiation.trace_pairs`): one round of one node is a pure function of
-(geometry, seed, node, round, rays per round). The pipeline asks
-:func:`vfactor.radiation.plan_rounds` which (node, round) pairs to trace — the same pairs
-:func:`vfactor.radiation.compute_view_factors` traces — cuts them into jobs
-(:func:`vfactor.radiation.trace_pairs`) and sends them to one of the runners of
-:mod:`vfactor.runners`:
+Every ray-tracing stage is a *task* of :mod:`vfactor.runners` whose jobs are pure
+functions of (geometry, seed, job): the view-factor rounds
+(:class:`vfactor.radiation.ViewRounds`), the traced Gebhart rounds
+(:class:`vfactor.exchange.GebhartRounds`) and the heating steps
+(:class:`vfactor.heating.HeatingSteps`). With one worker and no checkpoint the stages run
+in this process; otherwise :mod:`vfactor.stagework` sends their jobs to one runner for the
+whole run:
 
-* this process (``workers=1``),
 * ``workers`` processes on this machine (:class:`concurrent.futures.ProcessPoolExecutor`,
-  ``spawn`` start method; each process builds the scene once), or
+  ``spawn`` start method; each process prepares a task once), or
 * a dask.distributed cluster (``scheduler="tcp://host:port"``; the optional ``dask``
-  extra), the geometry sent once to every worker.
+  extra), the geometry and each task sent once to every worker.
 
-Integer sums do not depend on the order of addition, so the results are bit-identical for
-any of these and any number of workers.
+Results are combined in job order (integer tallies; heating rows placed by step), so the
+results are bit-identical for any of these and any number of workers.
 
 Resuming
 --------
-With ``resume=True`` finished jobs are kept in a checkpoint file beside the output
-(``OUT.h5.partial``, :mod:`vfactor.checkpoint`), written atomically every few seconds. A rerun
-with ``resume=True`` skips the jobs it holds and gives identical bits. The checkpoint
-records the model hash, seed, rays per round and node count; one from another model or
-seed is refused with a one-line error. It is removed when the results file is written.
+With ``resume=True`` the finished jobs of every stage are kept in a checkpoint file beside
+the output (``OUT.h5.partial``, :mod:`vfactor.checkpoint`, one section per stage), written
+atomically every few seconds. A rerun with ``resume=True`` skips the jobs it holds and gives
+identical bits. The checkpoint records the model hash, seed and node count, each section its
+settings; one from another model or seed is refused with a one-line error. It is removed
+when the results file is written.
 """
 
 from __future__ import annotations
@@ -216,7 +216,7 @@ def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=N
     seed : int, optional
         Random seed; default ``[radiation] seed``.
     workers : int
-        Processes on this machine that share the ray tracing of the view factors.
+        Processes on this machine that share the ray tracing of every stage.
     scheduler : str, optional
         Address of a dask.distributed scheduler to share it with instead.
     resume : bool

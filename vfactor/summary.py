@@ -15,7 +15,6 @@ import numpy as np
 import scipy.sparse as sp
 
 from .constants import STEFAN_BOLTZMANN
-from .gebhart import DROP_TOLERANCE
 from .sparsetools import as_csr, values_at
 from .h5io import Results
 
@@ -238,7 +237,7 @@ def summarize(results: Results, top: int = 15) -> dict:
             "significant_threshold": SIGNIFICANT_VIEW_FACTOR,
             "largest_relative_stderr_significant":
                 vf.largest_relative_error(SIGNIFICANT_VIEW_FACTOR),
-            "gebhart_drop_tolerance": DROP_TOLERANCE,
+            "gebhart_drop_tolerance": None if ex is None else ex.drop_tolerance,
             "largest_gebhart_dropped": float(dropped.max()) if n else 0.0,
             "smoothing_method": vf.method,
             "largest_adjustment_sigma": float(vf.adjustment_sigma),
