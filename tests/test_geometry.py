@@ -237,3 +237,55 @@ def test_zero_area_facets_raise_in_strict_mode(tmp_path):
         geo('[[parts]]\nname = "f"\nshape = "mesh"\nfile = "flat.obj"\n'
             'front = { coating = "w" }\n', tmp_path)
     assert info.value.facets == (0,)
+
+
+def test_per_patch_cuts_each_face_into_patches():
+    # a 1 m box refined to 0.05 m edges, faces cut into 0.25 m patches: 4 x 4 patches per
+    # face; a rectangle (one face) gets PART.K names; the areas add up to the face areas
+    # (elementary geometry), every patch lies within one face and one 0.25 m cube
+    g = geo("""
+[[parts]]
+name = "body"
+shape = "box"
+size = [1, 1, 1]
+max_edge = 0.05
+front = { coating = "w", nodes = "per-patch", patch_size = 0.25 }
+[[parts]]
+name = "wing"
+shape = "rectangle"
+size = [1, 0.5]
+center = [0, 2, 0]
+max_edge = 0.05
+front = { coating = "b", nodes = "per-patch", patch_size = 0.25 }
+back = { coating = "w", nodes = "per-patch", patch_size = 0.25 }
+""")
+    names = g.nodes.names
+    assert len(names) == 6 * 16 + 2 * 8
+    assert names[:2] == ("body.+x.0", "body.+x.1") and names[16] == "body.-x.0"
+    assert names[96] == "wing.0" and names[-1] == "wing.7.back"
+    np.testing.assert_allclose(g.nodes.area[:96].reshape(6, 16).sum(axis=1), 1.0, rtol=1e-12)
+    np.testing.assert_allclose(g.nodes.area[96:104].sum(), 0.5, rtol=1e-12)
+    centroids = g.vertices[g.triangles].mean(axis=1)
+    for k in range(96):
+        on = g.front_node == k
+        assert len(set(map(tuple, np.round(g.normals[on], 12)))) == 1    # one face
+        assert np.all(np.ptp(centroids[on], axis=0) < 0.25)               # one cube
+    # whole facets of 0.05 m: a patch is 0.0625 m2 to within a row of facets
+    assert np.all(np.abs(g.nodes.area[:96] - 0.0625) < 0.25 * 0.05 * 2)
+
+
+@pytest.mark.parametrize("side, message", [
+    ('{ coating = "w", nodes = "per-patch" }', "needs patch_size"),
+    ('{ coating = "w", patch_size = 0.1 }', "belongs to nodes"),
+    ('{ coating = "w", nodes = "per-patch", patch_size = -1 }', "patch_size"),
+])
+def test_per_patch_needs_a_positive_patch_size(side, message):
+    with pytest.raises(ModelError, match=message) as err:
+        geo(f"""
+[[parts]]
+name = "p"
+shape = "rectangle"
+size = [1, 1]
+front = {side}
+""")
+    assert "\n" not in str(err.value)

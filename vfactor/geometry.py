@@ -22,7 +22,15 @@ side setting        front side                   back side
 ``per-facet``       ``PART.I`` (``wing.3``,      ``PART.I.back``
                     I = facet index in the part
                     from 0)
+``per-patch``       ``PART.FACE.K`` (``body.+x.  ``PART.FACE.K.back``
+                    4``; one-face shapes
+                    ``PART.K``)
 ==================  ===========================  ================================
+
+``per-patch`` cuts every face into patches: the facets whose centroids fall into one
+cube of edge ``patch_size`` (a grid in the part's frame, starting at the face's lowest
+centroid coordinates) form one node; K numbers the patches of a face from 0 in order of
+their first facet. Whole facets go to a patch, so a patch is as fine as the facets allow.
 
 A one-face shape (rectangle, disk, sphere, dish) gives ``per-face`` and ``per-group`` the
 names of ``single``; on primitives ``per-group`` equals ``per-face``; on meshes
@@ -191,9 +199,35 @@ def _names_for(part, side, tess, facets, back: bool, selection=None):
         used, local = np.unique(tess.face[facets], return_inverse=True)
         return ([f"{part.name}.{tess.labels[k]}{suffix}" for k in used],
                 local.reshape(-1).astype(np.int64))
+    if mode == "per-patch":
+        return _patches(part, side.patch_size, tess, facets, suffix)
     # per-facet
     return ([f"{part.name}.{int(i)}{suffix}" for i in facets],
             np.arange(len(facets), dtype=np.int64))
+
+
+def _patches(part, size, tess, facets, suffix):
+    """``per-patch`` names: facets binned by centroid into cubes of edge ``size`` per face."""
+    centroids = tess.vertices[tess.triangles[facets]].mean(axis=1)
+    face = tess.face[facets]
+    cell = np.empty((len(facets), 3), np.int64)
+    for k in np.unique(face):
+        on = face == k
+        cell[on] = np.floor((centroids[on] - centroids[on].min(axis=0)) / size)
+    key = np.column_stack([face, cell])
+    _, first, inverse = np.unique(key, axis=0, return_index=True, return_inverse=True)
+    order = np.argsort(first, kind="stable")         # patches in order of first facet
+    rank = np.empty(len(order), np.int64)
+    rank[order] = np.arange(len(order))
+    local = rank[inverse.reshape(-1)]
+    patch_face = face[first[order]]
+    names, count = [], {}
+    for k in patch_face.tolist():
+        index = count.get(k, 0)
+        count[k] = index + 1
+        base = part.name if tess.one_face else f"{part.name}.{tess.labels[k]}"
+        names.append(f"{base}.{index}{suffix}")
+    return names, local
 
 
 def _side_assignment(part, tess, chooser, back: bool):

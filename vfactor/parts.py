@@ -25,8 +25,9 @@ defaults to the model x axis made orthogonal to ``z_axis`` (the model y axis whe
 
 A side is ``{ coating = "NAME", node = "NODE" }`` or
 ``{ coating = "NAME", nodes = "single" | "per-face" | "per-facet" | "per-group" }``
-(``nodes = "single"`` when neither is given); see :mod:`vfactor.geometry` for the
-generated node names. A part without ``front`` and ``back`` only casts shadows.
+(``nodes = "single"`` when neither is given), or ``{ coating = "NAME", nodes =
+"per-patch", patch_size = L }`` (each face cut into patches of about ``L`` on a side, in
+the model's length unit); see :mod:`vfactor.geometry` for the generated node names. A part without ``front`` and ``back`` only casts shadows.
 
 Selections
 ----------
@@ -77,9 +78,9 @@ LENGTH_UNITS = {"m": 1.0, "cm": 0.01, "mm": 0.001, "in": 0.0254, "ft": 0.3048}
 pound agreement)."""
 
 SHAPES = ("rectangle", "disk", "box", "cylinder", "cone", "sphere", "dish", "mesh")
-NODE_MODES = ("single", "per-face", "per-facet", "per-group")
+NODE_MODES = ("single", "per-face", "per-facet", "per-group", "per-patch")
 
-_SIDE_KEYS = ("coating", "node", "nodes")
+_SIDE_KEYS = ("coating", "node", "nodes", "patch_size")
 _COMMON_PART_KEYS = ("name", "shape", "center", "z_axis", "x_axis", "max_edge", "front",
                      "back", "description", "select")
 _SHAPE_KEYS = {
@@ -130,13 +131,16 @@ class Side:
     ----------
     coating : str — name of a ``[coatings.NAME]`` table
     node : str or None — explicit node name for the whole side
-    nodes : str — ``single``, ``per-face``, ``per-facet`` or ``per-group`` (ignored when
-        ``node`` is given)
+    nodes : str — ``single``, ``per-face``, ``per-facet``, ``per-group`` or ``per-patch``
+        (ignored when ``node`` is given)
+    patch_size : float or None — edge of the cubes that cut a face into patches, for
+        ``per-patch`` [m]
     """
 
     coating: str
     node: str | None = None
     nodes: str = "single"
+    patch_size: float | None = None
 
 
 @dataclass(frozen=True)
@@ -353,10 +357,10 @@ def _read_part(tab, pname, shape, index, where, reader, coatings, scale, base,
                          f"per edge); use a larger max_edge")
     front = back = None
     if "front" in tab:
-        front = _read_side(tab["front"], f"{where} front", reader, coatings)
+        front = _read_side(tab["front"], f"{where} front", reader, coatings, scale)
     if "back" in tab:
-        back = _read_side(tab["back"], f"{where} back", reader, coatings)
-    selections = _read_selections(tab.get("select"), pname, where, reader, coatings)
+        back = _read_side(tab["back"], f"{where} back", reader, coatings, scale)
+    selections = _read_selections(tab.get("select"), pname, where, reader, coatings, scale)
     if front is None and back is None and not any(
             (s.sets_front and s.front) or (s.sets_back and s.back) for s in selections):
         reader.warning(where, "no front and no back side: the part only casts shadows")
@@ -365,7 +369,7 @@ def _read_part(tab, pname, shape, index, where, reader, coatings, scale, base,
                 selections=selections)
 
 
-def _read_selections(value, pname, where, reader, coatings) -> tuple:
+def _read_selections(value, pname, where, reader, coatings, scale) -> tuple:
     """The ``[[parts.select]]`` tables of one part (see the module docstring)."""
     if value is None:
         return ()
@@ -406,7 +410,7 @@ def _read_selections(value, pname, where, reader, coatings) -> tuple:
                 if tab[key] is False:
                     sides[key] = None
                 else:
-                    sides[key] = _read_side(tab[key], f"{at} {key}", reader, coatings)
+                    sides[key] = _read_side(tab[key], f"{at} {key}", reader, coatings, scale)
             if not omit and not sides:
                 reader.error(at, "selects groups but gives them neither front nor back nor "
                              "omit = true; add a side (front = { coating = ... }) or omit")
@@ -469,7 +473,7 @@ def _mesh_unit(tab, fname, where, reader, scale, user_scale) -> float:
     return LENGTH_UNITS[unit]
 
 
-def _read_side(value, where: str, reader: Reader, coatings: dict) -> Side:
+def _read_side(value, where: str, reader: Reader, coatings: dict, scale: float) -> Side:
     tab = reader.table(value, where)
     reader.unknown_keys(tab, _SIDE_KEYS, where, "side")
     if "coating" not in tab:
@@ -483,6 +487,9 @@ def _read_side(value, where: str, reader: Reader, coatings: dict) -> Side:
                      f"{hint(coating, coatings)}; coatings are {known}")
     if "node" in tab and "nodes" in tab:
         reader.error(where, "give either 'node' (one named node) or 'nodes' (a mode), not both")
+    if "patch_size" in tab and tab.get("nodes") != "per-patch":
+        reader.error(f"{where} patch_size", "patch_size belongs to nodes = \"per-patch\"; "
+                     "add that mode or remove patch_size")
     if "node" in tab:
         node = reader.name(tab["node"], f"{where} node", "node name")
         if node in NODE_MODES:
@@ -496,7 +503,14 @@ def _read_side(value, where: str, reader: Reader, coatings: dict) -> Side:
             suggestion = f" (to name one node {mode!r}, write node = {mode!r})"
         reader.error(f"{where} nodes", f"unknown node mode {show(mode)}{suggestion}; use one "
                      f"of {', '.join(NODE_MODES)}")
-    return Side(coating=coating, node=None, nodes=mode)
+    patch = None
+    if mode == "per-patch":
+        if "patch_size" not in tab:
+            reader.error(where, "nodes = \"per-patch\" needs patch_size (the edge of a patch, "
+                         f"in {_unit_name(scale)})")
+        patch = _length(reader, tab["patch_size"], f"{where} patch_size", scale,
+                        _unit_name(scale)) * scale
+    return Side(coating=coating, node=None, nodes=mode, patch_size=patch)
 
 
 def _unit_name(scale: float) -> str:
