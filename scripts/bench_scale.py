@@ -1,8 +1,10 @@
 """Benchmark of how a run grows with the number of nodes (generated, invented vehicle).
 
-Models: a 1 m box body and two 1 x 0.5 m panels, every facet its own node (``nodes =
-"per-facet"``, front and back of the panels), refined with ``max_edge`` to about the
-requested node count; a short orbit (12 steps) so that the heating stage stays small.
+Models: a 1 m box body and two 1 x 0.5 m panels (front and back of the panels), cut into
+patches of several facets each (``nodes = "per-patch"``, ``--facets-per-node``, default 5,
+as in a detailed radiation model) or one node per facet (``--facets-per-node 1``), refined
+to about the requested node count; a short orbit (12 steps) so that the heating stage stays
+small.
 Each size runs ``vfactor run`` in a process of its own and prints: nodes, facets,
 non-zero view factors, wall time per stage, peak resident memory of that process, size of
 the results file, and the growth exponents between consecutive sizes (log of the ratio
@@ -12,9 +14,8 @@ this benchmark: memory and file size should grow like the non-zeros, not like n^
 
 Last line: ``scale: N nodes, peak X.X GB, file Y MB, Z s`` for the largest size run.
 
-Run: ``.venv/bin/python scripts/bench_scale.py [--sizes 1000,2000,5000] [--rays 2000]``
-(20,000 nodes needs the sparse layout of a later version: with dense n x n matrices it
-takes more memory than a 24 GB machine has).
+Run: ``.venv/bin/python scripts/bench_scale.py [--sizes 1000,5000,20000] [--rays 2000]
+[--facets-per-node 5]``.
 """
 
 from __future__ import annotations
@@ -45,7 +46,7 @@ name = "body"
 shape = "box"
 size = [1.0, 1.0, 1.0]
 max_edge = {edge:.6g}
-front = {{ coating = "white", nodes = "per-facet" }}
+front = {{ coating = "white", {nodes} }}
 [[parts]]
 name = "wing_a"
 shape = "rectangle"
@@ -53,8 +54,8 @@ size = [1.0, 0.5]
 center = [0.0, 1.3, 0.0]
 z_axis = [1.0, 0.0, 0.0]
 max_edge = {edge:.6g}
-front = {{ coating = "cells", nodes = "per-facet" }}
-back = {{ coating = "white", nodes = "per-facet" }}
+front = {{ coating = "cells", {nodes} }}
+back = {{ coating = "white", {nodes} }}
 [[parts]]
 name = "wing_b"
 shape = "rectangle"
@@ -62,8 +63,8 @@ size = [1.0, 0.5]
 center = [0.0, -1.3, 0.0]
 z_axis = [1.0, 0.0, 0.0]
 max_edge = {edge:.6g}
-front = {{ coating = "cells", nodes = "per-facet" }}
-back = {{ coating = "white", nodes = "per-facet" }}
+front = {{ coating = "cells", {nodes} }}
+back = {{ coating = "white", {nodes} }}
 [orbit]
 type = "circular"
 altitude_km = 500.0
@@ -88,16 +89,26 @@ print(json.dumps({
 """
 
 
-def edge_for(nodes: int) -> float:
-    """max_edge giving about ``nodes`` nodes: the shapes are refined to about 4 / h^2
-    facets per m2 (measured with this script), box 6 m2 + two panels of 0.5 m2 with two
-    sides each."""
-    return math.sqrt(4.0 * (6.0 + 2.0 * 0.5 * 2.0) / nodes)
+# node-carrying area: box 6 m2 + two panels of 0.5 m2 with two sides each; facet area:
+# box 6 m2 + panels 1 m2 (a facet of a panel carries a front and a back node)
+_SIDE_AREA, _FACET_AREA = 6.0 + 2.0 * 0.5 * 2.0, 6.0 + 2.0 * 0.5
 
 
-def one(nodes: int, rays: int, folder: Path) -> dict:
+def mesh_for(nodes: int, facets_per_node: int) -> tuple:
+    """(max_edge, node setting) giving about ``nodes`` nodes of ``facets_per_node`` facets:
+    the shapes are refined to about 4 / h^2 facets per m2 (measured with this script)."""
+    if facets_per_node <= 1:
+        return math.sqrt(4.0 * _SIDE_AREA / nodes), 'nodes = "per-facet"'
+    patch = math.sqrt(_SIDE_AREA / nodes)
+    facets = facets_per_node * nodes * _FACET_AREA / _SIDE_AREA
+    return (math.sqrt(4.0 * _FACET_AREA / facets),
+            f'nodes = "per-patch", patch_size = {patch:.6g}')
+
+
+def one(nodes: int, rays: int, facets_per_node: int, folder: Path) -> dict:
     model = folder / f"scale{nodes}.toml"
-    model.write_text(MODEL.format(rays=rays, edge=edge_for(nodes)))
+    edge, setting = mesh_for(nodes, facets_per_node)
+    model.write_text(MODEL.format(rays=rays, edge=edge, nodes=setting))
     out = folder / f"scale{nodes}.h5"
     done = subprocess.run([sys.executable, "-c", CHILD, str(model), str(out)],
                           capture_output=True, text=True, cwd=ROOT)
@@ -116,15 +127,17 @@ def exponent(a, b, na, nb) -> float:
 
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--sizes", default="1000,2000,5000",
-                    help="node counts, comma-separated (default 1000,2000,5000)")
+    ap.add_argument("--sizes", default="1000,5000,20000",
+                    help="node counts, comma-separated (default 1000,5000,20000)")
     ap.add_argument("--rays", type=int, default=2000, help="rays per node (default 2000)")
+    ap.add_argument("--facets-per-node", type=int, default=5,
+                    help="facets per node (default 5; 1: one node per facet)")
     args = ap.parse_args()
     sizes = [int(s) for s in args.sizes.split(",")]
     rows = []
     with tempfile.TemporaryDirectory() as tmp:
         for n in sizes:
-            row = one(n, args.rays, Path(tmp))
+            row = one(n, args.rays, args.facets_per_node, Path(tmp))
             rows.append(row)
             if "failed" in row:
                 print(f"{n:>7} nodes: failed: {row['failed']}")

@@ -263,6 +263,7 @@ back = { coating = "w", nodes = "per-patch", patch_size = 0.25 }
     assert len(names) == 6 * 16 + 2 * 8
     assert names[:2] == ("body.+x.0", "body.+x.1") and names[16] == "body.-x.0"
     assert names[96] == "wing.0" and names[-1] == "wing.7.back"
+    assert g.node_parts().tolist() == [0] * 96 + [1] * 16
     np.testing.assert_allclose(g.nodes.area[:96].reshape(6, 16).sum(axis=1), 1.0, rtol=1e-12)
     np.testing.assert_allclose(g.nodes.area[96:104].sum(), 0.5, rtol=1e-12)
     centroids = g.vertices[g.triangles].mean(axis=1)

@@ -125,3 +125,26 @@ def test_strongest_pairs_are_the_top_of_the_full_ranking(demo_model_path, tmp_pa
     for top in (1, 4, 15):
         head = summary.summarize(r, top=top)["couplings"]
         assert head["strongest"] == full["strongest"][:top] and head["shown"] == top
+
+
+def test_many_nodes_are_summed_by_part(results, monkeypatch):
+    # above NODE_LIST_LIMIT nodes the text gives per-part sums (here forced at 2 nodes):
+    # a part's loads are the sums of its nodes' loads at every step (min/max of that sum),
+    # and the most loaded nodes are listed by orbit-average total
+    r, kw = results
+    heat = kw["heating"]
+    s = summary.summarize(r, top=1)
+    by_part = {row["part"]: row for row in s["parts"]}
+    assert by_part["top"]["nodes"] == 1 and by_part["top"]["area_m2"] == 1.0
+    total = (heat.node_solar + heat.node_albedo + heat.node_planet_ir)[:, 1]
+    assert by_part["top"]["heat_loads"]["total"]["max_W"] == total.max()
+    assert by_part["top"]["space_view_factor"]["area_weighted"] == pytest.approx(
+        kw["view_factors"].space[1], rel=1e-15)
+    averages = [row["total"]["average_W"] for row in s["heat_loads"]["nodes"]]
+    largest = s["heat_loads"]["largest"]
+    assert len(largest) == 1 and largest[0]["node"] == ("bottom", "top")[int(np.argmax(averages))]
+    monkeypatch.setattr(summary, "NODE_LIST_LIMIT", 1)
+    text = summary.format_summary(r, top=1)
+    assert "Nodes by part (2 nodes" in text and "Couplings to deep space by part" in text
+    assert "nodes of largest orbit-average load" in text
+    assert "Nodes by part" not in summary.format_summary(r, top=1, all_nodes=True)

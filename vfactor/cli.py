@@ -170,7 +170,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("results", metavar="OUT.h5", help="results file of `vfactor run`")
     p.add_argument("--json", action="store_true", help="machine-readable JSON instead of text")
     p.add_argument("--top", metavar="N", type=_positive_int, default=15,
-                   help="number of strongest node-pair couplings to list (default 15)")
+                   help="number of strongest node-pair couplings (and, on models of many "
+                        "nodes, of most loaded nodes) to list (default 15)")
+    p.add_argument("--all-nodes", action="store_true",
+                   help="list every node even on models of more than 200 nodes (whose "
+                        "tables are otherwise summed by part)")
     p.set_defaults(func=_cmd_summary)
 
     p = sub.add_parser(
@@ -266,7 +270,7 @@ def _cmd_summary(args) -> int:
     if args.json:
         print(to_json(summarize(results, top=args.top)))
     else:
-        print(format_summary(results, top=args.top), end="")
+        print(format_summary(results, top=args.top, all_nodes=args.all_nodes), end="")
     return 0
 
 

@@ -7,6 +7,7 @@ and :func:`vfactor.exchange.compute_exchange`; written and read by :mod:`vfactor
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -56,15 +57,15 @@ class ViewFactors:
     facet_matrix: object = None
 
     def largest_relative_error(self, level: float) -> float:
-        """Largest ``stderr / F`` over raw node entries ``F >= level`` (0 when none)."""
+        """Largest ``stderr / F`` over raw node entries ``F >= level`` (NaN when none)."""
         raw, err = self.raw_matrix, self.stderr
         if raw.nnz == 0:
-            return 0.0
+            return math.nan
         same = (raw.nnz == err.nnz and np.array_equal(raw.indptr, err.indptr)
                 and np.array_equal(raw.indices, err.indices))
         e = err.data if same else np.asarray(err[raw.nonzero()]).ravel()
         sig = raw.data >= level
-        return float((e[sig] / raw.data[sig]).max()) if sig.any() else 0.0
+        return float((e[sig] / raw.data[sig]).max()) if sig.any() else math.nan
 
 
 @dataclass(frozen=True)

@@ -164,6 +164,20 @@ class Geometry:
     def n_nodes(self) -> int:
         return len(self.nodes)
 
+    def node_parts(self) -> np.ndarray:
+        """(n,) int — index into ``part_names`` of each node: the part of its first facet
+        (front sides before back sides), -1 for a node without facets."""
+        n, f = self.n_nodes, self.n_facets
+        first = np.full(n, 2 * f, np.int64)
+        for offset, side in ((0, self.front_node), (f, self.back_node)):
+            side = np.asarray(side)
+            on = side >= 0
+            np.minimum.at(first, side[on], np.flatnonzero(on) + offset)
+        part = np.full(n, -1, np.int64)
+        held = first < 2 * f
+        part[held] = np.asarray(self.part)[first[held] % f]
+        return part
+
 
 # --------------------------------------------------------------------------------------
 # Building

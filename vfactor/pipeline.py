@@ -114,7 +114,10 @@ class RunResult:
                       f"; target {vf.target_error:g} " + ("reached" if vf.converged
                                                          else "NOT reached (budget spent)"))
             lines.append(f"  view factors >= {sig_level:g}: largest one-sigma relative error "
-                         f"{100 * rel:.2f} %{target}")
+                         f"{100 * rel:.2f} %{target}" if np.isfinite(rel) else
+                         f"  no view factor reaches {sig_level:g}; largest one-sigma error "
+                         f"{float(vf.stderr.data.max()) if vf.stderr.nnz else 0.0:.2e}"
+                         f"{target}")
         if self.resumed_jobs:
             parts = ", ".join(f"{stage} {count}" for stage, count in self.resumed_by_stage.items())
             lines.append(f"  taken from the checkpoint: {parts}")

@@ -271,11 +271,7 @@ def _by_part(geometry, matrix, to_space, *, weighted):
     import scipy.sparse as sp
 
     n = geometry.n_nodes
-    part = np.zeros(n, dtype=np.int64)
-    for side in (geometry.back_node, geometry.front_node):   # front wins
-        s = np.asarray(side)
-        ok = s >= 0
-        part[s[ok]] = np.asarray(geometry.part)[ok]
+    part = np.maximum(geometry.node_parts(), 0)
     k = len(geometry.part_names)
     P = sp.csr_array((np.ones(n), (np.arange(n), part)), shape=(n, k))
     w = np.asarray(geometry.nodes.area, dtype=np.float64) if weighted else np.ones(n)
@@ -308,7 +304,9 @@ def plot_couplings(results: Results, path, *, batch=None) -> Path:
         matrix, to_space = vf.matrix, vf.space
         label = "view factor F_ij [1]"
         title = "view factors (row = emitting node)"
+    unit = "node"
     if g.n_nodes > MAX_PLOTTED_NODES:
+        unit = "part"
         # many nodes: sums over the nodes of each part (exchange areas add; view factors
         # are area-weighted into part-to-part factors)
         matrix, to_space, names = _by_part(g, matrix, to_space,
@@ -330,8 +328,8 @@ def plot_couplings(results: Results, path, *, batch=None) -> Path:
     if n <= 60:
         ax.set_xticks(range(n + 1), names, rotation=70, ha="right", fontsize=fs)
         ax.set_yticks(range(n), names[:-1], fontsize=fs)
-    ax.set_xlabel("receiving node", fontsize=9)
-    ax.set_ylabel("emitting node", fontsize=9)
+    ax.set_xlabel(f"receiving {unit}", fontsize=9)
+    ax.set_ylabel(f"emitting {unit}", fontsize=9)
     cb = fig.colorbar(img, ax=ax, shrink=0.85)
     cb.set_label(label, fontsize=9)
     ax.set_title(f"{results.model_name}\n{title}; grey = zero", fontsize=10)

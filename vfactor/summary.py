@@ -3,13 +3,16 @@
 :func:`summarize` turns a :class:`vfactor.h5io.Results` into a plain dictionary (the
 ``--json`` output); :func:`format_summary` lays the same numbers out as text: provenance,
 node table, strongest couplings with their statistical error, couplings to space, orbit
-facts, per-node heat loads, and the cautions that go with any such analysis.
+facts, per-node heat loads, and the cautions that go with any such analysis. Above
+:data:`NODE_LIST_LIMIT` nodes the text gives the per-node tables summed by part, with the
+nodes of largest load listed (``all_nodes=True`` lists every node; the JSON always does).
 """
 
 from __future__ import annotations
 
 import json
 import textwrap
+from types import SimpleNamespace
 
 import numpy as np
 import scipy.sparse as sp
@@ -18,7 +21,8 @@ from .constants import STEFAN_BOLTZMANN
 from .sparsetools import as_csr, values_at
 from .h5io import Results
 
-__all__ = ["CAUTIONS", "SIGNIFICANT_VIEW_FACTOR", "summarize", "format_summary", "to_json"]
+__all__ = ["CAUTIONS", "SIGNIFICANT_VIEW_FACTOR", "NODE_LIST_LIMIT", "summarize",
+           "format_summary", "to_json"]
 
 SIGNIFICANT_VIEW_FACTOR = 0.01
 """View factors at or above this value count as significant when the summary reports the
@@ -48,6 +52,9 @@ warns that the ray count is too low [1] (a reporting threshold of our own)."""
 
 #: Share of a node's emission in left-out Gebhart entries above which summary warns.
 DROPPED_WARNING_SHARE = 1e-3
+
+#: Above this many nodes the text summary sums its per-node tables by part.
+NODE_LIST_LIMIT = 200
 
 
 def _warnings(names, inert, relative_error, dropped=None) -> list:
@@ -281,9 +288,67 @@ def summarize(results: Results, top: int = 15) -> dict:
                                          float(heat.solar_constant.max())],
                  "nodes": rows}
 
-    return {"provenance": prov, "nodes": node_rows, "couplings": couplings, "space": space,
+        loads["largest"] = _largest_loads(heat, results.trajectory.time, nodes.names, top)
+    return {"provenance": prov, "nodes": node_rows, "parts": _part_rows(results),
+            "couplings": couplings, "space": space,
             "accuracy": accuracy, "orbit": _orbit_facts(results), "heat_loads": loads,
             "warnings": warnings, "cautions": list(CAUTIONS)}
+
+
+def _part_rows(results: Results) -> list:
+    """Per part: its nodes, facets, area, coatings, coupling to space and summed loads."""
+    from .heating import heating_extremes
+
+    g = results.geometry
+    n, k = g.n_nodes, len(g.part_names)
+    part = g.node_parts()
+    held = part >= 0
+    P = sp.csr_array((np.ones(int(held.sum())), (np.flatnonzero(held), part[held])),
+                     shape=(n, k))
+    area = np.asarray(g.nodes.area, dtype=np.float64)
+    vf, ex, heat = results.view_factors, results.exchange, results.heating
+    ext = None
+    if heat is not None:
+        summed = SimpleNamespace(**{
+            f"node_{src}": np.asarray(getattr(heat, f"node_{src}"), np.float64) @ P
+            for src in _SOURCES})                          # (t, parts): the part's power
+        ext = heating_extremes(summed, results.trajectory.time)
+    rows = []
+    for p in range(k):
+        mine = np.flatnonzero(part == p)
+        row = {"part": g.part_names[p], "nodes": int(mine.size),
+               "facets": int(np.asarray(g.nodes.facet_count)[mine].sum()),
+               "area_m2": float(area[mine].sum()),
+               "coatings": sorted({g.nodes.coating[i] for i in mine.tolist()})}
+        if vf is not None and mine.size:
+            to_space = np.asarray(vf.space, dtype=np.float64)[mine]
+            row["space_view_factor"] = {
+                "area_weighted": float(np.dot(area[mine], to_space) / area[mine].sum()),
+                "min": float(to_space.min()), "max": float(to_space.max())}
+        if ex is not None and mine.size:
+            row["conductance_space_W_K4"] = float(
+                STEFAN_BOLTZMANN * np.asarray(ex.area_space, np.float64)[mine].sum())
+        if ext is not None:
+            row["heat_loads"] = {src: {"average_W": float(ext.average[ext.row(src), p]),
+                                       "min_W": float(ext.minimum[ext.row(src), p]),
+                                       "max_W": float(ext.maximum[ext.row(src), p])}
+                                 for src in _SOURCES + ("total",)}
+        rows.append(row)
+    return rows
+
+
+def _largest_loads(heat, time, names, top) -> list:
+    """The ``top`` nodes of largest orbit-average absorbed power (ties by node order)."""
+    from .heating import heating_extremes
+
+    ext = heating_extremes(heat, time)
+    total = ext.average[ext.row("total")]
+    order = np.lexsort((np.arange(total.size), -total))[:top]
+    return [{"node": names[i], **{src: {"average_W": float(ext.average[ext.row(src), i]),
+                                        "min_W": float(ext.minimum[ext.row(src), i]),
+                                        "max_W": float(ext.maximum[ext.row(src), i])}
+                                  for src in _SOURCES + ("total",)}}
+            for i in order.tolist()]
 
 
 def _finite(value):
@@ -338,9 +403,17 @@ def _hms(seconds) -> str:
     return f"{int(h)} h {int(m):02d} min"
 
 
-def format_summary(results: Results, top: int = 15) -> str:
-    """The summary as text (what ``vfactor summary`` prints)."""
+def _load_cells(r) -> list:
+    return [f"{_g(r[src]['average_W'])} [{_g(r[src]['min_W'])}, {_g(r[src]['max_W'])}]"
+            for src in _SOURCES + ("total",)]
+
+
+def format_summary(results: Results, top: int = 15, all_nodes: bool = False) -> str:
+    """The summary as text (what ``vfactor summary`` prints); above
+    :data:`NODE_LIST_LIMIT` nodes the per-node tables are summed by part unless
+    ``all_nodes``."""
     s = summarize(results, top=top)
+    by_part = len(s["nodes"]) > NODE_LIST_LIMIT and not all_nodes
     p = s["provenance"]
     lines = [f"vfactor results: {p['file']}", ""]
     lines.append("Run")
@@ -360,11 +433,20 @@ def format_summary(results: Results, top: int = 15) -> str:
         run_rows.append((f"time: {stage.replace('_', ' ')}", _hms(sec)))
     lines += [f"  {k:<22}{v}" for k, v in run_rows]
 
-    lines += ["", "Nodes"]
-    lines += _table(["node", "coating", "area [m2]", "alpha", "eps", "facets"],
-                    [(r["name"], r["coating"], _g(r["area_m2"]), f"{r['solar_absorptivity']:.3f}",
-                      f"{r['ir_emissivity']:.3f}", r["facets"]) for r in s["nodes"]],
-                    ["<", "<", ">", ">", ">", ">"])
+    if by_part:
+        lines += ["", f"Nodes by part ({len(s['nodes'])} nodes, more than {NODE_LIST_LIMIT}: "
+                      "summed by part; --all-nodes lists every node, --json gives them all)"]
+        lines += _table(["part", "nodes", "facets", "area [m2]", "coatings"],
+                        [(r["part"], r["nodes"], r["facets"], _g(r["area_m2"]),
+                          ", ".join(r["coatings"])) for r in s["parts"]],
+                        ["<", ">", ">", ">", "<"])
+    else:
+        lines += ["", "Nodes"]
+        lines += _table(["node", "coating", "area [m2]", "alpha", "eps", "facets"],
+                        [(r["name"], r["coating"], _g(r["area_m2"]),
+                          f"{r['solar_absorptivity']:.3f}", f"{r['ir_emissivity']:.3f}",
+                          r["facets"]) for r in s["nodes"]],
+                        ["<", "<", ">", ">", ">", ">"])
 
     if s["couplings"] is not None:
         c = s["couplings"]
@@ -381,20 +463,33 @@ def format_summary(results: Results, top: int = 15) -> str:
                          _g(r.get("conductance_W_K4"))))
         lines += _table(["pair", "view factor", "Gebhart", "exch. area [m2]",
                          "conductance [W K-4]"], rows)
-        lines += ["", "Couplings to deep space (and of each node to itself)"]
-        lines += _table(["node", "view factor", "to itself", "to inert", "Gebhart",
-                         "exch. area [m2]", "conductance [W K-4]", "rays"],
-                        [(r["node"], f"{r['view_factor']:.4f} +- {r['view_factor_stderr']:.1e}",
-                          f"{r['self_view_factor']:.4f}", f"{r['inert']:.4f}",
-                          _g(r.get("gebhart")),
-                          _g(r.get("exchange_area_m2")), _g(r.get("conductance_W_K4")),
-                          f"{r['rays']:,}") for r in s["space"]])
+        if by_part:
+            lines += ["", "Couplings to deep space by part (view factor: area-weighted "
+                          "mean [min, max] over the part's nodes)"]
+            lines += _table(["part", "view factor to space", "conductance [W K-4]"],
+                            [(r["part"], f"{r['space_view_factor']['area_weighted']:.4f} "
+                                         f"[{r['space_view_factor']['min']:.4f}, "
+                                         f"{r['space_view_factor']['max']:.4f}]",
+                              _g(r.get("conductance_space_W_K4")))
+                             for r in s["parts"] if "space_view_factor" in r])
+        else:
+            lines += ["", "Couplings to deep space (and of each node to itself)"]
+            lines += _table(["node", "view factor", "to itself", "to inert", "Gebhart",
+                             "exch. area [m2]", "conductance [W K-4]", "rays"],
+                            [(r["node"],
+                              f"{r['view_factor']:.4f} +- {r['view_factor_stderr']:.1e}",
+                              f"{r['self_view_factor']:.4f}", f"{r['inert']:.4f}",
+                              _g(r.get("gebhart")),
+                              _g(r.get("exchange_area_m2")), _g(r.get("conductance_W_K4")),
+                              f"{r['rays']:,}") for r in s["space"]])
         acc = s["accuracy"]
         lines += ["", "Accuracy"]
         lines.append(f"  largest one-sigma error of any view factor: {acc['largest_stderr']:.2e}")
+        rel = acc["largest_relative_stderr_significant"]
         lines.append(f"  largest relative one-sigma error of view factors >= "
-                     f"{acc['significant_threshold']}: "
-                     f"{100 * acc['largest_relative_stderr_significant']:.2f} %")
+                     f"{acc['significant_threshold']}: " +
+                     (f"{100 * rel:.2f} %" if np.isfinite(rel) else
+                      "none reaches that level (small nodes: judge the absolute error above)"))
         lines += textwrap.wrap(f"reciprocity/closure smoothing: {acc['smoothing_method']}; "
                                f"largest adjustment {acc['largest_adjustment_sigma']:.2f} sigma",
                                width=92, initial_indent="  ", subsequent_indent="    ")
@@ -429,14 +524,17 @@ def format_summary(results: Results, top: int = 15) -> str:
         lines += ["", f"Absorbed heat loads per node [W] (environment case {h['case']}: "
                       f"solar {_g(h['solar_constant_W_m2'][0])}..{_g(h['solar_constant_W_m2'][1])}"
                       f" W m-2, albedo {h['albedo']:g}, planet IR {h['planet_ir_W_m2']:g} W m-2)"]
-        header = ["node"] + [f"{_SOURCE_LABEL[src]}: avg [min, max]"
-                             for src in _SOURCES + ("total",)]
-        rows = []
-        for r in h["nodes"]:
-            rows.append([r["node"]] + [
-                f"{_g(r[src]['average_W'])} [{_g(r[src]['min_W'])}, {_g(r[src]['max_W'])}]"
-                for src in _SOURCES + ("total",)])
-        lines += _table(header, rows)
+        labels = [f"{_SOURCE_LABEL[src]}: avg [min, max]" for src in _SOURCES + ("total",)]
+        if by_part:
+            lines += ["  summed over the nodes of each part (min and max of the part's sum)"]
+            lines += _table(["part"] + labels, [[r["part"]] + _load_cells(r["heat_loads"])
+                                                for r in s["parts"]])
+            lines += ["", f"  the {len(h['largest'])} nodes of largest orbit-average load"]
+            lines += _table(["node"] + labels, [[r["node"]] + _load_cells(r)
+                                                for r in h["largest"]])
+        else:
+            lines += _table(["node"] + labels, [[r["node"]] + _load_cells(r)
+                                                for r in h["nodes"]])
         lines.append("  avg = time average over the steps; reflections inside the vehicle included")
         w = h.get("largest_stderr")
         if w is not None:
