@@ -22,53 +22,25 @@ import h5py
 import numpy as np
 import pytest
 
+from test_pipeline import BOX, ORBIT
 from vfactor import pipeline
 from vfactor.checkpoint import checkpoint_path
 
 distributed = pytest.importorskip("distributed")
 
-MODEL = """
+SHINY = """
 [coatings.shiny]
 solar_absorptivity = 0.3
 ir_emissivity = 0.6
 ir_specular = 0.5
-
-[model]
-name = "open box with specular walls (invented test case)"
-
-[[parts]]
-name = "walls"
-shape = "cylinder"
-radius = 0.5
-length = 0.6
-segments = 4
-caps = false
-front = { coating = "shiny", nodes = "per-face" }
-back = { coating = "w", node = "inside" }
-
-[[parts]]
-name = "floor"
-shape = "rectangle"
-size = [0.6, 0.6]
-center = [0.0, 0.0, -0.3]
-front = { coating = "w", node = "floor" }
-
-[radiation]
-rays_per_node = 1600
-seed = 5
-sun_rays_per_facet = 4
-planet_rays_per_facet = 64
-
-[orbit]
-type = "circular"
-altitude_km = 600.0
-inclination_deg = 51.6
-raan_deg = 0.0
-epoch = "2027-06-21T00:00:00Z"
-orbits = 1
-steps_per_orbit = 6
 """
 
+# test_pipeline's open box and orbit; the walls' outside specular, fewer rays
+MODEL = SHINY + (BOX.replace('front = { coating = "w", nodes = "per-face" }',
+                             'front = { coating = "shiny", nodes = "per-face" }')
+                 .replace("rays_per_node = 4000\nseed = 11",
+                          "rays_per_node = 1600\nseed = 5\nsun_rays_per_facet = 4\n"
+                          "planet_rays_per_facet = 64")) + ORBIT
 
 def _contents(path) -> dict:
     """Every dataset of a results file by path (root attributes are provenance)."""
@@ -96,6 +68,7 @@ def model(tmp_path_factory):
 
     path = tmp_path_factory.mktemp("distributed") / "shiny_box.toml"
     path.write_text(COATING_W + MODEL)
+    assert MODEL.count("shiny") == 2 and "rays_per_node = 1600" in MODEL
     return path
 
 
