@@ -267,6 +267,22 @@ def _write_trajectory(root, tr: Trajectory):
          "rotation matrix; columns are the body axes in the inertial frame")
 
 
+def _write_motion(root, motion):
+    g = root.create_group("hinges")
+    hinges = motion.hinges
+    _put(g, "name", [h.name for h in hinges], "", "hinge names, the order of the angle columns")
+    _put(g, "law", [h.law for h in hinges], "", "law each hinge follows")
+    _put(g, "parent", [h.parent or "" for h in hinges], "", "hinge it rides on ('' none)")
+    _put(g, "axis", np.array([h.axis for h in hinges]), "1",
+         "unit turning axis, body frame of the model as built")
+    _put(g, "point", np.array([h.point for h in hinges]), "m",
+         "a point of the axis, body frame of the model as built")
+    _put(g, "angle", np.degrees(motion.angles), "degree",
+         "hinge angle per step, right-handed about the axis (0: as built)")
+    _put(g, "facet_hinge", motion.owner.astype(np.int32), "1",
+         "index of the hinge that places each facet, -1 for rigid facets")
+
+
 def _write_heating(root, heat: Heating, time):
     g = root.create_group("heating")
     g.attrs["case"] = str(heat.case)
@@ -321,7 +337,7 @@ def _write_heating(root, heat: Heating, time):
 
 
 def _write_all(target, *, model, geometry, view_factors, exchange, trajectory, heating,
-               provenance):
+               provenance, motion=None):
     h5py = h5py_quiet()
 
     prov = dict(provenance or {})
@@ -351,12 +367,14 @@ def _write_all(target, *, model, geometry, view_factors, exchange, trajectory, h
             _write_exchange(root, exchange)
         if trajectory is not None:
             _write_trajectory(root, trajectory)
+        if motion is not None:
+            _write_motion(root, motion)
         if heating is not None:
             _write_heating(root, heating, None if trajectory is None else trajectory.time)
 
 
 def write_results(path, *, model, geometry, view_factors=None, exchange=None,
-                  trajectory=None, heating=None, provenance, inputs=()) -> Path:
+                  trajectory=None, heating=None, provenance, inputs=(), motion=None) -> Path:
     """Write the results of one run to an HDF5 file, atomically.
 
     Parameters
@@ -372,6 +390,8 @@ def write_results(path, *, model, geometry, view_factors=None, exchange=None,
     trajectory : vfactor.trajectory.Trajectory, optional
     heating : vfactor.heating.Heating, optional
         Its (t, ...) arrays must have the steps of ``trajectory``.
+    motion : vfactor.kinematics.Motion, optional
+        Hinges and their angle per step of ``trajectory`` (group ``/hinges``).
     provenance : dict
         Must hold ``seed`` and ``rays_per_node``; ``elapsed_s`` may map stage names to
         seconds (written as root attributes ``elapsed_<stage>_s``); other scalar entries
@@ -410,5 +430,5 @@ def write_results(path, *, model, geometry, view_factors=None, exchange=None,
     image = io.BytesIO()
     _write_all(image, model=model, geometry=geometry, view_factors=view_factors,
                exchange=exchange, trajectory=trajectory, heating=heating,
-               provenance=provenance)
+               provenance=provenance, motion=motion)
     return write_bytes(path, image.getbuffer(), "the results file", inputs=inputs)

@@ -41,6 +41,8 @@ class Results:
         (keys ``solar``, ``albedo``, ``planet_ir``, ``total``)
     facet_average : dict or None — source -> (f,) time-averaged absorbed flux [W m-2]
     orbit_attrs : dict — attributes of /orbit (epoch, period_s, planet, planet_radius_m)
+    hinges : dict or None — ``name``, ``law``, ``parent`` (tuples of str) and ``angle_deg``
+        ((t, h) hinge angle per step [deg]) when parts turn
     """
 
     path: Path
@@ -55,6 +57,7 @@ class Results:
     node_average: dict | None = None
     facet_average: dict | None = None
     orbit_attrs: dict = field(default_factory=dict)
+    hinges: dict | None = None
 
     @property
     def seed(self) -> int:
@@ -234,6 +237,11 @@ def read_results(path, *, dense_couplings=False) -> Results:
             heat = (_read_heating(h["heating"], None if tr is None else tr.time)
                     if "heating" in h else None)
             orbit_attrs = {k: attr_value(v) for k, v in h["orbit"].attrs.items()} if "orbit" in h else {}
+            hinges = None
+            if "hinges" in h:
+                g = h["hinges"]
+                hinges = {key: tuple(g[key].asstr()[()]) for key in ("name", "law", "parent")}
+                hinges["angle_deg"] = g["angle"][()]
             node_avg = facet_avg = None
             if "heating" in h and "average" in h["heating"]:
                 node_avg = {k: v[()] for k, v in h["heating/average"].items()}
@@ -258,4 +266,4 @@ def read_results(path, *, dense_couplings=False) -> Results:
     return Results(path=path, attrs=attrs, model_source=source, model_name=name,
                    geometry=geometry, view_factors=vf, exchange=ex, trajectory=tr,
                    heating=heat, node_average=node_avg, facet_average=facet_avg,
-                   orbit_attrs=orbit_attrs)
+                   orbit_attrs=orbit_attrs, hinges=hinges)

@@ -59,9 +59,10 @@ def attr_value(v):
 # (/facets/vertices), p parts (/facets/part_names), c coatings (/coatings/name), t steps
 # (/orbit/time). Kinds: "real" (any number), "int" (whole numbers), "text".
 _AXIS_SOURCE = {"n": "nodes/name", "f": "facets/triangles", "v": "facets/vertices",
-                "p": "facets/part_names", "c": "coatings/name", "t": "orbit/time"}
+                "p": "facets/part_names", "c": "coatings/name", "t": "orbit/time",
+                "h": "hinges/name"}
 _AXIS_WORD = {"n": "node names", "f": "facets", "v": "vertices", "p": "part names",
-              "c": "coatings", "t": "time steps"}
+              "c": "coatings", "t": "time steps", "h": "hinges"}
 
 _NODE_REALS = ("area", "solar_absorptivity", "ir_emissivity", "solar_specular", "ir_specular")
 _COATING_REALS = ("solar_absorptivity", "ir_emissivity", "solar_specular", "ir_specular")
@@ -91,6 +92,9 @@ _DATASETS = {  # group -> {dataset: (kind, shape)}; every entry is required in i
                 **{k: ("real", ("t", "n")) for k in SOURCES},
                 **{f"incident_{k}": ("real", ("t", "n")) for k in SOURCES}},
     "heating/facet": {k: ("real", ("t", "f")) for k in SOURCES},
+    "hinges": {"name": ("text", ("h",)), "law": ("text", ("h",)), "parent": ("text", ("h",)),
+               "axis": ("real", ("h", 3)), "point": ("real", ("h", 3)),
+               "angle": ("real", ("t", "h")), "facet_hinge": ("int", ("f",))},
     "heating/average": {k: ("real", ("n",)) for k in SOURCES + ("total",)},
     "heating/facet_average": {k: ("real", ("f",)) for k in SOURCES + ("total",)},
 }
@@ -179,6 +183,8 @@ def validate(h, path: Path) -> None:
     for group in _REQUIRED_GROUPS:
         if not isinstance(h.get(group), h5py.Group):
             raise bad(group, "missing (not a complete vfactor results file)")
+    if "hinges" in h and "orbit" not in h:
+        raise bad("orbit", "missing, but /hinges is present and needs its time steps")
     if "heating" in h and "orbit" not in h:
         raise bad("orbit", "missing, but /heating is present and needs its time steps")
     if "heating" in h:

@@ -85,6 +85,7 @@ from typing import NamedTuple
 import numpy as np
 
 from vfactor.constants import SUN_RADIUS_M
+from vfactor.heatmotion import placed_step
 from vfactor.heatstep import Step, bands_of, one_step, prepare, trace_once, unit
 
 __all__ = ["Heating", "HeatingExtremes", "HeatingSteps", "compute_heating", "heating_extremes",
@@ -309,7 +310,7 @@ def _check_inputs(geometry, scene, trajectory, environment, rays_per_facet, sun_
 
 def compute_heating(geometry, scene, trajectory, environment, *, view_factors=None,
                     rays_per_facet=256, sun_samples=16, seed=1, use_cache=True,
-                    reflections=True, replicates=8, max_bounces=16,
+                    reflections=True, replicates=8, max_bounces=16, motion=None,
                     reporter=None) -> Heating:
     """Absorbed solar, albedo and planet IR per node and facet at every trajectory step.
 
@@ -346,6 +347,10 @@ def compute_heating(geometry, scene, trajectory, environment, *, view_factors=No
         Independent randomisations per side for the error estimate (>= 2).
     max_bounces : int
         Longest chain of mirror reflections followed for specular shares.
+    motion : vfactor.kinematics.Motion, optional
+        Turning parts: every step is traced on the vehicle placed at that step's hinge
+        angles (:mod:`vfactor.heatmotion`; ``use_cache`` and ``view_factors`` then do not
+        apply: the placed vehicle's own rays give its couplings).
     reporter : vfactor.progress.Reporter, optional
         Receives a ``"heating: escaping directions"`` stage (facet sides traced once) and
         a ``"heating"`` stage advanced once per step.
@@ -373,7 +378,7 @@ def compute_heating(geometry, scene, trajectory, environment, *, view_factors=No
     task = HeatingSteps.of(geometry, scene, trajectory, environment, view_factors=view_factors,
                            rays_per_facet=rays_per_facet, sun_samples=sun_samples, seed=seed,
                            use_cache=use_cache, reflections=reflections,
-                           replicates=replicates, max_bounces=max_bounces)
+                           replicates=replicates, max_bounces=max_bounces, motion=motion)
     state = task.prepare(geometry, scene, reporter)
     steps = np.arange(task.n_steps)
     with reporter.stage("heating", total=task.n_steps, unit="steps") as bar:
@@ -423,12 +428,13 @@ class HeatingSteps:
     reflections: bool
     replicates: int
     max_bounces: int
+    motion: object = None         # vfactor.kinematics.Motion when parts turn
     key: str = field(default_factory=lambda: "heating:" + uuid.uuid4().hex)
 
     @classmethod
     def of(cls, geometry, scene, trajectory, environment, *, view_factors=None,
            rays_per_facet=256, sun_samples=16, seed=1, use_cache=True, reflections=True,
-           replicates=8, max_bounces=16) -> "HeatingSteps":
+           replicates=8, max_bounces=16, motion=None) -> "HeatingSteps":
         """The task of :func:`compute_heating` with these arguments (checked here)."""
         _check_inputs(geometry, scene, trajectory, environment, rays_per_facet, sun_samples,
                       seed, replicates, max_bounces)
@@ -454,7 +460,7 @@ class HeatingSteps:
                    solar_constant=s_const, case=environment.case,
                    rays_per_facet=int(rays_per_facet), sun_samples=int(sun_samples),
                    seed=int(seed), use_cache=bool(use_cache), reflections=bool(reflections),
-                   replicates=int(replicates), max_bounces=int(max_bounces))
+                   replicates=int(replicates), max_bounces=int(max_bounces), motion=motion)
 
     @property
     def n_steps(self) -> int:
@@ -465,6 +471,8 @@ class HeatingSteps:
         from vfactor.progress import NullReporter
 
         reporter = reporter or NullReporter()
+        if self.motion is not None:       # traced per step on the placed vehicle
+            return None, geometry
         model = prepare(geometry, scene, self.replicates, self.rays_per_facet,
                         self.sun_samples, self.seed, self.max_bounces)
         with reporter.stage("heating: escaping directions", total=max(model.sides.count, 1),
@@ -481,14 +489,17 @@ class HeatingSteps:
 
     def run(self, state, job, bar=None) -> dict:
         """Rows of every output at the steps ``job`` (row ``p`` is step ``job[p]``)."""
-        model, bands = state
+        model, held = state           # rigid: (model, bands); turning parts: (None, geometry)
         ks = np.asarray(job, dtype=np.int64).reshape(-1)
         out = self.empty_rows(ks.size)
         for p, k in enumerate(ks.tolist()):
             sun, centre, solar, fraction, cos_half = self.steps[k]
             step = Step(sun=sun, centre=centre, solar=solar, fraction=fraction,
                         cos_half=cos_half, **self.env)
-            one_step(model, bands, step, self.use_cache, p, out)
+            if model is None:
+                placed_step(self, held, k, step, p, out)
+            else:
+                one_step(model, held, step, self.use_cache, p, out)
             if bar is not None:
                 bar.advance(1)
         return out

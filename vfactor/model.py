@@ -44,6 +44,7 @@ import tomllib
 
 from vfactor.errors import ModelError, Problem
 from vfactor.geometry import Coating
+from vfactor.hinges import read_hinges
 from vfactor.parts import (
     LENGTH_UNITS,
     NODE_MODES,
@@ -68,8 +69,8 @@ __all__ = [
     "load_model_text",
 ]
 
-TOP_LEVEL_SECTIONS = ("model", "coatings", "parts", "radiation", "orbit", "attitude",
-                      "environment")
+TOP_LEVEL_SECTIONS = ("model", "coatings", "parts", "hinges", "radiation", "orbit",
+                      "attitude", "environment")
 """Top-level tables a model file may hold; anything else is an error."""
 
 _MODEL_KEYS = ("name", "length_unit", "description", "allow_outside_files")
@@ -174,6 +175,7 @@ class Model:
     coatings : dict of str -> Coating
     parts : tuple of Part
     radiation : RadiationSettings
+    hinges : tuple of vfactor.hinges.Hinge — parts that turn along the orbit (parents first)
     orbit_table, attitude_table, environment_table : dict or None — raw tables
     description : str
     allow_outside_files : bool — ``[model] allow_outside_files``: mesh files may refer to
@@ -190,6 +192,7 @@ class Model:
     coatings: dict
     parts: tuple
     radiation: RadiationSettings
+    hinges: tuple = ()
     orbit_table: dict | None = None
     attitude_table: dict | None = None
     environment_table: dict | None = None
@@ -325,6 +328,7 @@ def _read_document(doc: dict, text: str, reader: Reader, base: Path) -> Model:
     coatings = _read_coatings(doc.get("coatings"), reader)
     parts = read_parts(doc.get("parts"), reader, coatings, scale, base,
                        allow_outside_files=allow_outside)
+    hinges = read_hinges(doc.get("hinges"), reader, [p.name for p in parts], scale)
     radiation = _read_radiation(doc.get("radiation"), reader)
 
     raw_tables = {}
@@ -346,6 +350,7 @@ def _read_document(doc: dict, text: str, reader: Reader, base: Path) -> Model:
         coatings=coatings,
         parts=tuple(parts),
         radiation=radiation,
+        hinges=hinges,
         orbit_table=raw_tables["orbit"],
         attitude_table=raw_tables["attitude"],
         environment_table=raw_tables["environment"],

@@ -63,6 +63,7 @@ class RunResult:
     model : vfactor.model.Model
     geometry : vfactor.geometry.Geometry
     view_factors, exchange, trajectory, heating : results of each stage (None if not run)
+    motion : vfactor.kinematics.Motion or None — hinge angles per step when parts turn
     seed : int
     rays_per_node : int
     workers : int — processes used for the ray tracing (1 in this process; 0 for dask)
@@ -81,6 +82,7 @@ class RunResult:
     exchange: object = None
     trajectory: object = None
     heating: object = None
+    motion: object = None
     seed: int = 0
     rays_per_node: int = 0
     workers: int = 1
@@ -269,6 +271,7 @@ def _run(model_path, out: Path, *, rays, seed, workers, scheduler, resume, facet
     from .geometry import build_geometry
     from .h5io import write_results
     from .heating import HeatingSteps, compute_heating
+    from .kinematics import motion_of
     from .model import load_model
     from .tracing.scene import Scene
     from .trajectory import trajectory_from_model
@@ -344,13 +347,21 @@ def _run(model_path, out: Path, *, rays, seed, workers, scheduler, resume, facet
 
         t0 = time.perf_counter()
         trajectory = trajectory_from_model(model)
+        motion = None if trajectory is None else motion_of(geometry, model.hinges, trajectory)
         elapsed["trajectory"] = time.perf_counter() - t0
+        if motion is not None:
+            notes.append(f"{len(motion.hinges)} hinge(s) turn parts along the orbit: the "
+                         "stored couplings are those of the model as built (every hinge at "
+                         "0); each heating step uses the vehicle as placed at that step")
+        elif model.hinges:
+            notes.append("the model has hinges but no [orbit]: its parts stay as built")
         if trajectory is not None:
             environment = environment_from_table(model.environment_table, model.path)
             t0 = time.perf_counter()
             heat_args = dict(view_factors=view_factors,
                              rays_per_facet=int(settings.planet_rays_per_facet),
-                             sun_samples=int(settings.sun_rays_per_facet), seed=seed)
+                             sun_samples=int(settings.sun_rays_per_facet), seed=seed,
+                             motion=motion)
             if runner is not None:
                 task = HeatingSteps.of(geometry, scene, trajectory, environment, **heat_args)
                 heating, resumed["heating steps"] = stagework.heating_on(
@@ -383,12 +394,13 @@ def _run(model_path, out: Path, *, rays, seed, workers, scheduler, resume, facet
     t0 = time.perf_counter()
     write_results(out, model=model, geometry=geometry, view_factors=view_factors,
                   exchange=exchange, trajectory=trajectory, heating=heating,
-                  provenance=provenance, inputs=_model_inputs(model))
+                  provenance=provenance, inputs=_model_inputs(model), motion=motion)
     elapsed["write"] = time.perf_counter() - t0
     if ckpt is not None:
         ckpt.remove()
     return RunResult(output=out, model=model, geometry=geometry, view_factors=view_factors,
-                     exchange=exchange, trajectory=trajectory, heating=heating, seed=seed,
+                     exchange=exchange, trajectory=trajectory, heating=heating, motion=motion,
+                     seed=seed,
                      rays_per_node=rays_per_node,
                      workers=int(workers) if scheduler is None else 0, elapsed_s=elapsed,
                      resumed_jobs=sum(resumed.values()),
