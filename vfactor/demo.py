@@ -92,7 +92,7 @@ def run_demo(folder, *, rays=None, workers=1, quiet=False, verbose=False) -> int
     folder = Path(folder)
     start = time.perf_counter()
     model_file, notes = copy_demo(folder)
-    say(f"== vfactor demo: the invented satellite 'Kestrel-1' in {folder}/")
+    say(f"== vfactor demo: the invented satellite 'Orrelwyn-2' in {folder}/")
     for n in notes:
         say(f"   note: {n}")
     say(f"\n== 1/5 check {model_file}")

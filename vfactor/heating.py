@@ -85,7 +85,7 @@ from typing import NamedTuple
 import numpy as np
 
 from vfactor.constants import SUN_RADIUS_M
-from vfactor.heatmotion import placed_step
+from vfactor.heatmotion import placed_step, rigid_part
 from vfactor.heatstep import Step, bands_of, one_step, prepare, trace_once, unit
 
 __all__ = ["Heating", "HeatingExtremes", "HeatingSteps", "compute_heating", "heating_extremes",
@@ -471,12 +471,12 @@ class HeatingSteps:
         from vfactor.progress import NullReporter
 
         reporter = reporter or NullReporter()
-        if self.motion is not None:       # traced per step on the placed vehicle
-            return None, geometry
         model = prepare(geometry, scene, self.replicates, self.rays_per_facet,
                         self.sun_samples, self.seed, self.max_bounces)
         with reporter.stage("heating: escaping directions", total=max(model.sides.count, 1),
                             unit="facet sides") as bar:
+            if self.motion is not None:   # the rigid part once, the rest at each step
+                return None, (geometry, rigid_part(self, geometry, bar))
             trace_once(model, bar, need_rays=self.use_cache or self.reflections)
         bands = bands_of(model, geometry, self.view) if self.reflections else None
         return model, bands
@@ -489,7 +489,7 @@ class HeatingSteps:
 
     def run(self, state, job, bar=None) -> dict:
         """Rows of every output at the steps ``job`` (row ``p`` is step ``job[p]``)."""
-        model, held = state           # rigid: (model, bands); turning parts: (None, geometry)
+        model, held = state    # rigid: (model, bands); turning parts: (None, (geometry, rigid))
         ks = np.asarray(job, dtype=np.int64).reshape(-1)
         out = self.empty_rows(ks.size)
         for p, k in enumerate(ks.tolist()):
@@ -497,7 +497,7 @@ class HeatingSteps:
             step = Step(sun=sun, centre=centre, solar=solar, fraction=fraction,
                         cos_half=cos_half, **self.env)
             if model is None:
-                placed_step(self, held, k, step, p, out)
+                placed_step(self, *held, k, step, p, out)
             else:
                 one_step(model, held, step, self.use_cache, p, out)
             if bar is not None:

@@ -16,7 +16,8 @@ import numpy as np
 import scipy.sparse as sp
 from vfactor.sparsetools import as_csr
 
-__all__ = ["Model", "Step", "prepare", "trace_once", "bands_of", "one_step", "unit"]
+__all__ = ["Model", "Step", "prepare", "trace_once", "cache_targets", "bands_of", "one_step",
+           "unit"]
 
 
 @dataclass(frozen=True)
@@ -189,6 +190,17 @@ def trace_once(model: Model, bar, need_rays: bool) -> None:
                          s.facet[a:b], s.sign[a:b], model.facet_node, model.seed, model.m,
                          model.k_planet, targets[a:b])
         bar.advance(b - a)
+    cache_targets(model, targets, need_rays)
+
+
+def cache_targets(model: Model, targets, need_rays: bool) -> None:
+    """The cache of :func:`trace_once` from the first hits ``targets`` (s, m k_planet) of
+    every planet ray: escaping rays by (side, replicate), control-variate sides and their
+    blocked rays."""
+    from vfactor.tracing import heat_kernels as hk
+
+    s = model.sides
+    n_rays = model.m * model.k_planet
     escaping = (targets == hk.TARGET_ESCAPE).reshape(s.count * model.m, model.k_planet)
     segment_start = np.zeros(s.count * model.m + 1, dtype=np.int64)
     np.cumsum(escaping.sum(axis=1), out=segment_start[1:])

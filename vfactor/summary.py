@@ -289,7 +289,15 @@ def summarize(results: Results, top: int = 15) -> dict:
                  "nodes": rows}
 
         loads["largest"] = _largest_loads(heat, results.trajectory.time, nodes.names, top)
+    hinges = None
+    if results.hinges is not None:
+        angle = np.asarray(results.hinges["angle_deg"], dtype=np.float64)
+        hinges = [{"name": name, "law": law, "parent": parent or None,
+                   "min_deg": float(angle[:, i].min()), "max_deg": float(angle[:, i].max())}
+                  for i, (name, law, parent) in enumerate(zip(
+                      results.hinges["name"], results.hinges["law"], results.hinges["parent"]))]
     return {"provenance": prov, "nodes": node_rows, "parts": _part_rows(results),
+            "hinges": hinges,
             "couplings": couplings, "space": space,
             "accuracy": accuracy, "orbit": _orbit_facts(results), "heat_loads": loads,
             "warnings": warnings, "cautions": list(CAUTIONS)}
@@ -518,6 +526,13 @@ def format_summary(results: Results, top: int = 15, all_nodes: bool = False) -> 
                  ("longest shadow", f"{o['longest_eclipse_s'] / 60:.1f} min, penumbra "
                                     f"{o['penumbra_s']:.1f} s per passage")]
         lines += [f"  {k:<22}{v}" for k, v in rows]
+
+    if s["hinges"]:
+        lines += ["", "Hinges (angle along the orbit; couplings above are of the model as built,"
+                      " every hinge at 0)"]
+        lines += _table(["hinge", "law", "rides on", "angle [deg]"],
+                        [(r["name"], r["law"], r["parent"] or "-",
+                          f"{r['min_deg']:.1f} .. {r['max_deg']:.1f}") for r in s["hinges"]])
 
     h = s["heat_loads"]
     if h is not None:

@@ -49,6 +49,7 @@ __all__ = [
     "PURPOSE_SUN",
     "side_stream",
     "trace_targets",
+    "trace_targets_in",
     "fill_escaping",
     "planet_cached",
     "planet_uncached",
@@ -120,6 +121,49 @@ def trace_targets(arrays, vertices, triangles, normals, side_facet, side_sign, f
                     node = facet_node[hit, 0] if front else facet_node[hit, 1]
                     target = node if node >= 0 else TARGET_INERT
                 out_target[s, r * per_replicate + k] = target
+
+
+@njit(**JIT_PARALLEL)
+def trace_targets_in(arrays, local_node, local_of, vertices, triangles, normals, side_facet,
+                     side_sign, seed, replicates, per_replicate, tmax, keep_miss, out_target,
+                     out_distance):
+    """First hits of the rays of :func:`trace_targets` in another scene (a part of the
+    vehicle), nearer than ``tmax``.
+
+    The rays are those of the whole vehicle (``vertices``, ``triangles``, ``normals`` and
+    the global facet indices ``side_facet``: same random streams); the scene ``arrays``
+    holds some of its facets, numbered locally.
+
+    Parameters
+    ----------
+    local_node : (g, 2) int64 — node of the front and back side of each facet of the scene
+    local_of : (f,) int64 — local index of each global facet in the scene, -1 if absent
+    tmax : (s, replicates * per_replicate) float64 — hits at this distance or beyond do not
+        count [m]
+    keep_miss : bool — a ray that hits nothing keeps its ``out_target`` and
+        ``out_distance`` (True), or is marked ``TARGET_ESCAPE`` at infinity (False)
+    out_target : (s, replicates * per_replicate) int32 — node hit first (read when
+        ``keep_miss``, written on a hit)
+    out_distance : same shape, float64 — distance of that hit [m]
+    """
+    for s in prange(side_facet.shape[0]):
+        f = side_facet[s]
+        sign = side_sign[s]
+        stream = side_stream(PURPOSE_PLANET, f, sign)
+        own = local_of[f]
+        for r in range(replicates):
+            for k in range(per_replicate):
+                j = r * per_replicate + k
+                x, y, z, dx, dy, dz = _side_ray(vertices, triangles, normals, f, sign, seed,
+                                                stream, r, k)
+                hit, t, front = closest_hit(arrays, x, y, z, dx, dy, dz, tmax[s, j], own)
+                if hit >= 0:
+                    node = local_node[hit, 0] if front else local_node[hit, 1]
+                    out_target[s, j] = node if node >= 0 else TARGET_INERT
+                    out_distance[s, j] = t
+                elif not keep_miss:
+                    out_target[s, j] = TARGET_ESCAPE
+                    out_distance[s, j] = np.inf
 
 
 @njit(**JIT_PARALLEL)
