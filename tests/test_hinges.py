@@ -289,3 +289,51 @@ def test_a_placed_step_equals_a_rigid_model_built_at_that_position():
                             seed=9, rays_per_facet=64)
     for name in ("node_solar", "node_albedo", "node_planet_ir", "facet_solar"):
         assert getattr(moving, name)[k].tobytes() == getattr(rigid, name)[0].tobytes(), name
+
+
+# -- check: a turning part must not sweep through another ---------------------------------
+CLASH = """
+[[parts]]
+name = "body"
+shape = "box"
+size = [1.0, 1.0, 1.0]
+front = { coating = "w", nodes = "per-face" }
+
+[[parts]]
+name = "flap"
+shape = "rectangle"
+size = [0.6, 0.8]
+center = [0.0, 0.0, 0.8]
+front = { coating = "w" }
+
+[[hinges]]
+name = "flap_hinge"
+parts = ["flap"]
+point = [0.0, 0.0, 0.8]
+axis = [1.0, 0.0, 0.0]
+law = "rate"
+rate_deg_s = 0.2
+"""
+
+
+@pytest.mark.parametrize("orbit", [True, False])
+def test_check_reports_the_first_clash_angle(tmp_path, orbit):
+    # the flap's edge (0.4 m from the axis, 0.3 m above the box) touches the box top from
+    # asin(0.3 / 0.4) = 48.59 deg to 180 - 48.59 deg, and likewise below 0 (elementary
+    # geometry); along the orbit the flap turns up from 0, without one the sweep is the
+    # whole turn from -180 deg
+    from vfactor.checks import check_model
+
+    path = tmp_path / "clash.toml"
+    path.write_text(COATINGS + CLASH + (ORBIT if orbit else ""))
+    report = check_model(path)
+    (error,) = [p for p in report.errors if "hinge" in p.where]
+    assert "part 'flap' crosses part 'body'" in error.message and "\n" not in error.line()
+    angle = float(error.message.split("hinge angle of ")[1].split(" deg")[0])
+    first = math.degrees(math.asin(0.75)) if orbit else -180.0 + math.degrees(math.asin(0.75))
+    assert abs(angle - first) < 0.06, (angle, first)
+    # within limits that stop it short, the sweep is clear
+    path.write_text(COATINGS + CLASH.replace('rate_deg_s = 0.2',
+                                             'rate_deg_s = 0.2\nmin_deg = -40\nmax_deg = 40')
+                    + (ORBIT if orbit else ""))
+    assert not [p for p in check_model(path).errors if "hinge" in p.where]

@@ -194,6 +194,10 @@ def check_geometry(model, geometry: Geometry, report) -> None:
 
     _check_contacts(model, g, ~degenerate, tol, report)
     _check_enclosed(model, g, ~degenerate, tol, report)
+    if getattr(model, "hinges", ()):
+        from vfactor.hingechecks import check_hinges
+
+        check_hinges(model, g, report, tol)
 
 
 def _check_winding(part, g: Geometry, k: int, facets, file: str, add) -> bool:
