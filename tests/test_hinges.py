@@ -270,7 +270,7 @@ def test_a_placed_step_equals_a_rigid_model_built_at_that_position():
     model = _model(PLATE.replace('[[parts]]', '[[parts]]\nmax_edge = 0.2', 1)
                    + PLATE.replace('"panel"', '"box"').replace('shape = "rectangle"',
                                                                'shape = "box"')
-                   .replace("size = [1.0, 0.5]", "size = [0.4, 0.4, 0.4]\ncenter = [0, 0, -0.6]")
+                   .replace("size = [1.0, 0.5]", "size = [0.4, 0.4, 0.4]\ncenter = [0, 0, -1.0]")
                    .replace("back = { coating = \"w\" }\n", "")
                    + _hinge("sun", normal="[0.0, 0.0, 1.0]") + ORBIT)
     g = build_geometry(model)
@@ -337,3 +337,35 @@ def test_check_reports_the_first_clash_angle(tmp_path, orbit):
                                              'rate_deg_s = 0.2\nmin_deg = -40\nmax_deg = 40')
                     + (ORBIT if orbit else ""))
     assert not [p for p in check_model(path).errors if "hinge" in p.where]
+
+
+def test_results_file_runners_and_figures_of_a_turning_part(tmp_path):
+    # the file holds the angles and what places the parts: the figures place them as the
+    # heating stage did; two worker processes give the same bits as one process
+    from vfactor import pipeline, plots
+    from vfactor.h5read import read_results
+    from vfactor.kinematics import placed_geometry
+
+    text = (COATINGS + PLATE + PLATE.replace('"panel"', '"box"')
+            .replace('shape = "rectangle"', 'shape = "box"')
+            .replace("size = [1.0, 0.5]", "size = [0.4, 0.4, 0.4]\ncenter = [0, 0, -1.0]")
+            .replace('back = { coating = "w" }\n', "")
+            + _hinge("sun", normal="[0.0, 0.0, 1.0]") + ORBIT
+            + "\n[radiation]\nrays_per_node = 800\nplanet_rays_per_facet = 32\n")
+    path = tmp_path / "turning.toml"
+    path.write_text(text)
+    one = pipeline.run(path, tmp_path / "one.h5")
+    two = pipeline.run(path, tmp_path / "two.h5", workers=2)
+    for name in ("node_solar", "node_albedo", "node_planet_ir", "facet_solar"):
+        assert getattr(one.heating, name).tobytes() == getattr(two.heating, name).tobytes()
+    assert any("hinge" in note for note in one.notes)
+    r = read_results(one.output)
+    np.testing.assert_array_equal(r.hinges["angle_deg"], np.degrees(one.motion.angles))
+    assert np.ptp(r.hinges["angle_deg"]) > 300.0          # it tracked the Sun round
+    for k in (0, 5):
+        placed = placed_geometry(r.geometry, r.hinges, k)
+        # the file keeps degrees: radians come back to rounding
+        np.testing.assert_allclose(placed.vertices, one.motion.vertices(one.geometry, k),
+                                   rtol=0, atol=1e-12)
+    figure = plots.plot_flux_along_orbit(r, tmp_path / "frames.png")
+    assert figure.stat().st_size > 10_000

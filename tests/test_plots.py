@@ -18,7 +18,8 @@ def test_plot_all(tmp_path, with_orbit):
     files = plots.plot_all(r, tmp_path / "fig")
     names = sorted(p.name for p in files)
     if with_orbit:
-        assert names == ["absorbed_flux.png", "couplings.png", "heat_loads.png", "orbit.png"]
+        assert names == ["absorbed_flux.png", "couplings.png", "flux_along_orbit.png",
+                         "heat_loads.png", "orbit.png"]
     else:
         assert names == ["couplings.png", "nodes.png"]
     for p in files:

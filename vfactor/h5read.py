@@ -41,8 +41,9 @@ class Results:
         (keys ``solar``, ``albedo``, ``planet_ir``, ``total``)
     facet_average : dict or None — source -> (f,) time-averaged absorbed flux [W m-2]
     orbit_attrs : dict — attributes of /orbit (epoch, period_s, planet, planet_radius_m)
-    hinges : dict or None — ``name``, ``law``, ``parent`` (tuples of str) and ``angle_deg``
-        ((t, h) hinge angle per step [deg]) when parts turn
+    hinges : dict or None — ``name``, ``law``, ``parent`` (tuples of str), ``angle_deg``
+        ((t, h) hinge angle per step [deg]), ``axis`` and ``point`` ((h, 3), body frame as
+        built [1], [m]) and ``facet_hinge`` ((f,) int, -1 rigid) when parts turn
     """
 
     path: Path
@@ -242,6 +243,8 @@ def read_results(path, *, dense_couplings=False) -> Results:
                 g = h["hinges"]
                 hinges = {key: tuple(g[key].asstr()[()]) for key in ("name", "law", "parent")}
                 hinges["angle_deg"] = g["angle"][()]
+                hinges.update(axis=g["axis"][()], point=g["point"][()],
+                              facet_hinge=g["facet_hinge"][()].astype(np.int64))
             node_avg = facet_avg = None
             if "heating" in h and "average" in h["heating"]:
                 node_avg = {k: v[()] for k, v in h["heating/average"].items()}

@@ -20,7 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["Motion", "motion_of", "hinge_angles", "placements", "moved_vertices",
+__all__ = ["Motion", "motion_of", "placed_geometry", "hinge_angles", "placements", "moved_vertices",
            "moved_normals", "facet_hinge", "rotation"]
 
 _TWO_PI = 2.0 * math.pi
@@ -219,6 +219,24 @@ class Motion:
     def normals(self, geometry, k: int) -> np.ndarray:
         """(f, 3) facet normals of ``geometry`` at step ``k``."""
         return moved_normals(geometry, self.owner, self.rotation[k])
+
+
+def placed_geometry(geometry, stored: dict, k: int):
+    """``geometry`` with its parts placed as at step ``k`` of a results file's hinges
+    (:attr:`vfactor.h5read.Results.hinges`)."""
+    import dataclasses
+
+    from vfactor.hinges import Hinge
+
+    hinges = tuple(Hinge(name=n, parts=(), point=np.asarray(p, float),
+                         axis=np.asarray(a, float), parent=parent or None, law=law)
+                   for n, law, parent, a, p in zip(stored["name"], stored["law"],
+                                                   stored["parent"], stored["axis"],
+                                                   stored["point"]))
+    R, T = placements(hinges, np.radians(np.asarray(stored["angle_deg"])[k]))
+    owner = np.asarray(stored["facet_hinge"], np.int64)
+    return dataclasses.replace(geometry, vertices=moved_vertices(geometry, owner, R, T),
+                               normals=moved_normals(geometry, owner, R))
 
 
 def motion_of(geometry, hinges, trajectory) -> Motion | None:

@@ -7,6 +7,8 @@ Figures (each function returns the file it wrote):
   largest time-averaged load first).
 - :func:`plot_absorbed_flux` — time-averaged absorbed flux painted on the geometry from
   three viewpoints, with a colour bar in W m-2 (by node where the run has no orbit).
+- :func:`plot_flux_along_orbit` — absorbed flux on the geometry at a few steps along the
+  orbit, turning parts placed as at each step (moving shadows show).
 - :func:`plot_couplings` — the exchange-area matrix (with space) as a heat map, log scale.
 - :func:`plot_orbit` — the orbit seen along its normal with the Sun direction and the
   shadowed arc, and the beta angle and sun fraction along the orbit.
@@ -29,6 +31,7 @@ from .sparsetools import as_csr, dense
 from .h5io import Results, node_averages
 
 __all__ = ["SOURCE_COLOURS", "plot_all", "figure_names", "plot_heat_loads", "plot_absorbed_flux",
+           "plot_flux_along_orbit",
            "plot_couplings", "plot_orbit"]
 
 SOURCE_COLOURS = {"solar": "#e3a23b", "albedo": "#7fb0d8", "planet_ir": "#b5524a"}
@@ -59,8 +62,8 @@ def _save(fig, path: Path, batch=None) -> Path:
 
 def figure_names(results: Results) -> list:
     """File names :func:`plot_all` writes for ``results``, in order."""
-    names = ["heat_loads.png", "absorbed_flux.png"] if results.heating is not None \
-        else ["nodes.png"]
+    names = ["heat_loads.png", "absorbed_flux.png", "flux_along_orbit.png"] \
+        if results.heating is not None else ["nodes.png"]
     if results.exchange is not None or results.view_factors is not None:
         names.append("couplings.png")
     if results.trajectory is not None:
@@ -94,6 +97,7 @@ def plot_all(results: Results, folder) -> list:
     hint = "give the figures another folder"
     atomic.refuse_inputs([folder / name for name in figure_names(results)], inputs, hint=hint)
     makers = {"heat_loads.png": plot_heat_loads, "absorbed_flux.png": plot_absorbed_flux,
+              "flux_along_orbit.png": plot_flux_along_orbit,
               "nodes.png": plot_absorbed_flux, "couplings.png": plot_couplings,
               "orbit.png": plot_orbit}
     with atomic.Batch(inputs, hint=hint) as batch:
@@ -259,6 +263,51 @@ def plot_absorbed_flux(results: Results, path, *, batch=None) -> Path:
         cb.set_ticks(np.arange(g.n_nodes))
         cb.set_ticklabels(list(g.nodes.names), fontsize=7)
     fig.suptitle(title, fontsize=10)
+    return _save(fig, Path(path), batch)
+
+
+#: Frames of the absorbed-flux strip along the orbit.
+ORBIT_FRAMES = 4
+
+
+def plot_flux_along_orbit(results: Results, path, *, batch=None) -> Path:
+    """Absorbed flux (all sources) on the geometry at :data:`ORBIT_FRAMES` steps evenly
+    spread over the sunlit part of the run, turning parts placed as at each step, one
+    colour scale [W m-2]."""
+    from matplotlib import colormaps
+    from matplotlib.colors import PowerNorm
+
+    from .kinematics import placed_geometry
+
+    g, heat, tr = results.geometry, results.heating, results.trajectory
+    flux = sum(np.asarray(getattr(heat, f"facet_{src}"), float)
+               for src in ("solar", "albedo", "planet_ir"))
+    # frames spread over the sunlit steps (where shadows move), else over all steps
+    lit = np.flatnonzero(np.asarray(tr.sun_fraction) > 0)
+    pool = lit if lit.size >= ORBIT_FRAMES else np.arange(flux.shape[0])
+    steps = np.unique(pool[np.linspace(0, pool.size - 1, ORBIT_FRAMES).round().astype(int)])
+    norm = PowerNorm(gamma=0.5, vmin=min(0.0, float(flux[steps].min())),
+                     vmax=max(float(flux[steps].max()), 1e-9))
+    cmap = colormaps["inferno"]
+    fig = _figure(3.6 * len(steps) + 1.4, 4.4)
+    grid = fig.add_gridspec(1, len(steps))
+    axes = []
+    mappable = None
+    for n, k in enumerate(steps):
+        placed = g if results.hinges is None else placed_geometry(g, results.hinges, k)
+        angles = "" if results.hinges is None else "\n" + ", ".join(
+            f"{name} {float(a):.0f} deg" for name, a in zip(results.hinges["name"],
+                                                          results.hinges["angle_deg"][k]))
+        light = "eclipse" if tr.sun_fraction[k] == 0 else (
+            "sunlit" if tr.sun_fraction[k] == 1 else "penumbra")
+        view = ((25, -60, f"t = {tr.time[k] / 60:.1f} min ({light}){angles}"),)
+        mappable, ax = _paint(fig, (grid[0, n],), placed, flux[k], cmap, norm, "", "", view)
+        axes += ax
+    cb = fig.colorbar(mappable, ax=axes, shrink=0.75, pad=0.02)
+    cb.set_label("absorbed flux, all sources [W m-2]\n(square-root colour scale)", fontsize=9)
+    cb.ax.tick_params(labelsize=8)
+    fig.suptitle(f"{results.model_name}: absorbed flux along the orbit, seen from "
+                 f"{_view_name(25, -60)[len('seen from '):]} (case {heat.case})", fontsize=10)
     return _save(fig, Path(path), batch)
 
 
