@@ -369,3 +369,14 @@ def test_results_file_runners_and_figures_of_a_turning_part(tmp_path):
                                    rtol=0, atol=1e-12)
     figure = plots.plot_flux_along_orbit(r, tmp_path / "frames.png")
     assert figure.stat().st_size > 10_000
+    # hinges.csv reads back to the file's angles bit for bit
+    import csv
+
+    from vfactor.export import export_csv
+
+    export_csv(r, tmp_path / "tables")
+    with open(tmp_path / "tables" / "hinges.csv", newline="") as fh:
+        table = list(csv.reader(fh))
+    assert table[0] == ["step [1]", "time [s]", "root [deg]"]
+    np.testing.assert_array_equal([float(row[2]) for row in table[1:]],
+                                  r.hinges["angle_deg"][:, 0])

@@ -5,7 +5,8 @@ Formats (the CSV layout is documented in the README, "CSV layout"):
 ``csv``
     A folder with ``nodes.csv`` (one row per node), ``couplings.csv`` (one row per ordered
     node pair whose view factor or Gebhart factor reaches ``threshold``) and, when the run
-    has an orbit, ``heat_loads.csv`` (one row per step and node). The header of every column
+    has an orbit, ``heat_loads.csv`` (one row per step and node) and, when parts turn,
+    ``hinges.csv`` (one row per step, the angle of each hinge). The header of every column
     carries its unit in square brackets (``area [m2]``); one header line, comma-separated,
     no comment lines.
 ``vtk``
@@ -104,7 +105,8 @@ _HINT = "give the export another name or folder"
 
 
 def export_csv(results: Results, folder, *, threshold: float = DEFAULT_THRESHOLD) -> list:
-    """Write ``nodes.csv``, ``couplings.csv`` and ``heat_loads.csv`` into ``folder``.
+    """Write ``nodes.csv``, ``couplings.csv``, ``heat_loads.csv`` and (when parts turn)
+    ``hinges.csv`` (hinge angle per step) into ``folder``.
 
     Values are written with full float64 precision, so they read back bit for bit.
     """
@@ -114,7 +116,8 @@ def export_csv(results: Results, folder, *, threshold: float = DEFAULT_THRESHOLD
     if folder.exists() and not folder.is_dir():
         raise ArgumentError(f"{folder}: CSV export needs a folder, and this is a file")
     names = ["nodes.csv"] + (["couplings.csv"] if results.view_factors is not None else []) \
-        + (["heat_loads.csv"] if results.heating is not None else [])
+        + (["heat_loads.csv"] if results.heating is not None else []) \
+        + (["hinges.csv"] if results.hinges is not None else [])
     atomic.refuse_inputs([folder / x for x in names], _inputs(results), hint=_HINT)
     with atomic.Batch(_inputs(results), hint=_HINT) as batch:
         batch.folder(folder, "the CSV folder")
@@ -185,6 +188,16 @@ def _csv_tables(results: Results, folder: Path, threshold: float, batch) -> list
                              s + a + p])
         written.append(_write_csv(batch, folder / "heat_loads.csv", header, rows,
                                   "the heat-load table"))
+
+    if results.hinges is not None:
+        tr = results.trajectory
+        names = results.hinges["name"]
+        angle = results.hinges["angle_deg"]
+        rows = [[k, tr.time[k]] + [angle[k, h] for h in range(len(names))]
+                for k in range(tr.n_steps)]
+        written.append(_write_csv(batch, folder / "hinges.csv",
+                                  ["step [1]", "time [s]"] + [f"{n} [deg]" for n in names],
+                                  rows, "the hinge-angle table"))
     return written
 
 

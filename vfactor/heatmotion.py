@@ -7,9 +7,10 @@ the rigid facet sides among the rigid facets alone, with their distances. At a s
 (:func:`placed_step`) the vehicle is placed at that step's hinge angles
 (:class:`vfactor.kinematics.Motion`) and
 
-* the cached rays of the rigid sides are traced against the moving parts only (a small
-  scene built for them at this step), and count a moving facet where it is nearer than
-  the cached hit;
+* the cached rays of the rigid sides that pass through the space the moving parts sweep
+  (:func:`vfactor.kinematics.swept_spheres`, found once) are traced against the moving
+  parts only (a small scene built for them at this step), and count a moving facet where
+  it is nearer than the cached hit; the other rays cannot meet a moving part;
 * the rays of the moving sides are traced against the whole placed vehicle;
 * the step is then evaluated exactly as for a rigid vehicle of that shape
   (:func:`vfactor.heatstep.one_step`): direct solar shadows on the placed geometry,
@@ -29,6 +30,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from vfactor import heatstep
+from vfactor.kinematics import swept_spheres
 
 __all__ = ["RigidPart", "rigid_part", "placed_step"]
 
@@ -48,12 +50,14 @@ class RigidPart:
     targets : (r, n) int32 — first hit among the rigid facets of each ray of the rigid
         sides (node, TARGET_ESCAPE or TARGET_INERT)
     distance : (r, n) float64 — its distance (inf for an escape) [m]
+    near : (r, n) bool — the ray passes through the space the moving parts sweep
     moving_facets : (g,) int64 — the facets that turn
     """
 
     rigid_side: np.ndarray
     targets: np.ndarray
     distance: np.ndarray
+    near: np.ndarray
     moving_facets: np.ndarray
 
 
@@ -81,15 +85,20 @@ def rigid_part(task, geometry, bar) -> RigidPart:
     n_rays = model.m * model.k_planet
     targets = np.empty((int(rigid_side.sum()), n_rays), np.int32)
     distance = np.full(targets.shape, np.inf)
+    near = np.zeros(targets.shape, np.bool_)
     if rigid.size and targets.size:
         scene = Scene.build(vertices, triangles[rigid])
+        facet, sign = s.facet[rigid_side], s.sign[rigid_side]
         hk.trace_targets_in(scene.arrays, model.facet_node[rigid],
                             _local(rigid, geometry.n_facets), vertices, triangles,
-                            model.normals, s.facet[rigid_side], s.sign[rigid_side],
-                            model.seed, model.m, model.k_planet,
-                            np.full(targets.shape, np.inf), False, targets, distance)
+                            model.normals, facet, sign, model.seed, model.m, model.k_planet,
+                            np.full(targets.shape, np.inf), False,
+                            np.ones(targets.shape, np.bool_), targets, distance)
+        centres, radii = swept_spheres(task.motion.hinges, geometry, owner)
+        hk.near_spheres(vertices, triangles, model.normals, facet, sign, model.seed,
+                        model.m, model.k_planet, distance, centres, radii, near)
     bar.advance(s.count)
-    return RigidPart(rigid_side=rigid_side, targets=targets, distance=distance,
+    return RigidPart(rigid_side=rigid_side, targets=targets, distance=distance, near=near,
                      moving_facets=np.flatnonzero(owner >= 0))
 
 
@@ -115,7 +124,7 @@ def placed_step(task, geometry, rigid: RigidPart, k: int, step, p: int, out: dic
                                 _local(moving, geometry.n_facets), vertices, triangles,
                                 model.normals, s.facet[rigid.rigid_side],
                                 s.sign[rigid.rigid_side], model.seed, model.m, model.k_planet,
-                                rigid.distance, True, near, dist)
+                                rigid.distance, True, rigid.near, near, dist)
         targets[rigid.rigid_side] = near
     own = ~rigid.rigid_side
     if own.any():

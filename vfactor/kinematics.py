@@ -20,7 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["Motion", "motion_of", "placed_geometry", "hinge_angles", "placements", "moved_vertices",
+__all__ = ["Motion", "motion_of", "placed_geometry", "swept_spheres", "hinge_angles", "placements", "moved_vertices",
            "moved_normals", "facet_hinge", "rotation"]
 
 _TWO_PI = 2.0 * math.pi
@@ -248,3 +248,56 @@ def motion_of(geometry, hinges, trajectory) -> Motion | None:
     return Motion(hinges=tuple(hinges), angles=angles, owner=facet_hinge(geometry, hinges),
                   rotation=np.array([p[0] for p in placed]),
                   shift=np.array([p[1] for p in placed]))
+
+
+def swept_spheres(hinges, geometry, owner) -> tuple:
+    """Spheres holding every place the turning parts can take: one per hinge that rides
+    on no other (with the parts of the hinges that ride on it). ((q, 3) centres [m],
+    (q,) radii [m]).
+
+    A hinge without riders turns its vertices on circles about its axis: within the
+    cylinder of their largest distance from the axis and their span along it, held by the
+    sphere about the cylinder's middle. With riders, a vertex of the hinge ``n`` levels
+    down stays within ``|v - p_n| + sum |p_i - p_(i-1)|`` of the top hinge's point
+    (triangle inequality, each turn keeping distances to its own point).
+    """
+    index = {h.name: i for i, h in enumerate(hinges)}
+
+    def chain(i):
+        out = [i]
+        while hinges[out[-1]].parent is not None:
+            out.append(index[hinges[out[-1]].parent])
+        return out[::-1]                     # top hinge first
+
+    vertices = np.asarray(geometry.vertices, dtype=np.float64)
+    triangles = np.asarray(geometry.triangles)
+    centres, radii = [], []
+    for top, h in enumerate(hinges):
+        if h.parent is not None:
+            continue
+        riders = [i for i in range(len(hinges)) if chain(i)[0] == top]
+        facets = np.flatnonzero(np.isin(owner, riders))
+        if not facets.size:
+            continue
+        if riders == [top]:
+            v = vertices[np.unique(triangles[facets])] - h.point
+            along = v @ h.axis
+            radial = np.linalg.norm(v - along[:, None] * h.axis, axis=1)
+            mid = 0.5 * (along.min() + along.max())
+            centres.append(h.point + mid * h.axis)
+            radii.append(math.hypot(float(radial.max()), 0.5 * float(np.ptp(along))))
+            continue
+        bound = 0.0
+        for i in riders:
+            path = chain(i)
+            reach = sum(float(np.linalg.norm(hinges[b].point - hinges[a].point))
+                        for a, b in zip(path, path[1:]))
+            mine = facets[owner[facets] == i]
+            if mine.size:
+                v = vertices[np.unique(triangles[mine])]
+                bound = max(bound, reach + float(np.linalg.norm(v - hinges[i].point,
+                                                                axis=1).max()))
+        centres.append(h.point.copy())
+        radii.append(bound)
+    radii = np.asarray(radii, dtype=np.float64)
+    return np.asarray(centres, dtype=np.float64).reshape(-1, 3), radii * (1.0 + 1e-9) + 1e-9

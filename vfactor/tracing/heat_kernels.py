@@ -50,6 +50,7 @@ __all__ = [
     "side_stream",
     "trace_targets",
     "trace_targets_in",
+    "near_spheres",
     "fill_escaping",
     "planet_cached",
     "planet_uncached",
@@ -125,8 +126,8 @@ def trace_targets(arrays, vertices, triangles, normals, side_facet, side_sign, f
 
 @njit(**JIT_PARALLEL)
 def trace_targets_in(arrays, local_node, local_of, vertices, triangles, normals, side_facet,
-                     side_sign, seed, replicates, per_replicate, tmax, keep_miss, out_target,
-                     out_distance):
+                     side_sign, seed, replicates, per_replicate, tmax, keep_miss, only,
+                     out_target, out_distance):
     """First hits of the rays of :func:`trace_targets` in another scene (a part of the
     vehicle), nearer than ``tmax``.
 
@@ -142,6 +143,7 @@ def trace_targets_in(arrays, local_node, local_of, vertices, triangles, normals,
         count [m]
     keep_miss : bool — a ray that hits nothing keeps its ``out_target`` and
         ``out_distance`` (True), or is marked ``TARGET_ESCAPE`` at infinity (False)
+    only : (s, replicates * per_replicate) bool — the rays traced (the others are left)
     out_target : (s, replicates * per_replicate) int32 — node hit first (read when
         ``keep_miss``, written on a hit)
     out_distance : same shape, float64 — distance of that hit [m]
@@ -154,6 +156,8 @@ def trace_targets_in(arrays, local_node, local_of, vertices, triangles, normals,
         for r in range(replicates):
             for k in range(per_replicate):
                 j = r * per_replicate + k
+                if not only[s, j]:
+                    continue
                 x, y, z, dx, dy, dz = _side_ray(vertices, triangles, normals, f, sign, seed,
                                                 stream, r, k)
                 hit, t, front = closest_hit(arrays, x, y, z, dx, dy, dz, tmax[s, j], own)
@@ -164,6 +168,44 @@ def trace_targets_in(arrays, local_node, local_of, vertices, triangles, normals,
                 elif not keep_miss:
                     out_target[s, j] = TARGET_ESCAPE
                     out_distance[s, j] = np.inf
+
+
+@njit(**JIT_PARALLEL)
+def near_spheres(vertices, triangles, normals, side_facet, side_sign, seed, replicates,
+                 per_replicate, tmax, centres, radii, out):
+    """Which rays of :func:`trace_targets` pass through any of some spheres before
+    ``tmax`` (the segment from the origin to ``tmax`` comes closer than the radius to the
+    centre).
+
+    Parameters
+    ----------
+    tmax : (s, replicates * per_replicate) float64 [m] (inf: the whole ray)
+    centres : (q, 3) float64 [m], radii : (q,) float64 [m]
+    out : (s, replicates * per_replicate) bool, written
+    """
+    for s in prange(side_facet.shape[0]):
+        f = side_facet[s]
+        sign = side_sign[s]
+        stream = side_stream(PURPOSE_PLANET, f, sign)
+        for r in range(replicates):
+            for k in range(per_replicate):
+                j = r * per_replicate + k
+                x, y, z, dx, dy, dz = _side_ray(vertices, triangles, normals, f, sign, seed,
+                                                stream, r, k)
+                near = False
+                for q in range(centres.shape[0]):
+                    wx = centres[q, 0] - x
+                    wy = centres[q, 1] - y
+                    wz = centres[q, 2] - z
+                    t = wx * dx + wy * dy + wz * dz
+                    t = min(max(t, 0.0), tmax[s, j])
+                    ex = wx - t * dx
+                    ey = wy - t * dy
+                    ez = wz - t * dz
+                    if ex * ex + ey * ey + ez * ez <= radii[q] * radii[q]:
+                        near = True
+                        break
+                out[s, j] = near
 
 
 @njit(**JIT_PARALLEL)
