@@ -380,3 +380,19 @@ def test_results_file_runners_and_figures_of_a_turning_part(tmp_path):
     assert table[0] == ["step [1]", "time [s]", "root [deg]"]
     np.testing.assert_array_equal([float(row[2]) for row in table[1:]],
                                   r.hinges["angle_deg"][:, 0])
+
+
+def test_resource_estimate_counts_the_turning_parts():
+    # our own estimate (vfactor.resources): with a hinge, two more passes over every planet
+    # ray per step and 13 bytes per planet ray of the rigid part's cache
+    from vfactor import resources
+
+    rigid = _model(PLATE + ORBIT)
+    turning = _model(PLATE + _hinge("sun", normal="[0.0, 0.0, 1.0]") + ORBIT)
+    a = resources.estimate_resources(rigid, build_geometry(rigid), cores=2)
+    b = resources.estimate_resources(turning, build_geometry(turning), cores=2)
+    sides, planet, steps = 4, 256, 12          # 2 facets, both sides; 256 rays; 12 steps
+    assert b.parts["turning-part ray cache"] == 13.0 * sides * planet
+    assert b.heating_seconds - a.heating_seconds == pytest.approx(
+        steps * resources.TURNING_PASSES * sides * planet / resources.HEATING_TESTS_PER_S,
+        rel=1e-12)

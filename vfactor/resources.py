@@ -68,6 +68,11 @@ SECONDS_PER_STEP = 6e-3
 """Fixed cost of one heating step [s], whatever the model's size (measured 6.3 ms per
 step on a 14-facet model, shared 2-core machine)."""
 
+TURNING_PASSES = 2.0
+"""Passes over every planet ray per step when parts turn (ray caches and couplings rebuilt
+at every step; measured on the demo with tracking wings, 0.33 s a step for 3.3e6 planet
+rays on the shared 2-core machine)."""
+
 
 @dataclass(frozen=True)
 class ResourceEstimate:
@@ -162,6 +167,10 @@ def estimate_resources(model: Model, geometry: Geometry, rays: int | None = None
         parts["sun samples of a step"] = sides * sun
         heat_rays = sides * planet
         heating_s = steps * (SECONDS_PER_STEP + sides * (sun + planet) / HEATING_TESTS_PER_S)
+        if getattr(model, "hinges", ()):
+            # turning parts: every step rebuilds the ray caches and couplings of all sides
+            parts["turning-part ray cache"] = 13.0 * sides * planet
+            heating_s += steps * TURNING_PASSES * sides * planet / HEATING_TESTS_PER_S
     seconds = (vf_rays + heat_rays) / (RAYS_PER_S_PER_CORE * cores) + heating_s
     return ResourceEstimate(memory_bytes=float(sum(parts.values())), parts=parts,
                             seconds=float(seconds), rays=float(vf_rays + heat_rays),
