@@ -396,3 +396,68 @@ def test_resource_estimate_counts_the_turning_parts():
     assert b.heating_seconds - a.heating_seconds == pytest.approx(
         steps * resources.TURNING_PASSES * sides * planet / resources.HEATING_TESTS_PER_S,
         rel=1e-12)
+
+
+def test_couplings_at_hinge_positions_equal_rigid_models_built_there(tmp_path):
+    # [radiation] hinge_positions = 3: positions at the low end, middle and high end of the
+    # angles used; each position's raw tallies are those of a rigid model whose panel is
+    # built at that angle (same seed and rays), bit for bit; the file, reader and CSV
+    # export carry them
+    import csv
+
+    from vfactor import pipeline
+    from vfactor.export import export_csv
+    from vfactor.h5read import read_results
+    from vfactor.positions import hinge_positions
+    from vfactor.radiation import compute_view_factors
+
+    text = (COATINGS + PLATE + PLATE.replace('"panel"', '"box"')
+            .replace('shape = "rectangle"', 'shape = "box"')
+            .replace("size = [1.0, 0.5]", "size = [0.4, 0.4, 0.4]\ncenter = [0, 0, -1.0]")
+            .replace('back = { coating = "w" }\n', "")
+            + _hinge("sun", normal="[0.0, 0.0, 1.0]") + ORBIT
+            + "\n[radiation]\nrays_per_node = 800\nplanet_rays_per_facet = 32\n"
+              "hinge_positions = 3\n")
+    path = tmp_path / "positions.toml"
+    path.write_text(text)
+    res = pipeline.run(path, tmp_path / "p.h5")
+    pc = res.positions
+    angles, nearest = hinge_positions(res.motion.angles, 3)
+    np.testing.assert_array_equal(pc.angles, angles)
+    # the panel tracks the Sun all the way round: three positions a third of a turn apart,
+    # from the smallest angle used; each step goes to the nearest modulo a turn
+    assert angles[0, 0] == res.motion.angles[:, 0].min()
+    np.testing.assert_allclose(np.diff(angles[:, 0]), 2 * np.pi / 3, rtol=1e-12)
+    wrapped = (res.motion.angles[:, None, 0] - angles[None, :, 0] + np.pi) % (2 * np.pi) - np.pi
+    np.testing.assert_array_equal(pc.step_position, np.argmin(np.abs(wrapped), axis=1))
+    g = res.geometry
+    for p in range(3):
+        # the rigid model: the geometry's vertices turned by the hinge's rotation about its
+        # point (Rodrigues), normals and centroids recomputed from them
+        r = rotation(res.motion.hinges[0].axis, angles[p, 0])
+        turned = np.array(g.vertices)
+        mine = np.unique(g.triangles[res.motion.owner == 0])
+        turned[mine] = (turned[mine] - res.motion.hinges[0].point) @ r.T \
+            + res.motion.hinges[0].point
+        placed = dataclasses.replace(
+            g, vertices=turned, centroids=turned[g.triangles].mean(axis=1),
+            normals=np.where((res.motion.owner == 0)[:, None], np.array(g.normals) @ r.T,
+                             g.normals))
+        rigid = compute_view_factors(placed, Scene.build(placed.vertices, placed.triangles),
+                                     rays_per_node=800, seed=res.seed)
+        got = pc.view_factors[p]
+        assert got.raw_matrix.toarray().tobytes() == rigid.raw_matrix.toarray().tobytes()
+        assert got.raw_space.tobytes() == rigid.raw_space.tobytes()
+    # the positions differ: the panel's view of the box changes with its angle
+    box, panel = g.nodes.names.index("box"), g.nodes.names.index("panel")
+    seen = [pc.view_factors[p].raw_matrix.toarray()[panel, box] for p in range(3)]
+    assert max(seen) > min(seen)
+    r = read_results(res.output)
+    np.testing.assert_array_equal(r.positions["step_position"], pc.step_position)
+    written = export_csv(r, tmp_path / "tables")
+    assert sorted(p.name for p in written if "position" in p.name) == [
+        "couplings_position_0.csv", "couplings_position_1.csv", "couplings_position_2.csv"]
+    best = int(np.argmax(seen))
+    with open(tmp_path / "tables" / f"couplings_position_{best}.csv", newline="") as fh:
+        rows = {(row[0], row[1]): float(row[2]) for row in list(csv.reader(fh))[1:]}
+    assert rows[("panel", "box")] == pc.view_factors[best].matrix.toarray()[panel, box]

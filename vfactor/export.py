@@ -117,7 +117,9 @@ def export_csv(results: Results, folder, *, threshold: float = DEFAULT_THRESHOLD
         raise ArgumentError(f"{folder}: CSV export needs a folder, and this is a file")
     names = ["nodes.csv"] + (["couplings.csv"] if results.view_factors is not None else []) \
         + (["heat_loads.csv"] if results.heating is not None else []) \
-        + (["hinges.csv"] if results.hinges is not None else [])
+        + (["hinges.csv"] if results.hinges is not None else []) \
+        + ([f"couplings_position_{p}.csv" for p in range(len(results.positions["exchange"]))]
+           if results.positions is not None else [])
     atomic.refuse_inputs([folder / x for x in names], _inputs(results), hint=_HINT)
     with atomic.Batch(_inputs(results), hint=_HINT) as batch:
         batch.folder(folder, "the CSV folder")
@@ -152,30 +154,50 @@ def _csv_tables(results: Results, folder: Path, threshold: float, batch) -> list
     written.append(_write_csv(batch, folder / "nodes.csv", header, rows, "the node table"))
 
     if vf is not None:
-        header = ["from", "to", "view_factor [1]", "view_factor_stderr [1]"]
-        if ex is not None:
-            header += ["gebhart [1]", "exchange_area [m2]", "conductance [W K-4]"]
-        # the stored entries of F and B (row-major): cost grows with the non-zeros
-        F = as_csr(vf.matrix)
-        pattern = (F + as_csr(ex.gebhart)) if ex is not None else F
-        coo = as_csr(pattern).tocoo()
-        order = np.lexsort((coo.col, coo.row))
-        ii, jj = coo.row[order].astype(np.int64), coo.col[order].astype(np.int64)
-        f_all = values_at(F, ii, jj)
-        e_all = values_at(vf.stderr, ii, jj)
-        b_all = values_at(ex.gebhart, ii, jj) if ex is not None else np.zeros(ii.size)
-        a_all = values_at(ex.area, ii, jj) if ex is not None else np.zeros(ii.size)
-        keep = (np.maximum(f_all, b_all) >= threshold) & ~((f_all == 0) & (b_all == 0))
-        rows = []
-        for k in np.flatnonzero(keep):
-            i, j = int(ii[k]), int(jj[k])
-            row = [nodes.names[i], nodes.names[j], f_all[k], e_all[k]]
-            if ex is not None:
-                row += [b_all[k], a_all[k], STEFAN_BOLTZMANN * a_all[k]]
-            rows.append(row)
-        written.append(_write_csv(batch, folder / "couplings.csv", header, rows,
-                                  "the coupling table"))
+        written.append(_coupling_table(batch, folder / "couplings.csv", nodes.names, vf, ex,
+                                       threshold, "the coupling table"))
+    if results.positions is not None:
+        for p, (vf_p, ex_p) in enumerate(zip(results.positions["view_factors"],
+                                             results.positions["exchange"])):
+            written.append(_coupling_table(batch, folder / f"couplings_position_{p}.csv",
+                                           nodes.names, vf_p, ex_p, threshold,
+                                           f"the coupling table of hinge position {p}"))
+    return written + _step_tables(results, folder, batch)
 
+
+def _coupling_table(batch, path, names, vf, ex, threshold, what) -> Path:
+    """One row per ordered node pair whose view factor or Gebhart factor reaches
+    ``threshold``."""
+    header = ["from", "to", "view_factor [1]", "view_factor_stderr [1]"]
+    if ex is not None:
+        header += ["gebhart [1]", "exchange_area [m2]", "conductance [W K-4]"]
+    # the stored entries of F and B (row-major): cost grows with the non-zeros
+    F = as_csr(vf.matrix)
+    pattern = (F + as_csr(ex.gebhart)) if ex is not None else F
+    coo = as_csr(pattern).tocoo()
+    order = np.lexsort((coo.col, coo.row))
+    ii, jj = coo.row[order].astype(np.int64), coo.col[order].astype(np.int64)
+    f_all = values_at(F, ii, jj)
+    e_all = values_at(vf.stderr, ii, jj)
+    b_all = values_at(ex.gebhart, ii, jj) if ex is not None else np.zeros(ii.size)
+    a_all = values_at(ex.area, ii, jj) if ex is not None else np.zeros(ii.size)
+    keep = (np.maximum(f_all, b_all) >= threshold) & ~((f_all == 0) & (b_all == 0))
+    rows = []
+    for k in np.flatnonzero(keep):
+        i, j = int(ii[k]), int(jj[k])
+        row = [names[i], names[j], f_all[k], e_all[k]]
+        if ex is not None:
+            row += [b_all[k], a_all[k], STEFAN_BOLTZMANN * a_all[k]]
+        rows.append(row)
+    return _write_csv(batch, path, header, rows, what)
+
+
+def _step_tables(results: Results, folder: Path, batch) -> list:
+    """``heat_loads.csv`` and ``hinges.csv`` (per step)."""
+    nodes = results.geometry.nodes
+    n = len(nodes)
+    heat = results.heating
+    written = []
     if heat is not None:
         tr = results.trajectory
         header = ["step [1]", "time [s]", "sun_fraction [1]", "node", "solar [W]", "albedo [W]",

@@ -283,6 +283,18 @@ def _write_motion(root, motion):
          "index of the hinge that places each facet, -1 for rigid facets")
 
 
+def _write_positions(root, pc):
+    g = root.create_group("positions")
+    _put(g, "angle", np.degrees(pc.angles), "degree",
+         "hinge angles of each position, columns in the order of /hinges/name")
+    _put(g, "step_position", pc.step_position.astype(np.int32), "1",
+         "position nearest to each step's hinge angles")
+    for p, (vf, ex) in enumerate(zip(pc.view_factors, pc.exchange)):
+        sub = g.create_group(str(p))
+        _write_view_factors(sub, vf)
+        _write_exchange(sub, ex)
+
+
 def _write_heating(root, heat: Heating, time):
     g = root.create_group("heating")
     g.attrs["case"] = str(heat.case)
@@ -337,7 +349,7 @@ def _write_heating(root, heat: Heating, time):
 
 
 def _write_all(target, *, model, geometry, view_factors, exchange, trajectory, heating,
-               provenance, motion=None):
+               provenance, motion=None, positions=None):
     h5py = h5py_quiet()
 
     prov = dict(provenance or {})
@@ -369,12 +381,15 @@ def _write_all(target, *, model, geometry, view_factors, exchange, trajectory, h
             _write_trajectory(root, trajectory)
         if motion is not None:
             _write_motion(root, motion)
+        if positions is not None:
+            _write_positions(root, positions)
         if heating is not None:
             _write_heating(root, heating, None if trajectory is None else trajectory.time)
 
 
 def write_results(path, *, model, geometry, view_factors=None, exchange=None,
-                  trajectory=None, heating=None, provenance, inputs=(), motion=None) -> Path:
+                  trajectory=None, heating=None, provenance, inputs=(), motion=None,
+                  positions=None) -> Path:
     """Write the results of one run to an HDF5 file, atomically.
 
     Parameters
@@ -392,6 +407,8 @@ def write_results(path, *, model, geometry, view_factors=None, exchange=None,
         Its (t, ...) arrays must have the steps of ``trajectory``.
     motion : vfactor.kinematics.Motion, optional
         Hinges and their angle per step of ``trajectory`` (group ``/hinges``).
+    positions : vfactor.positions.PositionCouplings, optional
+        Couplings at hinge positions (group ``/positions``).
     provenance : dict
         Must hold ``seed`` and ``rays_per_node``; ``elapsed_s`` may map stage names to
         seconds (written as root attributes ``elapsed_<stage>_s``); other scalar entries
@@ -430,5 +447,5 @@ def write_results(path, *, model, geometry, view_factors=None, exchange=None,
     image = io.BytesIO()
     _write_all(image, model=model, geometry=geometry, view_factors=view_factors,
                exchange=exchange, trajectory=trajectory, heating=heating,
-               provenance=provenance, motion=motion)
+               provenance=provenance, motion=motion, positions=positions)
     return write_bytes(path, image.getbuffer(), "the results file", inputs=inputs)

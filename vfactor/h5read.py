@@ -44,6 +44,9 @@ class Results:
     hinges : dict or None — ``name``, ``law``, ``parent`` (tuples of str), ``angle_deg``
         ((t, h) hinge angle per step [deg]), ``axis`` and ``point`` ((h, 3), body frame as
         built [1], [m]) and ``facet_hinge`` ((f,) int, -1 rigid) when parts turn
+    positions : dict or None — ``angle_deg`` ((q, h) [deg]), ``step_position`` ((t,) int)
+        and ``view_factors`` / ``exchange`` (tuples of q records) when the run computed
+        couplings at hinge positions
     """
 
     path: Path
@@ -59,6 +62,7 @@ class Results:
     facet_average: dict | None = None
     orbit_attrs: dict = field(default_factory=dict)
     hinges: dict | None = None
+    positions: dict | None = None
 
     @property
     def seed(self) -> int:
@@ -245,6 +249,16 @@ def read_results(path, *, dense_couplings=False) -> Results:
                 hinges["angle_deg"] = g["angle"][()]
                 hinges.update(axis=g["axis"][()], point=g["point"][()],
                               facet_hinge=g["facet_hinge"][()].astype(np.int64))
+            positions = None
+            if "positions" in h:
+                g = h["positions"]
+                q = g["angle"].shape[0]
+                positions = {"angle_deg": g["angle"][()],
+                             "step_position": g["step_position"][()].astype(np.int64),
+                             "view_factors": tuple(_read_view_factors(g[f"{p}/view_factors"])
+                                                   for p in range(q)),
+                             "exchange": tuple(_read_exchange(g[f"{p}/exchange"])
+                                               for p in range(q))}
             node_avg = facet_avg = None
             if "heating" in h and "average" in h["heating"]:
                 node_avg = {k: v[()] for k, v in h["heating/average"].items()}
@@ -269,4 +283,4 @@ def read_results(path, *, dense_couplings=False) -> Results:
     return Results(path=path, attrs=attrs, model_source=source, model_name=name,
                    geometry=geometry, view_factors=vf, exchange=ex, trajectory=tr,
                    heating=heat, node_average=node_avg, facet_average=facet_avg,
-                   orbit_attrs=orbit_attrs, hinges=hinges)
+                   orbit_attrs=orbit_attrs, hinges=hinges, positions=positions)

@@ -60,9 +60,9 @@ def attr_value(v):
 # (/orbit/time). Kinds: "real" (any number), "int" (whole numbers), "text".
 _AXIS_SOURCE = {"n": "nodes/name", "f": "facets/triangles", "v": "facets/vertices",
                 "p": "facets/part_names", "c": "coatings/name", "t": "orbit/time",
-                "h": "hinges/name"}
+                "h": "hinges/name", "q": "positions/angle"}
 _AXIS_WORD = {"n": "node names", "f": "facets", "v": "vertices", "p": "part names",
-              "c": "coatings", "t": "time steps", "h": "hinges"}
+              "c": "coatings", "t": "time steps", "h": "hinges", "q": "hinge positions"}
 
 _NODE_REALS = ("area", "solar_absorptivity", "ir_emissivity", "solar_specular", "ir_specular")
 _COATING_REALS = ("solar_absorptivity", "ir_emissivity", "solar_specular", "ir_specular")
@@ -95,6 +95,7 @@ _DATASETS = {  # group -> {dataset: (kind, shape)}; every entry is required in i
     "hinges": {"name": ("text", ("h",)), "law": ("text", ("h",)), "parent": ("text", ("h",)),
                "axis": ("real", ("h", 3)), "point": ("real", ("h", 3)),
                "angle": ("real", ("t", "h")), "facet_hinge": ("int", ("f",))},
+    "positions": {"angle": ("real", ("q", "h")), "step_position": ("int", ("t",))},
     "heating/average": {k: ("real", ("n",)) for k in SOURCES + ("total",)},
     "heating/facet_average": {k: ("real", ("f",)) for k in SOURCES + ("total",)},
 }
@@ -183,6 +184,8 @@ def validate(h, path: Path) -> None:
     for group in _REQUIRED_GROUPS:
         if not isinstance(h.get(group), h5py.Group):
             raise bad(group, "missing (not a complete vfactor results file)")
+    if "positions" in h and "hinges" not in h:
+        raise bad("hinges", "missing, but /positions is present and needs its hinges")
     if "hinges" in h and "orbit" not in h:
         raise bad("orbit", "missing, but /hinges is present and needs its time steps")
     if "heating" in h and "orbit" not in h:

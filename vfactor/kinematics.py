@@ -20,7 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["Motion", "motion_of", "placed_geometry", "swept_spheres", "hinge_angles", "placements", "moved_vertices",
+__all__ = ["Motion", "motion_of", "placed_at", "placed_geometry", "swept_spheres", "hinge_angles", "placements", "moved_vertices",
            "moved_normals", "facet_hinge", "rotation"]
 
 _TWO_PI = 2.0 * math.pi
@@ -221,11 +221,20 @@ class Motion:
         return moved_normals(geometry, self.owner, self.rotation[k])
 
 
+def placed_at(geometry, owner, R, T):
+    """``geometry`` with its turning parts placed by (``R``, ``T``) of :func:`placements`:
+    vertices, normals and centroids moved, everything else as built."""
+    import dataclasses
+
+    vertices = moved_vertices(geometry, owner, R, T)
+    return dataclasses.replace(geometry, vertices=vertices,
+                               normals=moved_normals(geometry, owner, R),
+                               centroids=vertices[np.asarray(geometry.triangles)].mean(axis=1))
+
+
 def placed_geometry(geometry, stored: dict, k: int):
     """``geometry`` with its parts placed as at step ``k`` of a results file's hinges
     (:attr:`vfactor.h5read.Results.hinges`)."""
-    import dataclasses
-
     from vfactor.hinges import Hinge
 
     hinges = tuple(Hinge(name=n, parts=(), point=np.asarray(p, float),
@@ -234,9 +243,7 @@ def placed_geometry(geometry, stored: dict, k: int):
                                                    stored["parent"], stored["axis"],
                                                    stored["point"]))
     R, T = placements(hinges, np.radians(np.asarray(stored["angle_deg"])[k]))
-    owner = np.asarray(stored["facet_hinge"], np.int64)
-    return dataclasses.replace(geometry, vertices=moved_vertices(geometry, owner, R, T),
-                               normals=moved_normals(geometry, owner, R))
+    return placed_at(geometry, np.asarray(stored["facet_hinge"], np.int64), R, T)
 
 
 def motion_of(geometry, hinges, trajectory) -> Motion | None:

@@ -87,12 +87,17 @@ _RADIATION_DEFAULTS = {
     "sun_rays_per_facet": 16,
     "planet_rays_per_facet": 256,
     "gebhart_drop_tolerance": 1e-6,   # vfactor.gebhart.DROP_TOLERANCE
+    "hinge_positions": 0,
 }
 
 
 RAY_BUDGET_FACTOR = 20
 """Default ray budget per node when ``target_error`` adds rounds, in multiples of
 ``rays_per_node`` (the one place of this default; :mod:`vfactor.radiation` uses it too)."""
+
+MAX_HINGE_POSITIONS = 360
+"""Most hinge positions at which couplings may be computed (one a degree of a whole turn:
+finer is a slip; each position costs a full coupling run)."""
 
 MIN_ROUNDS = 8
 """Rounds every node's rays are split into (:data:`vfactor.radiation.MIN_ROUNDS`; kept
@@ -146,6 +151,8 @@ class RadiationSettings:
     facet_factors : bool — also keep facet-to-facet view factors (default false)
     sun_rays_per_facet : int — sample points per facet traced toward the Sun (default 16)
     planet_rays_per_facet : int — escaping directions per facet used for the planet (256)
+    hinge_positions : int — hinge positions at which the couplings are also computed
+        (0: none; see :mod:`vfactor.positions`)
     """
 
     rays_per_node: int = 200_000
@@ -157,6 +164,7 @@ class RadiationSettings:
     facet_factors: bool = False
     sun_rays_per_facet: int = 16
     planet_rays_per_facet: int = 256
+    hinge_positions: int = 0
 
 
 @dataclass(frozen=True, eq=False)
@@ -426,6 +434,7 @@ def _read_radiation(value, reader: Reader) -> RadiationSettings:
         "facet_factors": reader.boolean,
         "sun_rays_per_facet": lambda v, w: reader.integer(v, w, 1),
         "planet_rays_per_facet": lambda v, w: reader.integer(v, w, 1),
+        "hinge_positions": lambda v, w: reader.integer(v, w, 0, MAX_HINGE_POSITIONS),
     }
     for key, fn in checks.items():
         if key in tab:

@@ -83,6 +83,7 @@ class RunResult:
     trajectory: object = None
     heating: object = None
     motion: object = None
+    positions: object = None
     seed: int = 0
     rays_per_node: int = 0
     workers: int = 1
@@ -272,6 +273,7 @@ def _run(model_path, out: Path, *, rays, seed, workers, scheduler, resume, facet
     from .h5io import write_results
     from .heating import HeatingSteps, compute_heating
     from .kinematics import motion_of
+    from .positions import couplings_at_positions
     from .model import load_model
     from .tracing.scene import Scene
     from .trajectory import trajectory_from_model
@@ -349,10 +351,21 @@ def _run(model_path, out: Path, *, rays, seed, workers, scheduler, resume, facet
         trajectory = trajectory_from_model(model)
         motion = None if trajectory is None else motion_of(geometry, model.hinges, trajectory)
         elapsed["trajectory"] = time.perf_counter() - t0
+        positions = None
         if motion is not None:
             notes.append(f"{len(motion.hinges)} hinge(s) turn parts along the orbit: the "
                          "stored couplings are those of the model as built (every hinge at "
                          "0); each heating step uses the vehicle as placed at that step")
+            count = int(getattr(settings, "hinge_positions", 0))
+            if count:
+                t1 = time.perf_counter()
+                positions = couplings_at_positions(
+                    geometry, motion, count, rays_per_node=rays_per_node, seed=seed,
+                    smooth=settings.smoothing, target_error=settings.target_error,
+                    max_rays_per_node=getattr(settings, "max_rays_per_node", None),
+                    drop_tolerance=settings.gebhart_drop_tolerance, reporter=reporter)
+                elapsed["positions"] = time.perf_counter() - t1
+                notes.append(f"couplings also at {count} hinge position(s), in /positions")
         elif model.hinges:
             notes.append("the model has hinges but no [orbit]: its parts stay as built")
         if trajectory is not None:
@@ -394,12 +407,14 @@ def _run(model_path, out: Path, *, rays, seed, workers, scheduler, resume, facet
     t0 = time.perf_counter()
     write_results(out, model=model, geometry=geometry, view_factors=view_factors,
                   exchange=exchange, trajectory=trajectory, heating=heating,
-                  provenance=provenance, inputs=_model_inputs(model), motion=motion)
+                  provenance=provenance, inputs=_model_inputs(model), motion=motion,
+                  positions=positions)
     elapsed["write"] = time.perf_counter() - t0
     if ckpt is not None:
         ckpt.remove()
     return RunResult(output=out, model=model, geometry=geometry, view_factors=view_factors,
                      exchange=exchange, trajectory=trajectory, heating=heating, motion=motion,
+                     positions=positions,
                      seed=seed,
                      rays_per_node=rays_per_node,
                      workers=int(workers) if scheduler is None else 0, elapsed_s=elapsed,

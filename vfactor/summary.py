@@ -298,6 +298,8 @@ def summarize(results: Results, top: int = 15) -> dict:
                       results.hinges["name"], results.hinges["law"], results.hinges["parent"]))]
     return {"provenance": prov, "nodes": node_rows, "parts": _part_rows(results),
             "hinges": hinges,
+            "positions": None if results.positions is None else
+            len(results.positions["exchange"]),
             "couplings": couplings, "space": space,
             "accuracy": accuracy, "orbit": _orbit_facts(results), "heat_loads": loads,
             "warnings": warnings, "cautions": list(CAUTIONS)}
@@ -533,6 +535,9 @@ def format_summary(results: Results, top: int = 15, all_nodes: bool = False) -> 
         lines += _table(["hinge", "law", "rides on", "angle [deg]"],
                         [(r["name"], r["law"], r["parent"] or "-",
                           f"{r['min_deg']:.1f} .. {r['max_deg']:.1f}") for r in s["hinges"]])
+        if s["positions"]:
+            lines.append(f"  couplings also at {s['positions']} hinge positions: /positions, "
+                         "export couplings_position_K.csv")
 
     h = s["heat_loads"]
     if h is not None:
