@@ -339,6 +339,14 @@ def test_check_reports_the_first_clash_angle(tmp_path, orbit):
     assert not [p for p in check_model(path).errors if "hinge" in p.where]
 
 
+# a Sun-tracking panel over a box clear of its sweep, small ray counts (invented test case)
+TRACKER = (PLATE + PLATE.replace('"panel"', '"box"').replace('shape = "rectangle"', 'shape = "box"')
+           .replace("size = [1.0, 0.5]", "size = [0.4, 0.4, 0.4]\ncenter = [0, 0, -1.0]")
+           .replace('back = { coating = "w" }\n', "")
+           + _hinge("sun", normal="[0.0, 0.0, 1.0]") + ORBIT
+           + "\n[radiation]\nrays_per_node = 800\nplanet_rays_per_facet = 32\n")
+
+
 def test_results_file_runners_and_figures_of_a_turning_part(tmp_path):
     # the file holds the angles and what places the parts: the figures place them as the
     # heating stage did; two worker processes give the same bits as one process
@@ -346,12 +354,7 @@ def test_results_file_runners_and_figures_of_a_turning_part(tmp_path):
     from vfactor.h5read import read_results
     from vfactor.kinematics import placed_geometry
 
-    text = (COATINGS + PLATE + PLATE.replace('"panel"', '"box"')
-            .replace('shape = "rectangle"', 'shape = "box"')
-            .replace("size = [1.0, 0.5]", "size = [0.4, 0.4, 0.4]\ncenter = [0, 0, -1.0]")
-            .replace('back = { coating = "w" }\n', "")
-            + _hinge("sun", normal="[0.0, 0.0, 1.0]") + ORBIT
-            + "\n[radiation]\nrays_per_node = 800\nplanet_rays_per_facet = 32\n")
+    text = COATINGS + TRACKER
     path = tmp_path / "turning.toml"
     path.write_text(text)
     one = pipeline.run(path, tmp_path / "one.h5")
@@ -411,13 +414,7 @@ def test_couplings_at_hinge_positions_equal_rigid_models_built_there(tmp_path):
     from vfactor.positions import hinge_positions
     from vfactor.radiation import compute_view_factors
 
-    text = (COATINGS + PLATE + PLATE.replace('"panel"', '"box"')
-            .replace('shape = "rectangle"', 'shape = "box"')
-            .replace("size = [1.0, 0.5]", "size = [0.4, 0.4, 0.4]\ncenter = [0, 0, -1.0]")
-            .replace('back = { coating = "w" }\n', "")
-            + _hinge("sun", normal="[0.0, 0.0, 1.0]") + ORBIT
-            + "\n[radiation]\nrays_per_node = 800\nplanet_rays_per_facet = 32\n"
-              "hinge_positions = 3\n")
+    text = COATINGS + TRACKER + "hinge_positions = 3\n"
     path = tmp_path / "positions.toml"
     path.write_text(text)
     res = pipeline.run(path, tmp_path / "p.h5")
