@@ -4,7 +4,8 @@ The parts of every hinge are placed at the angles they take along the orbit (eac
 and in between so that no hinge turns more than :data:`SWEEP_STEP_DEG` from one sample to
 the next); without an ``[orbit]``, over their limits or a whole turn. At each sample the
 facet pairs that cross (:func:`vfactor.tracing.contacts.find_contacts`) between a moving
-part and any other part are looked for; the first crossing is located by bisection between
+part and any other part within reach of its sweep (:func:`vfactor.kinematics.swept_spheres`)
+are looked for; the first crossing is located by bisection between
 the last clear sample and the first crossing one and reported, with the hinge angle, in
 one line. Pairs that cross already as built are the geometric checks'
 business and are not repeated here.
@@ -66,7 +67,13 @@ def _when(at, q, exact) -> str:
 def check_hinges(model, geometry, report, tol: float) -> None:
     """Append to ``report`` an error for the first placement at which a part turned by a
     hinge crosses another part (one per hinge)."""
-    from vfactor.kinematics import facet_hinge, moved_normals, moved_vertices, placements
+    from vfactor.kinematics import (
+        facet_hinge,
+        moved_normals,
+        moved_vertices,
+        placements,
+        swept_spheres,
+    )
     from vfactor.tracing.contacts import CROSSING, find_contacts
 
     hinges = model.hinges
@@ -74,7 +81,15 @@ def check_hinges(model, geometry, report, tol: float) -> None:
         return
     g = geometry
     owner = facet_hinge(g, hinges)
-    usable = np.asarray(g.areas) > 0.0      # degenerate facets: reported by the caller
+    # only the turning facets and the rigid ones within reach of their sweep can cross
+    centres, radii = swept_spheres(hinges, g, owner)
+    corners = np.asarray(g.vertices)[np.asarray(g.triangles)]              # (f, 3, 3)
+    mid = corners.mean(axis=1)
+    size = np.linalg.norm(corners - mid[:, None, :], axis=2).max(axis=1)
+    reach = np.zeros(g.n_facets, bool)
+    for c, r in zip(centres, radii):
+        reach |= np.linalg.norm(mid - c, axis=1) <= r + size + tol
+    usable = (reach | (owner >= 0)) & (np.asarray(g.areas) > 0.0)   # degenerate: reported
     built = find_contacts(g.vertices, g.triangles, g.normals, usable, tol)
     known = set(zip(built.a.tolist(), built.b.tolist()))
     angles, at = _samples(model, hinges)
