@@ -476,7 +476,7 @@ class HeatingSteps:
         with reporter.stage("heating: escaping directions", total=max(model.sides.count, 1),
                             unit="facet sides") as bar:
             if self.motion is not None:   # the rigid part once, the rest at each step
-                return None, (geometry, rigid_part(self, geometry, bar))
+                return None, (geometry, rigid_part(self, geometry, model, bar))
             trace_once(model, bar, need_rays=self.use_cache or self.reflections)
         bands = bands_of(model, geometry, self.view) if self.reflections else None
         return model, bands

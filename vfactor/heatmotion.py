@@ -67,18 +67,15 @@ def _local(facets, n_facets):
     return out
 
 
-def rigid_part(task, geometry, bar) -> RigidPart:
-    """Trace the rays of the rigid sides once among the rigid facets (``bar`` advanced per
-    side)."""
+def rigid_part(task, geometry, model, bar) -> RigidPart:
+    """Trace the rays of the rigid sides once among the rigid facets (``model``: the
+    :func:`vfactor.heatstep.prepare` of the vehicle as built; ``bar`` advanced per side)."""
     from vfactor.tracing import heat_kernels as hk
     from vfactor.tracing.scene import Scene
 
     owner = task.motion.owner
     vertices = np.asarray(geometry.vertices, dtype=np.float64)
     triangles = np.ascontiguousarray(geometry.triangles, dtype=np.int64)
-    built = Scene.build(vertices, triangles)
-    model = heatstep.prepare(geometry, built, task.replicates, task.rays_per_facet,
-                             task.sun_samples, task.seed, task.max_bounces)
     s = model.sides
     rigid_side = owner[s.facet] < 0
     rigid = np.flatnonzero(owner < 0)
