@@ -290,3 +290,23 @@ size = [1, 1]
 front = {side}
 """)
     assert "\n" not in str(err.value)
+
+
+def test_per_patch_on_a_mesh_without_names_spans_the_part(tmp_path):
+    # a mesh file without names is split into flat regions only to name faces; its patches
+    # are cubes over the whole part (PART.K): a 1 m cube cut by 0.6 m cubes gives at most
+    # 2 x 2 x 2 patches, and every facet's centroid lies in its patch's cube
+    trimesh.creation.box(extents=[1.0, 1.0, 1.0]).export(tmp_path / "cube.stl")
+    g = geo("""
+[[parts]]
+name = "m"
+shape = "mesh"
+file = "cube.stl"
+front = { coating = "w", nodes = "per-patch", patch_size = 0.6 }
+""", tmp_path)
+    names = g.nodes.names
+    assert 1 < len(names) <= 8 and all(n.count(".") == 1 and n.startswith("m.") for n in names)
+    for k in range(len(names)):
+        c = g.centroids[g.front_node == k]
+        assert np.all(np.ptp(c, axis=0) < 0.6)
+    np.testing.assert_allclose(g.nodes.area.sum(), 6.0, rtol=1e-12)

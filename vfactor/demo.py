@@ -123,7 +123,7 @@ def run_demo(folder, *, rays=None, workers=1, quiet=False, verbose=False) -> int
     say(f"   model       {model_file}  (edit it and rerun: vfactor run {model_file} -o {out})")
     say(f"   results     {out}  (HDF5; `vfactor summary {out}`)")
     say(f"   figures     {folder / 'figures'}/  ({', '.join(f.name for f in figures)})")
-    say(f"   CSV tables  {folder / 'tables'}/  (nodes.csv, couplings.csv"
-        + (", heat_loads.csv)" if results.heating is not None else ")"))
+    tables = [f.name for f in exported if f.suffix == ".csv"]
+    say(f"   CSV tables  {folder / 'tables'}/  ({', '.join(tables)})")
     say(f"   meshes      {folder / 'demo.vtu'} (ParaView), {folder / 'demo.glb'} (glTF viewers)")
     return 0

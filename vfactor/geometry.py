@@ -31,6 +31,7 @@ side setting        front side                   back side
 cube of edge ``patch_size`` (a grid in the part's frame, starting at the face's lowest
 centroid coordinates) form one node; K numbers the patches of a face from 0 in order of
 their first facet. Whole facets go to a patch, so a patch is as fine as the facets allow.
+A mesh file without names (split into flat regions) is cut as one face: ``PART.K``.
 
 A one-face shape (rectangle, disk, sphere, dish) gives ``per-face`` and ``per-group`` the
 names of ``single``; on primitives ``per-group`` equals ``per-face``; on meshes
@@ -223,7 +224,10 @@ def _names_for(part, side, tess, facets, back: bool, selection=None):
 def _patches(part, size, tess, facets, suffix):
     """``per-patch`` names: facets binned by centroid into cubes of edge ``size`` per face."""
     centroids = tess.vertices[tess.triangles[facets]].mean(axis=1)
-    face = tess.face[facets]
+    # a mesh file without names is split into flat regions only to name its faces: patches
+    # then span the whole part (a filleted CAD part has thousands of tiny flat regions)
+    whole = tess.one_face or tess.label_source == "flat regions"
+    face = np.zeros(len(facets), np.int64) if whole else tess.face[facets]
     cell = np.empty((len(facets), 3), np.int64)
     for k in np.unique(face):
         on = face == k
@@ -239,7 +243,7 @@ def _patches(part, size, tess, facets, suffix):
     for k in patch_face.tolist():
         index = count.get(k, 0)
         count[k] = index + 1
-        base = part.name if tess.one_face else f"{part.name}.{tess.labels[k]}"
+        base = part.name if whole else f"{part.name}.{tess.labels[k]}"
         names.append(f"{base}.{index}{suffix}")
     return names, local
 
