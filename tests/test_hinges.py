@@ -24,6 +24,7 @@ from vfactor.heating import compute_heating
 from vfactor.hinges import Hinge
 from vfactor.kinematics import hinge_angles, motion_of, rotation
 from vfactor.model import load_model_text
+from vfactor.positions import couplings_at_positions
 from vfactor.tracing.scene import Scene
 from vfactor.trajectory import trajectory_from_model
 
@@ -289,6 +290,21 @@ def test_a_placed_step_equals_a_rigid_model_built_at_that_position():
                             seed=9, rays_per_facet=64)
     for name in ("node_solar", "node_albedo", "node_planet_ir", "facet_solar"):
         assert getattr(moving, name)[k].tobytes() == getattr(rigid, name)[0].tobytes(), name
+
+    # with couplings at hinge positions the step redistributes by its position's view
+    # factors: the bits of the rigid model at that step given those view factors
+    positions = couplings_at_positions(g, motion, 3, rays_per_node=4000, seed=9)
+    by_position = compute_heating(g, Scene.build(g.vertices, g.triangles), tr, env,
+                                  motion=motion, positions=positions, seed=9,
+                                  rays_per_facet=64)
+    view = positions.view_factors[positions.step_position[k]]
+    rigid = compute_heating(placed, Scene.build(placed.vertices, placed.triangles), one, env,
+                            seed=9, rays_per_facet=64, view_factors=view)
+    for name in ("node_solar", "node_albedo", "node_planet_ir", "facet_solar"):
+        assert getattr(by_position, name)[k].tobytes() == getattr(rigid, name)[0].tobytes()
+    # the reflected part differs from the step's own couplings, the direct part does not
+    assert not np.array_equal(by_position.node_solar, moving.node_solar)
+    assert np.array_equal(by_position.incident_solar, moving.incident_solar)
 
 
 # -- check: a turning part must not sweep through another ---------------------------------

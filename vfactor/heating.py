@@ -311,7 +311,7 @@ def _check_inputs(geometry, scene, trajectory, environment, rays_per_facet, sun_
 def compute_heating(geometry, scene, trajectory, environment, *, view_factors=None,
                     rays_per_facet=256, sun_samples=16, seed=1, use_cache=True,
                     reflections=True, replicates=8, max_bounces=16, motion=None,
-                    reporter=None) -> Heating:
+                    positions=None, reporter=None) -> Heating:
     """Absorbed solar, albedo and planet IR per node and facet at every trajectory step.
 
     Parameters
@@ -350,7 +350,12 @@ def compute_heating(geometry, scene, trajectory, environment, *, view_factors=No
     motion : vfactor.kinematics.Motion, optional
         Turning parts: every step is traced on the vehicle placed at that step's hinge
         angles (:mod:`vfactor.heatmotion`; ``use_cache`` and ``view_factors`` then do not
-        apply: the placed vehicle's own rays give its couplings).
+        apply).
+    positions : vfactor.positions.PositionCouplings, optional
+        With ``motion``: the diffuse redistribution of a step uses the view factors of the
+        hinge position nearest to it (``step_position``), whose Gebhart factors are solved
+        once per position. Without: the placed vehicle's own rays at each step give its
+        couplings (exact for the step, and the slowest part of a step).
     reporter : vfactor.progress.Reporter, optional
         Receives a ``"heating: escaping directions"`` stage (facet sides traced once) and
         a ``"heating"`` stage advanced once per step.
@@ -378,7 +383,8 @@ def compute_heating(geometry, scene, trajectory, environment, *, view_factors=No
     task = HeatingSteps.of(geometry, scene, trajectory, environment, view_factors=view_factors,
                            rays_per_facet=rays_per_facet, sun_samples=sun_samples, seed=seed,
                            use_cache=use_cache, reflections=reflections,
-                           replicates=replicates, max_bounces=max_bounces, motion=motion)
+                           replicates=replicates, max_bounces=max_bounces, motion=motion,
+                           positions=positions)
     state = task.prepare(geometry, scene, reporter)
     steps = np.arange(task.n_steps)
     with reporter.stage("heating", total=task.n_steps, unit="steps") as bar:
@@ -399,6 +405,11 @@ class _View(NamedTuple):
     matrix: object
     space: np.ndarray
     inert: np.ndarray
+
+
+def _view_of(view_factors) -> _View:
+    return _View(view_factors.matrix, np.asarray(view_factors.space, dtype=np.float64),
+                 np.asarray(view_factors.inert, dtype=np.float64))
 
 
 @dataclass(frozen=True, eq=False)
@@ -429,12 +440,14 @@ class HeatingSteps:
     replicates: int
     max_bounces: int
     motion: object = None         # vfactor.kinematics.Motion when parts turn
+    step_position: object = None  # (t,) int: hinge position of each step (with motion)
+    position_views: tuple = None  # per hinge position: _View
     key: str = field(default_factory=lambda: "heating:" + uuid.uuid4().hex)
 
     @classmethod
     def of(cls, geometry, scene, trajectory, environment, *, view_factors=None,
            rays_per_facet=256, sun_samples=16, seed=1, use_cache=True, reflections=True,
-           replicates=8, max_bounces=16, motion=None) -> "HeatingSteps":
+           replicates=8, max_bounces=16, motion=None, positions=None) -> "HeatingSteps":
         """The task of :func:`compute_heating` with these arguments (checked here)."""
         _check_inputs(geometry, scene, trajectory, environment, rays_per_facet, sun_samples,
                       seed, replicates, max_bounces)
@@ -449,9 +462,15 @@ class HeatingSteps:
              float(s_const[k]), float(frac_all[k]),
              math.cos(math.asin(min(1.0, SUN_RADIUS_M / sun_dist_all[k]))))
             for k in range(trajectory.n_steps))
-        view = None if view_factors is None else _View(
-            view_factors.matrix, np.asarray(view_factors.space, dtype=np.float64),
-            np.asarray(view_factors.inert, dtype=np.float64))
+        view = None if view_factors is None else _view_of(view_factors)
+        by_position = None
+        if motion is not None and positions is not None:
+            step_position = np.asarray(positions.step_position, dtype=np.int64)
+            if step_position.shape != (trajectory.n_steps,):
+                raise ValueError(f"compute_heating: positions.step_position must have shape "
+                                 f"({trajectory.n_steps},), got {step_position.shape}")
+            by_position = dict(step_position=step_position, position_views=tuple(
+                _view_of(vf) for vf in positions.view_factors))
         return cls(steps=steps,
                    env=dict(radius=float(trajectory.planet.radius),
                             olr=float(environment.planet_ir), albedo=float(environment.albedo)),
@@ -460,7 +479,8 @@ class HeatingSteps:
                    solar_constant=s_const, case=environment.case,
                    rays_per_facet=int(rays_per_facet), sun_samples=int(sun_samples),
                    seed=int(seed), use_cache=bool(use_cache), reflections=bool(reflections),
-                   replicates=int(replicates), max_bounces=int(max_bounces), motion=motion)
+                   replicates=int(replicates), max_bounces=int(max_bounces), motion=motion,
+                   **(by_position or {}))
 
     @property
     def n_steps(self) -> int:
@@ -476,7 +496,8 @@ class HeatingSteps:
         with reporter.stage("heating: escaping directions", total=max(model.sides.count, 1),
                             unit="facet sides") as bar:
             if self.motion is not None:   # the rigid part once, the rest at each step
-                return None, (geometry, rigid_part(self, geometry, model, bar))
+                # Gebhart factors of each hinge position, solved when a step first uses it
+                return None, (geometry, rigid_part(self, geometry, model, bar), {})
             trace_once(model, bar, need_rays=self.use_cache or self.reflections)
         bands = bands_of(model, geometry, self.view) if self.reflections else None
         return model, bands

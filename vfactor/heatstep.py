@@ -16,8 +16,8 @@ import numpy as np
 import scipy.sparse as sp
 from vfactor.sparsetools import as_csr
 
-__all__ = ["Model", "Step", "prepare", "trace_once", "cache_targets", "bands_of", "one_step",
-           "unit"]
+__all__ = ["Model", "Step", "prepare", "trace_once", "cache_targets", "band_gebhart",
+           "bands_of", "one_step", "unit"]
 
 
 @dataclass(frozen=True)
@@ -193,47 +193,56 @@ def trace_once(model: Model, bar, need_rays: bool) -> None:
     cache_targets(model, targets, need_rays)
 
 
-def cache_targets(model: Model, targets, need_rays: bool) -> None:
+def cache_targets(model: Model, targets, need_rays: bool, fill=None) -> None:
     """The cache of :func:`trace_once` from the first hits ``targets`` (s, m k_planet) of
     every planet ray: escaping rays by (side, replicate), control-variate sides and their
-    blocked rays."""
+    blocked rays. ``fill(segment_start, origin, direction)``, if given, writes the escaping
+    rays instead of :func:`vfactor.tracing.heat_kernels.fill_escaping` (same layout)."""
     from vfactor.tracing import heat_kernels as hk
 
     s = model.sides
-    n_rays = model.m * model.k_planet
-    escaping = (targets == hk.TARGET_ESCAPE).reshape(s.count * model.m, model.k_planet)
-    segment_start = np.zeros(s.count * model.m + 1, dtype=np.int64)
-    np.cumsum(escaping.sum(axis=1), out=segment_start[1:])
+    m, k = model.m, model.k_planet
+    n_rays = m * k
+    escapes = np.empty(s.count * m, dtype=np.int64)
+    if s.count:
+        hk.segment_escapes(targets, m, k, escapes)
+    segment_start = np.zeros(s.count * m + 1, dtype=np.int64)
+    np.cumsum(escapes, out=segment_start[1:])
     n_esc = int(segment_start[-1]) if need_rays else 0
     model.targets = targets
     model.segment_start = segment_start
     model.esc_origin = np.empty((n_esc, 3))
     model.esc_dir = np.empty((n_esc, 3))
+    every = np.ones(s.count, dtype=np.bool_)
     if need_rays and s.count:
-        hk.fill_escaping(model.vertices, model.triangles, model.normals, s.facet, s.sign,
-                         model.seed, model.m, model.k_planet, targets, segment_start, True,
-                         model.esc_origin, model.esc_dir)
+        if fill is None:
+            hk.fill_escaping(model.vertices, model.triangles, model.normals, s.facet, s.sign,
+                             model.seed, m, k, targets, segment_start, True, every,
+                             model.esc_origin, model.esc_dir)
+        else:
+            fill(segment_start, model.esc_origin, model.esc_dir)
     # control variate for planet IR where the vehicle blocks less than half of the rays
-    blocked = ~escaping.reshape(s.count, n_rays)
-    model.control = blocked.mean(axis=1) < CONTROL_BLOCKED_SHARE if s.count else \
-        np.zeros(0, bool)
+    blocked_per_segment = (k - escapes).reshape(s.count, m)
+    model.control = blocked_per_segment.sum(axis=1) / n_rays < CONTROL_BLOCKED_SHARE \
+        if s.count else np.zeros(0, bool)
     model.position = model.vertices[model.triangles[s.facet]].mean(axis=1)
-    counted = (blocked & model.control[:, None]).reshape(s.count * model.m, model.k_planet)
-    model.blk_start = np.zeros(s.count * model.m + 1, dtype=np.int64)
-    np.cumsum(counted.sum(axis=1), out=model.blk_start[1:])
+    counted = np.where(model.control[:, None], blocked_per_segment, 0).ravel()
+    model.blk_start = np.zeros(s.count * m + 1, dtype=np.int64)
+    np.cumsum(counted, out=model.blk_start[1:])
     n_blk = int(model.blk_start[-1]) if need_rays else 0
     model.blk_origin = np.empty((n_blk, 3))
     model.blk_dir = np.empty((n_blk, 3))
     if need_rays and n_blk:
-        # rays of sides without the control variate count as escaping: none is stored
-        marked = np.where(model.control[:, None], targets, hk.TARGET_ESCAPE).astype(np.int32)
+        # rays of sides without the control variate are not stored
         hk.fill_escaping(model.vertices, model.triangles, model.normals, s.facet, s.sign,
-                         model.seed, model.m, model.k_planet, marked, model.blk_start, False,
+                         model.seed, m, k, targets, model.blk_start, False, model.control,
                          model.blk_origin, model.blk_dir)
 
 
-def bands_of(model: Model, geometry, view_factors) -> dict:
-    """Per band: Gebhart factors, side and facet properties, specular sides and rays."""
+def band_gebhart(model: Model, geometry, view_factors) -> dict:
+    """Per band ("solar", "ir"): (B, B_space, B_inert) of the node view factors
+    ``view_factors`` (an object with matrix, space, inert), or of the cached rays when it is
+    None; None for a band in which every node is black."""
     n = model.n_nodes
     if view_factors is not None:
         view = (as_csr(view_factors.matrix),
@@ -244,27 +253,39 @@ def bands_of(model: Model, geometry, view_factors) -> dict:
                              f" got {view[0].shape}")
     else:
         view = _node_view_factors(model.sides, model.targets, n, model.node_area)
+    out = {}
+    for band, node_abs in (("solar", geometry.nodes.solar_absorptivity),
+                           ("ir", geometry.nodes.ir_emissivity)):
+        node_abs = np.asarray(node_abs, dtype=np.float64)
+        black = n == 0 or bool(np.all(node_abs >= 1.0))   # nothing is reflected
+        out[band] = None if black else _gebhart(view, node_abs)
+    return out
+
+
+def bands_of(model: Model, geometry, view_factors, gebhart=None) -> dict:
+    """Per band: Gebhart factors (``gebhart`` from :func:`band_gebhart`, computed here when
+    None), side and facet properties, specular sides and their cached rays."""
+    from vfactor.tracing import heat_kernels as hk
+
+    if gebhart is None:
+        gebhart = band_gebhart(model, geometry, view_factors)
     f_alpha, f_eps, f_sspec, f_ispec = model.props
     s = model.sides
     bands = {}
-    for band, node_abs, f_abs, f_spec, s_abs, s_spec in (
-            ("solar", geometry.nodes.solar_absorptivity, f_alpha, f_sspec, s.absorptivity,
-             s.solar_specular),
-            ("ir", geometry.nodes.ir_emissivity, f_eps, f_ispec, s.emissivity, s.ir_specular)):
-        node_abs = np.asarray(node_abs, dtype=np.float64)
-        black = n == 0 or bool(np.all(node_abs >= 1.0))   # nothing is reflected
+    for band, f_abs, f_spec, s_abs, s_spec in (
+            ("solar", f_alpha, f_sspec, s.absorptivity, s.solar_specular),
+            ("ir", f_eps, f_ispec, s.emissivity, s.ir_specular)):
         spec_sides = np.flatnonzero((1.0 - s_abs) * s_spec > 0.0)
-        rows, owner = _rows_of_sides(spec_sides, model.segment_start, model.m)
-        d = model.esc_dir[rows]
-        nrm = s.normal[owner]
-        dn = np.einsum("ij,ij->i", d, nrm)
-        segment = np.searchsorted(model.segment_start, rows, side="right") - 1
+        rows, owner, replicate = _rows_of_sides(spec_sides, model.segment_start, model.m)
+        mirror = np.empty((rows.size, 3))
+        mirror_origin = np.empty((rows.size, 3))
+        if rows.size:
+            hk.mirror_rays(rows, owner, model.esc_origin, model.esc_dir,
+                           np.ascontiguousarray(s.normal), mirror_origin, mirror)
         bands[band] = dict(
-            gebhart=None if black else _gebhart(view, node_abs), f_abs=f_abs, f_spec=f_spec,
+            gebhart=gebhart[band], f_abs=f_abs, f_spec=f_spec,
             s_abs=s_abs, s_spec=s_spec, spec_sides=spec_sides, rows=rows, owner=owner,
-            replicate=(segment % model.m).astype(np.int64),
-            mirror=np.ascontiguousarray(-d + 2.0 * dn[:, None] * nrm),
-            mirror_origin=np.ascontiguousarray(model.esc_origin[rows]))
+            replicate=replicate, mirror=mirror, mirror_origin=mirror_origin)
     return bands
 
 
@@ -344,13 +365,22 @@ def _per_replicate(node, values, n_nodes):
 
 
 def _rows_of_sides(side_list, segment_start, m):
-    """Rows of the escaping-ray cache that belong to the given sides, and their owner."""
-    rows = [np.arange(segment_start[i * m], segment_start[(i + 1) * m], dtype=np.int64)
-            for i in side_list]
-    if not rows:
-        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
-    owner = [np.full(r.size, i, dtype=np.int64) for i, r in zip(side_list, rows)]
-    return np.concatenate(rows), np.concatenate(owner)
+    """Rows of the escaping-ray cache that belong to the given sides: (rows, owning side,
+    replicate of each row)."""
+    side_list = np.asarray(side_list, dtype=np.int64)
+    segments = (side_list[:, None] * m + np.arange(m)[None, :]).ravel()
+    first = segment_start[segments]
+    length = segment_start[segments + 1] - first
+    total = int(length.sum())
+    if total == 0:
+        empty = np.zeros(0, dtype=np.int64)
+        return empty, empty.copy(), empty.copy()
+    # rows of segment g are first[g] .. first[g] + length[g] - 1, segments in order
+    seg_of_row = np.repeat(np.arange(segments.size), length)
+    offset = np.arange(total) - np.repeat(np.cumsum(length) - length, length)
+    rows = first[seg_of_row] + offset
+    return (rows.astype(np.int64), np.repeat(side_list, m)[seg_of_row],
+            (segments % m)[seg_of_row].astype(np.int64))
 
 
 _CHUNK = 4096

@@ -374,7 +374,7 @@ def _run(model_path, out: Path, *, rays, seed, workers, scheduler, resume, facet
             heat_args = dict(view_factors=view_factors,
                              rays_per_facet=int(settings.planet_rays_per_facet),
                              sun_samples=int(settings.sun_rays_per_facet), seed=seed,
-                             motion=motion)
+                             motion=motion, positions=positions)
             if runner is not None:
                 task = HeatingSteps.of(geometry, scene, trajectory, environment, **heat_args)
                 heating, resumed["heating steps"] = stagework.heating_on(

@@ -17,6 +17,8 @@ Kernels
   (``-1`` escapes, ``-2`` lost on an inert side). Done once for rigid geometry.
 - :func:`fill_escaping` : origins and directions of the escaping rays, or of the blocked
   ones (regenerated, not traced), grouped by (side, replicate).
+- :func:`segment_escapes` : escaping rays per (side, replicate).
+- :func:`mirror_rays` : mirror images of cached rays about their side's normal.
 - :func:`planet_cached` : per step, escaping rays against the planet sphere.
 - :func:`planet_uncached` : the same result re-tracing every ray against the vehicle.
 - :func:`sun_lit_mask` : per step, sample points of each side traced toward the solar disk.
@@ -49,9 +51,9 @@ __all__ = [
     "PURPOSE_SUN",
     "side_stream",
     "trace_targets",
-    "trace_targets_in",
-    "near_spheres",
     "fill_escaping",
+    "segment_escapes",
+    "mirror_rays",
     "planet_cached",
     "planet_uncached",
     "sun_lit_mask",
@@ -125,92 +127,9 @@ def trace_targets(arrays, vertices, triangles, normals, side_facet, side_sign, f
 
 
 @njit(**JIT_PARALLEL)
-def trace_targets_in(arrays, local_node, local_of, vertices, triangles, normals, side_facet,
-                     side_sign, seed, replicates, per_replicate, tmax, keep_miss, only,
-                     out_target, out_distance):
-    """First hits of the rays of :func:`trace_targets` in another scene (a part of the
-    vehicle), nearer than ``tmax``.
-
-    The rays are those of the whole vehicle (``vertices``, ``triangles``, ``normals`` and
-    the global facet indices ``side_facet``: same random streams); the scene ``arrays``
-    holds some of its facets, numbered locally.
-
-    Parameters
-    ----------
-    local_node : (g, 2) int64 — node of the front and back side of each facet of the scene
-    local_of : (f,) int64 — local index of each global facet in the scene, -1 if absent
-    tmax : (s, replicates * per_replicate) float64 — hits at this distance or beyond do not
-        count [m]
-    keep_miss : bool — a ray that hits nothing keeps its ``out_target`` and
-        ``out_distance`` (True), or is marked ``TARGET_ESCAPE`` at infinity (False)
-    only : (s, replicates * per_replicate) bool — the rays traced (the others are left)
-    out_target : (s, replicates * per_replicate) int32 — node hit first (read when
-        ``keep_miss``, written on a hit)
-    out_distance : same shape, float64 — distance of that hit [m]
-    """
-    for s in prange(side_facet.shape[0]):
-        f = side_facet[s]
-        sign = side_sign[s]
-        stream = side_stream(PURPOSE_PLANET, f, sign)
-        own = local_of[f]
-        for r in range(replicates):
-            for k in range(per_replicate):
-                j = r * per_replicate + k
-                if not only[s, j]:
-                    continue
-                x, y, z, dx, dy, dz = _side_ray(vertices, triangles, normals, f, sign, seed,
-                                                stream, r, k)
-                hit, t, front = closest_hit(arrays, x, y, z, dx, dy, dz, tmax[s, j], own)
-                if hit >= 0:
-                    node = local_node[hit, 0] if front else local_node[hit, 1]
-                    out_target[s, j] = node if node >= 0 else TARGET_INERT
-                    out_distance[s, j] = t
-                elif not keep_miss:
-                    out_target[s, j] = TARGET_ESCAPE
-                    out_distance[s, j] = np.inf
-
-
-@njit(**JIT_PARALLEL)
-def near_spheres(vertices, triangles, normals, side_facet, side_sign, seed, replicates,
-                 per_replicate, tmax, centres, radii, out):
-    """Which rays of :func:`trace_targets` pass through any of some spheres before
-    ``tmax`` (the segment from the origin to ``tmax`` comes closer than the radius to the
-    centre).
-
-    Parameters
-    ----------
-    tmax : (s, replicates * per_replicate) float64 [m] (inf: the whole ray)
-    centres : (q, 3) float64 [m], radii : (q,) float64 [m]
-    out : (s, replicates * per_replicate) bool, written
-    """
-    for s in prange(side_facet.shape[0]):
-        f = side_facet[s]
-        sign = side_sign[s]
-        stream = side_stream(PURPOSE_PLANET, f, sign)
-        for r in range(replicates):
-            for k in range(per_replicate):
-                j = r * per_replicate + k
-                x, y, z, dx, dy, dz = _side_ray(vertices, triangles, normals, f, sign, seed,
-                                                stream, r, k)
-                near = False
-                for q in range(centres.shape[0]):
-                    wx = centres[q, 0] - x
-                    wy = centres[q, 1] - y
-                    wz = centres[q, 2] - z
-                    t = wx * dx + wy * dy + wz * dz
-                    t = min(max(t, 0.0), tmax[s, j])
-                    ex = wx - t * dx
-                    ey = wy - t * dy
-                    ez = wz - t * dz
-                    if ex * ex + ey * ey + ez * ez <= radii[q] * radii[q]:
-                        near = True
-                        break
-                out[s, j] = near
-
-
-@njit(**JIT_PARALLEL)
 def fill_escaping(vertices, triangles, normals, side_facet, side_sign, seed, replicates,
-                  per_replicate, target, segment_start, escaping, out_origin, out_direction):
+                  per_replicate, target, segment_start, escaping, use, out_origin,
+                  out_direction):
     """Store origin and direction of the escaping (or of the blocked) rays, grouped by
     (side, replicate).
 
@@ -219,9 +138,12 @@ def fill_escaping(vertices, triangles, normals, side_facet, side_sign, seed, rep
     target : (s, replicates * per_replicate) int32 — from :func:`trace_targets`
     segment_start : (s * replicates + 1,) int64 — first row of segment ``s * replicates + r``
     escaping : bool — True: the rays that escape the vehicle; False: the rays it blocks
+    use : (s,) bool — sides whose rays are stored (the others have empty segments)
     out_origin, out_direction : (e, 3) float64, written [m], [1]
     """
     for s in prange(side_facet.shape[0]):
+        if not use[s]:
+            continue
         f = side_facet[s]
         sign = side_sign[s]
         stream = side_stream(PURPOSE_PLANET, f, sign)
@@ -239,6 +161,34 @@ def fill_escaping(vertices, triangles, normals, side_facet, side_sign, seed, rep
                 out_direction[row, 1] = dy
                 out_direction[row, 2] = dz
                 row += 1
+
+
+@njit(**JIT_PARALLEL)
+def segment_escapes(target, replicates, per_replicate, out):
+    """Escaping rays (``TARGET_ESCAPE``) of each (side, replicate): ``out[s * replicates +
+    r]`` counts row ``s``, columns ``r * per_replicate ..`` of ``target`` (int64, written)."""
+    for s in prange(target.shape[0]):
+        for r in range(replicates):
+            count = 0
+            for k in range(per_replicate):
+                if target[s, r * per_replicate + k] == TARGET_ESCAPE:
+                    count += 1
+            out[s * replicates + r] = count
+
+
+@njit(**JIT_PARALLEL)
+def mirror_rays(rows, owner, origin, direction, side_normal, out_origin, out_direction):
+    """Mirror images of cached rays: ``out_direction[i] = -d + 2 (d.n) n`` for ``d =
+    direction[rows[i]]`` and ``n = side_normal[owner[i]]`` (a ray arriving along ``-d``
+    leaves along the mirror direction), ``out_origin[i] = origin[rows[i]]``."""
+    for i in prange(rows.shape[0]):
+        q = rows[i]
+        o = owner[i]
+        dn = (direction[q, 0] * side_normal[o, 0] + direction[q, 1] * side_normal[o, 1]
+              + direction[q, 2] * side_normal[o, 2])
+        for c in range(3):
+            out_direction[i, c] = -direction[q, c] + 2.0 * dn * side_normal[o, c]
+            out_origin[i, c] = origin[q, c]
 
 
 @njit(**JIT, inline="always")
