@@ -192,10 +192,12 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser(
         "export", parents=[common], formatter_class=_Formatter,
         help="export CSV tables, or per-facet results as VTK / glTF",
-        description="csv : nodes.csv, couplings.csv, heat_loads.csv in folder PATH (units in "
-                    "the header)\nvtk : PATH.vtu, facets with per-facet results as cell data "
-                    "(ParaView)\ngltf: PATH.glb, facets coloured by the time-averaged absorbed "
-                    "flux",
+        description="csv : nodes.csv, couplings.csv, conductances.csv, heat_loads.csv and "
+                    "the per-step tables loads_*, flux_*, incident_*, planet_view_unblocked in "
+                    "folder PATH (units in the header)\nvtk : PATH.vtu, facets with per-facet "
+                    "results as cell data (ParaView), PATH_nodes.csv (node names) and, with an "
+                    "orbit, PATH.pvd with one file per step in PATH_steps/\ngltf: PATH.glb, "
+                    "facets coloured by the time-averaged absorbed flux",
         epilog="examples:\n  vfactor export sat.h5 --format csv -o tables\n"
                "  vfactor export sat.h5 --format csv -o tables --threshold 1e-3\n"
                "  vfactor export sat.h5 --format vtk -o sat.vtu\n"
@@ -208,6 +210,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--threshold", metavar="X", type=_threshold, default=None,
                    help="csv: smallest view factor or Gebhart factor listed in couplings.csv "
                         "(default 1e-4)")
+    p.add_argument("--self-terms", action="store_true",
+                   help="csv: also list a node's exchange with itself in conductances.csv")
     p.set_defaults(func=_cmd_export)
 
     p = sub.add_parser(
@@ -289,7 +293,8 @@ def _cmd_export(args) -> int:
     from .h5io import read_results
 
     threshold = DEFAULT_THRESHOLD if args.threshold is None else args.threshold
-    files = export(read_results(args.results), args.format, args.output, threshold=threshold)
+    files = export(read_results(args.results), args.format, args.output, threshold=threshold,
+                   self_terms=args.self_terms)
     for f in files:
         _say(args, f"wrote {f}")
     return 0

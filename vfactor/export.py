@@ -1,16 +1,20 @@
 """``vfactor export``: results as CSV tables for a network solver, and coloured meshes.
 
-Formats (the CSV layout is documented in the README, "CSV layout"):
+Formats (every file, column and unit is listed in the README, "CSV layout"):
 
 ``csv``
-    A folder with ``nodes.csv`` (one row per node), ``couplings.csv`` (one row per ordered
-    node pair whose view factor or Gebhart factor reaches ``threshold``) and, when the run
-    has an orbit, ``heat_loads.csv`` (one row per step and node) and, when parts turn,
-    ``hinges.csv`` (one row per step, the angle of each hinge). The header of every column
-    carries its unit in square brackets (``area [m2]``); one header line, comma-separated,
-    no comment lines.
+    A folder of tables (:mod:`vfactor.tables`): ``nodes.csv``, ``couplings.csv`` (ordered
+    node pairs at or above ``threshold``), ``conductances.csv`` (symmetric conductors, one
+    per unordered pair, and to space) and, when the run has an orbit, ``heat_loads.csv``
+    (one row per step and node) and the wide tables ``loads_*``, ``flux_*``,
+    ``incident_*`` and ``planet_view_unblocked.csv`` (one row per step, one column per
+    node); when parts turn, ``hinges.csv``.
 ``vtk``
-    An unstructured grid (``.vtu``, via meshio) with per-facet cell data for ParaView.
+    An unstructured grid (``.vtu``, via meshio) with per-facet cell data for ParaView:
+    orbit averages, and the node index of each facet; beside it ``<stem>_nodes.csv``, the
+    node name of each index. With an orbit also one ``.vtu`` per step (absorbed flux at
+    that step) in ``<stem>_steps/`` and the collection ``<stem>.pvd`` that lists them with
+    their times (the ParaView data-collection format).
 ``gltf``
     A binary glTF (``.glb``, via trimesh) whose facets are coloured by the orbit-average
     absorbed flux (by node where the run has no orbit); the values ride along as the custom
@@ -19,28 +23,26 @@ Formats (the CSV layout is documented in the README, "CSV layout"):
 
 from __future__ import annotations
 
-import csv
 from pathlib import Path
+from typing import NamedTuple
 
 import numpy as np
 
 from . import atomic
-from .constants import STEFAN_BOLTZMANN
 from .errors import ArgumentError
 from .h5io import Results
-from .sparsetools import as_csr, values_at
+from .heating import SOURCES
+from .kinematics import placed_geometry
+from .tables import DEFAULT_THRESHOLD, REFUSE_HINT, export_csv, inputs_of, write_table
 
 __all__ = ["FORMATS", "DEFAULT_THRESHOLD", "export", "export_csv", "export_vtk",
-           "export_gltf", "facet_fields"]
+           "export_gltf", "facet_fields", "facet_node", "vtk_targets", "VtkTargets"]
 
 FORMATS = ("csv", "vtk", "gltf")
-DEFAULT_THRESHOLD = 1e-4
-"""Smallest view factor or Gebhart factor [1] for a node pair to be listed in couplings.csv."""
-
-_SOURCES = ("solar", "albedo", "planet_ir")
 
 
-def export(results: Results, fmt: str, path, *, threshold: float = DEFAULT_THRESHOLD) -> list:
+def export(results: Results, fmt: str, path, *, threshold: float = DEFAULT_THRESHOLD,
+           self_terms: bool = False) -> list:
     """Export ``results`` in format ``fmt`` to ``path``; return the files written.
 
     Parameters
@@ -52,10 +54,14 @@ def export(results: Results, fmt: str, path, *, threshold: float = DEFAULT_THRES
         ``gltf`` (``.glb``).
     threshold : float
         Only for ``csv``: smallest view factor or Gebhart factor listed [1].
+    self_terms : bool
+        Only for ``csv``: also list a node's exchange with itself in ``conductances.csv``.
 
     Returns
     -------
     list of pathlib.Path
+        For ``vtk`` the ``.vtu`` first, then the node table, then (with an orbit) the
+        ``.pvd`` and the step files.
 
     Raises
     ------
@@ -69,176 +75,53 @@ def export(results: Results, fmt: str, path, *, threshold: float = DEFAULT_THRES
     if fmt not in FORMATS:
         raise ArgumentError(f"unknown export format {fmt!r}; choose one of {', '.join(FORMATS)}")
     if fmt == "csv":
-        return export_csv(results, path, threshold=threshold)
+        return export_csv(results, path, threshold=threshold, self_terms=self_terms)
     if fmt == "vtk":
-        return [export_vtk(results, path)]
+        return export_vtk(results, path)
     return [export_gltf(results, path)]
-
-
-# ---------------------------------------------------------------------------------------
-# CSV
-# ---------------------------------------------------------------------------------------
-def _fmt(x) -> str:
-    if isinstance(x, str):
-        return x
-    if isinstance(x, (int, np.integer)):
-        return str(int(x))
-    return repr(float(x))  # shortest text that reads back to the same float64
-
-
-def _write_csv(batch: atomic.Batch, path: Path, header, rows, what: str) -> Path:
-    """One table into ``batch`` (renamed into place with the others when all are done)."""
-    with batch.open(path, what, text=True, newline="") as fh:
-        w = csv.writer(fh)
-        w.writerow(header)
-        for r in rows:
-            w.writerow([_fmt(c) for c in r])
-    return path
-
-
-def _inputs(results: Results) -> list:
-    """Files an export must not replace: the results file it reads."""
-    return [results.path] if getattr(results, "path", None) else []
-
-
-_HINT = "give the export another name or folder"
-
-
-def export_csv(results: Results, folder, *, threshold: float = DEFAULT_THRESHOLD) -> list:
-    """Write ``nodes.csv``, ``couplings.csv``, ``heat_loads.csv`` and (when parts turn)
-    ``hinges.csv`` (hinge angle per step) into ``folder``.
-
-    Values are written with full float64 precision, so they read back bit for bit.
-    """
-    if not threshold >= 0:
-        raise ArgumentError(f"--threshold must be >= 0, got {threshold!r}")
-    folder = Path(folder)
-    if folder.exists() and not folder.is_dir():
-        raise ArgumentError(f"{folder}: CSV export needs a folder, and this is a file")
-    names = ["nodes.csv"] + (["couplings.csv"] if results.view_factors is not None else []) \
-        + (["heat_loads.csv"] if results.heating is not None else []) \
-        + (["hinges.csv"] if results.hinges is not None else []) \
-        + ([f"couplings_position_{p}.csv" for p in range(len(results.positions["exchange"]))]
-           if results.positions is not None else [])
-    atomic.refuse_inputs([folder / x for x in names], _inputs(results), hint=_HINT)
-    with atomic.Batch(_inputs(results), hint=_HINT) as batch:
-        batch.folder(folder, "the CSV folder")
-        return _csv_tables(results, folder, threshold, batch)
-
-
-def _csv_tables(results: Results, folder: Path, threshold: float, batch) -> list:
-    g = results.geometry
-    nodes = g.nodes
-    n = len(nodes)
-    vf, ex, heat = results.view_factors, results.exchange, results.heating
-    written = []
-
-    header = ["node", "coating", "area [m2]", "solar_absorptivity [1]", "ir_emissivity [1]",
-              "facets [1]"]
-    cols = []
-    if vf is not None:
-        header += ["view_factor_space [1]", "view_factor_space_stderr [1]", "view_factor_inert [1]"]
-        cols += [vf.space, vf.stderr_space, vf.inert]
-    if ex is not None:
-        header += ["gebhart_space [1]", "exchange_area_space [m2]", "conductance_space [W K-4]"]
-        cols += [ex.gebhart_space, ex.area_space, STEFAN_BOLTZMANN * ex.area_space]
-    if heat is not None and results.node_average is not None:
-        for src in _SOURCES + ("total",):
-            header.append(f"average_absorbed_{src} [W]")
-            cols.append(results.node_average[src])
-    rows = []
-    for i in range(n):
-        rows.append([nodes.names[i], nodes.coating[i], nodes.area[i],
-                     nodes.solar_absorptivity[i], nodes.ir_emissivity[i],
-                     int(nodes.facet_count[i])] + [c[i] for c in cols])
-    written.append(_write_csv(batch, folder / "nodes.csv", header, rows, "the node table"))
-
-    if vf is not None:
-        written.append(_coupling_table(batch, folder / "couplings.csv", nodes.names, vf, ex,
-                                       threshold, "the coupling table"))
-    if results.positions is not None:
-        for p, (vf_p, ex_p) in enumerate(zip(results.positions["view_factors"],
-                                             results.positions["exchange"])):
-            written.append(_coupling_table(batch, folder / f"couplings_position_{p}.csv",
-                                           nodes.names, vf_p, ex_p, threshold,
-                                           f"the coupling table of hinge position {p}"))
-    return written + _step_tables(results, folder, batch)
-
-
-def _coupling_table(batch, path, names, vf, ex, threshold, what) -> Path:
-    """One row per ordered node pair whose view factor or Gebhart factor reaches
-    ``threshold``."""
-    header = ["from", "to", "view_factor [1]", "view_factor_stderr [1]"]
-    if ex is not None:
-        header += ["gebhart [1]", "exchange_area [m2]", "conductance [W K-4]"]
-    # the stored entries of F and B (row-major): cost grows with the non-zeros
-    F = as_csr(vf.matrix)
-    pattern = (F + as_csr(ex.gebhart)) if ex is not None else F
-    coo = as_csr(pattern).tocoo()
-    order = np.lexsort((coo.col, coo.row))
-    ii, jj = coo.row[order].astype(np.int64), coo.col[order].astype(np.int64)
-    f_all = values_at(F, ii, jj)
-    e_all = values_at(vf.stderr, ii, jj)
-    b_all = values_at(ex.gebhart, ii, jj) if ex is not None else np.zeros(ii.size)
-    a_all = values_at(ex.area, ii, jj) if ex is not None else np.zeros(ii.size)
-    keep = (np.maximum(f_all, b_all) >= threshold) & ~((f_all == 0) & (b_all == 0))
-    rows = []
-    for k in np.flatnonzero(keep):
-        i, j = int(ii[k]), int(jj[k])
-        row = [names[i], names[j], f_all[k], e_all[k]]
-        if ex is not None:
-            row += [b_all[k], a_all[k], STEFAN_BOLTZMANN * a_all[k]]
-        rows.append(row)
-    return _write_csv(batch, path, header, rows, what)
-
-
-def _step_tables(results: Results, folder: Path, batch) -> list:
-    """``heat_loads.csv`` and ``hinges.csv`` (per step)."""
-    nodes = results.geometry.nodes
-    n = len(nodes)
-    heat = results.heating
-    written = []
-    if heat is not None:
-        tr = results.trajectory
-        header = ["step [1]", "time [s]", "sun_fraction [1]", "node", "solar [W]", "albedo [W]",
-                  "planet_ir [W]", "total [W]"]
-        rows = []
-        for k in range(tr.n_steps):
-            for i in range(n):
-                s, a, p = heat.node_solar[k, i], heat.node_albedo[k, i], heat.node_planet_ir[k, i]
-                rows.append([k, tr.time[k], tr.sun_fraction[k], nodes.names[i], s, a, p,
-                             s + a + p])
-        written.append(_write_csv(batch, folder / "heat_loads.csv", header, rows,
-                                  "the heat-load table"))
-
-    if results.hinges is not None:
-        tr = results.trajectory
-        names = results.hinges["name"]
-        angle = results.hinges["angle_deg"]
-        rows = [[k, tr.time[k]] + [angle[k, h] for h in range(len(names))]
-                for k in range(tr.n_steps)]
-        written.append(_write_csv(batch, folder / "hinges.csv",
-                                  ["step [1]", "time [s]"] + [f"{n} [deg]" for n in names],
-                                  rows, "the hinge-angle table"))
-    return written
 
 
 # ---------------------------------------------------------------------------------------
 # Meshes
 # ---------------------------------------------------------------------------------------
-def facet_fields(results: Results) -> dict:
+def facet_node(geometry) -> np.ndarray:
+    """(f,) int32 — the node of each facet: its front node, or its back node where the
+    front is inert; -1 where both sides are inert [1]."""
+    front = np.asarray(geometry.front_node, np.int32)
+    return np.where(front >= 0, front, np.asarray(geometry.back_node, np.int32))
+
+
+def facet_fields(results: Results, step: int | None = None) -> dict:
     """Per-facet values exported to meshes: name -> ((f,) array, units).
 
-    Always ``front_node``, ``back_node``, ``part`` and ``area``; with heating also the
-    time-averaged absorbed flux ``absorbed_<source>`` and ``absorbed_total`` [W m-2].
+    Parameters
+    ----------
+    results : vfactor.h5io.Results
+    step : int, optional — with heating, the absorbed flux of this step instead of the
+        time average
+
+    Returns
+    -------
+    dict
+        Always ``node`` (:func:`facet_node`), ``front_node``, ``back_node``, ``part`` and
+        ``area``; with heating also the absorbed flux ``absorbed_<source>`` and
+        ``absorbed_total`` [W m-2], time averages or those of ``step``. Node indices count
+        from 0 in the order of ``results.geometry.nodes.names``.
     """
     g = results.geometry
-    out = {"front_node": (g.front_node.astype(np.int32), "1"),
+    out = {"node": (facet_node(g), "1"),
+           "front_node": (g.front_node.astype(np.int32), "1"),
            "back_node": (g.back_node.astype(np.int32), "1"),
            "part": (g.part.astype(np.int32), "1"),
            "area": (g.areas.astype(float), "m2")}
-    if results.facet_average is not None:
-        for src in _SOURCES + ("total",):
+    if step is not None:
+        heat = results.heating
+        flux = {src: np.asarray(getattr(heat, f"facet_{src}")[step], float) for src in SOURCES}
+        flux["total"] = flux["solar"] + flux["albedo"] + flux["planet_ir"]
+        for src, values in flux.items():
+            out[f"absorbed_{src}"] = (values, "W m-2")
+    elif results.facet_average is not None:
+        for src in SOURCES + ("total",):
             out[f"absorbed_{src}"] = (np.asarray(results.facet_average[src], float), "W m-2")
     return out
 
@@ -261,30 +144,104 @@ def _mesh_target(path, suffix, allowed=None) -> Path:
     return path
 
 
-def export_vtk(results: Results, path) -> Path:
-    """Write the facets with their :func:`facet_fields` as VTK cell data (meshio).
+class VtkTargets(NamedTuple):
+    """Files of a VTK export (see :func:`vtk_targets`)."""
 
-    A path without a suffix gets ``.vtu``; ``.vtk`` writes the legacy VTK format; any
-    other suffix is refused. VTK arrays carry no unit attribute; the units
-    are those of :func:`facet_fields` (``absorbed_*`` in W m-2, ``area`` in m2, indices 1),
-    as the README's CSV layout section lists them.
+    mesh: Path
+    nodes: Path
+    collection: Path | None
+    steps: tuple
+
+
+def vtk_targets(results: Results, path) -> VtkTargets:
+    """The files :func:`export_vtk` writes for ``path``.
+
+    ``mesh`` is ``path`` (``.vtu`` added to a bare name); beside it ``<stem>_nodes.csv``;
+    with heating the collection ``<stem>.pvd`` and one ``<stem>_steps/step_NNNN.vtu`` per
+    step (``collection`` None and ``steps`` empty without heating).
     """
+    mesh = _mesh_target(path, ".vtu", (".vtu", ".vtk"))
+    nodes = mesh.with_name(f"{mesh.stem}_nodes.csv")
+    if results.heating is None:
+        return VtkTargets(mesh, nodes, None, ())
+    count = results.heating.node_solar.shape[0]
+    width = max(4, len(str(count - 1)))
+    folder = mesh.with_name(f"{mesh.stem}_steps")
+    steps = tuple(folder / f"step_{k:0{width}d}.vtu" for k in range(count))
+    return VtkTargets(mesh, nodes, mesh.with_suffix(".pvd"), steps)
+
+
+def _write_mesh(batch, target, vertices, triangles, fields, what, file_format):
     import meshio
 
-    path = _mesh_target(path, ".vtu", (".vtu", ".vtk"))
-    atomic.refuse_inputs(path, _inputs(results), hint=_HINT)
-    g = results.geometry
-    fields = facet_fields(results)
-    mesh = meshio.Mesh(points=np.asarray(g.vertices, float),
-                       cells=[("triangle", np.asarray(g.triangles, np.int64))],
+    mesh = meshio.Mesh(points=np.asarray(vertices, float),
+                       cells=[("triangle", np.asarray(triangles, np.int64))],
                        cell_data={name: [values] for name, (values, _u) in fields.items()})
-    file_format = "vtu" if path.suffix.lower() == ".vtu" else "vtk"
-    # meshio's VTU writer opens the file by name: it gets the temporary's name, and the
+    # meshio's writers open the file by name: they get the temporary's name, and the
     # format explicitly (the temporary ends in .tmp)
-    with atomic.Batch(_inputs(results), hint=_HINT) as batch:
-        with batch.path(path, "the VTK file") as tmp:
-            mesh.write(tmp, file_format=file_format)
-    return path
+    with batch.path(target, what) as tmp:
+        mesh.write(tmp, file_format=file_format)
+    return target
+
+
+def _collection(batch, target: Path, times, files) -> Path:
+    """A ParaView data collection (``.pvd``): one ``DataSet`` per step file with its time
+    [s], file names relative to the collection's folder."""
+    import xml.etree.ElementTree as ET
+
+    root = ET.Element("VTKFile", type="Collection", version="0.1", byte_order="LittleEndian")
+    coll = ET.SubElement(root, "Collection")
+    for t, f in zip(times, files):
+        ET.SubElement(coll, "DataSet", timestep=repr(float(t)), group="", part="0",
+                      file=f.relative_to(target.parent).as_posix())
+    ET.indent(root)
+    with batch.open(target, "the VTK collection") as fh:
+        ET.ElementTree(root).write(fh, encoding="utf-8", xml_declaration=True)
+        fh.write(b"\n")
+    return target
+
+
+def export_vtk(results: Results, path) -> list:
+    """Write the facets with their :func:`facet_fields` as VTK cell data (meshio), the
+    node names of the indices and, with heating, one file per step and their collection.
+
+    A path without a suffix gets ``.vtu``; ``.vtk`` writes the legacy VTK format (the
+    step files are ``.vtu`` either way); any other suffix is refused. VTK arrays carry no
+    unit attribute; the units are those of :func:`facet_fields` (``absorbed_*`` in W m-2,
+    ``area`` in m2, indices 1), as the README's CSV layout section lists them.
+
+    Files (:func:`vtk_targets`): ``path`` with the orbit averages; ``<stem>_nodes.csv``,
+    columns ``node_index [1], node`` (the name of each index of the cell fields ``node``,
+    ``front_node`` and ``back_node``); with heating ``<stem>_steps/step_NNNN.vtu`` (the
+    absorbed flux of step NNNN, the vertices where the turning parts are at that step) and
+    ``<stem>.pvd`` listing them with the step times [s] (meshio's VTU writer drops field
+    data, so the times live in the collection only). Node names ride in a table beside
+    the mesh, not as a VTK string array in the field data: meshio 5.3 refuses to read a
+    ``.vtu`` holding one ("Illegal data type 'String'").
+
+    Returns
+    -------
+    list of pathlib.Path — the mesh, the node table, then the collection and the step files
+    """
+    targets = vtk_targets(results, path)
+    every = [targets.mesh, targets.nodes] + ([targets.collection] if targets.collection else [])
+    atomic.refuse_inputs(every + list(targets.steps), inputs_of(results), hint=REFUSE_HINT)
+    g = results.geometry
+    file_format = "vtu" if targets.mesh.suffix.lower() == ".vtu" else "vtk"
+    with atomic.Batch(inputs_of(results), hint=REFUSE_HINT) as batch:
+        _write_mesh(batch, targets.mesh, g.vertices, g.triangles, facet_fields(results),
+                    "the VTK file", file_format)
+        write_table(batch, targets.nodes, ["node_index [1]", "node"],
+                    list(enumerate(g.nodes.names)), "the node-name table of the VTK file")
+        if targets.steps:
+            batch.folder(targets.steps[0].parent, "the folder of the VTK step files")
+            tr = results.trajectory
+            for k, target in enumerate(targets.steps):
+                placed = g if results.hinges is None else placed_geometry(g, results.hinges, k)
+                _write_mesh(batch, target, placed.vertices, g.triangles,
+                            facet_fields(results, step=k), f"the VTK file of step {k}", "vtu")
+            _collection(batch, targets.collection, tr.time, targets.steps)
+    return every + list(targets.steps)
 
 
 def _colours(values: np.ndarray, vmin: float, vmax: float, cmap: str) -> np.ndarray:
@@ -305,7 +262,7 @@ def export_gltf(results: Results, path) -> Path:
     import trimesh
 
     path = _mesh_target(path, ".glb")
-    atomic.refuse_inputs(path, _inputs(results), hint=_HINT)
+    atomic.refuse_inputs(path, inputs_of(results), hint=REFUSE_HINT)
     g = results.geometry
     f = g.n_facets
     if results.facet_average is not None:
@@ -328,6 +285,7 @@ def export_gltf(results: Results, path) -> Path:
     mesh.vertex_attributes["_VALUE"] = np.repeat(values.astype(np.float32), 3)
     mesh.metadata.update({"quantity": quantity, "units": units, "colormap": cmap,
                           "vmin": vmin, "vmax": vmax, "model": results.model_name})
-    with atomic.open_atomic(path, "the glTF file", inputs=_inputs(results), hint=_HINT) as fh:
+    with atomic.open_atomic(path, "the glTF file", inputs=inputs_of(results),
+                            hint=REFUSE_HINT) as fh:
         fh.write(mesh.export(file_type="glb"))
     return path
