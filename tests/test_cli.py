@@ -110,10 +110,12 @@ def test_run_with_bad_model_is_one_line_exit_2(capsys, write_model, tmp_path):
 
 
 def test_internal_error_exit_1_traceback_only_when_verbose(capsys, results_file, monkeypatch):
-    def broken(path):
+    def broken(path, **kw):
         raise RuntimeError("simulated bug")
 
-    monkeypatch.setattr(h5io, "read_results", broken)
+    from vfactor import casecompare
+
+    monkeypatch.setattr(casecompare, "read_results", broken)
     code, _, err = _run(capsys, "summary", str(results_file))
     assert code == 1 and "internal error" in err and "simulated bug" in err
     assert "Traceback" not in err and err.count("\n") == 1

@@ -80,7 +80,7 @@ def test_heat_load_error_is_reported(tmp_path):
     r = h5io.read_results(h5io.write_results(tmp_path / "e.h5", **kw))
     w = summary.summarize(r)["heat_loads"]["largest_stderr"]
     assert w == {"stderr_W": 0.75, "node": "top", "source": "solar", "step": 3}
-    assert "0.75 W (top, solar, step 3)" in summary.format_summary(r)
+    assert "0.7500 W (top, solar, step 3)" in summary.format_summary(r)
 
 
 def test_summary_warns_of_inert_losses_and_large_errors(tmp_path):

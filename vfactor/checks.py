@@ -262,9 +262,44 @@ def _check_settings(model: Model, report: CheckReport) -> None:
     if "[orbit]" in read and "[attitude]" in read:
         _check_spin_sampling(read["[orbit]"], read["[attitude]"], model, report)
     _check_ray_count(model, report)
+    _check_cases(model, report)
     if model.attitude_table is not None and model.orbit_table is None:
         report.problems.append(Problem("warning", file, "[attitude]",
                                        "has no effect without an [orbit] section"))
+
+
+def _check_cases(model: Model, report: CheckReport) -> None:
+    """Every ``[[cases]]`` table applied to the model: its coating values, orbit, attitude
+    and environment read as a run reads them (one error line per case and table)."""
+    from vfactor.attitude import attitude_from_table
+    from vfactor.cases import case_model
+    from vfactor.environment import environment_from_table
+    from vfactor.orbit import orbit_from_table
+
+    file = report.path
+    for case in model.cases:
+        where = f"[[cases]] {case.name}"
+        try:
+            cm = case_model(model, case)
+        except ModelError as err:
+            report.problems.append(Problem("error", file, f"{where}: {err.where or ''}".rstrip(
+                ": "), err.message))
+            continue
+        for section, table, reader in (("orbit", cm.orbit_table, orbit_from_table),
+                                       ("attitude", cm.attitude_table, attitude_from_table),
+                                       ("environment", cm.environment_table,
+                                        environment_from_table)):
+            if table is None or getattr(case, section) is None:
+                continue          # the model's own table, checked above
+            found: list = []
+            try:
+                reader(table, file=file, problems=found)
+            except ModelError as err:
+                report.problems.append(Problem("error", file,
+                                               f"{where}: {err.where or section}", err.message))
+            report.problems.extend(
+                Problem(p.severity, p.file, f"{where}: {p.where}", p.message)
+                for p in found if p.severity != "error")
 
 
 def _check_spin_sampling(orbit, attitude, model: Model, report: CheckReport) -> None:

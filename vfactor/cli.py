@@ -93,6 +93,15 @@ def _threshold(text: str) -> float:
     return value
 
 
+def _beta_list(text: str) -> tuple:
+    from .sweep import parse_beta_list
+
+    try:
+        return parse_beta_list(text)
+    except VfactorError as exc:
+        raise argparse.ArgumentTypeError(str(exc).removeprefix("--beta: ")) from None
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser of the ``vfactor`` command."""
     common = _common()
@@ -157,6 +166,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="keep finished work in OUT.h5.partial and continue from it on a rerun")
     p.add_argument("--facet-factors", action="store_true",
                    help="also store facet-to-node view factors (sparse) in the results")
+    p.add_argument("--case", metavar="NAME", action="append", dest="cases",
+                   help="for a model with [[cases]]: compute only this case (repeat for "
+                        "several; default: every case)")
     p.set_defaults(func=_cmd_run)
 
     p = sub.add_parser(
@@ -175,6 +187,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--all-nodes", action="store_true",
                    help="list every node even on models of more than 200 nodes (whose "
                         "tables are otherwise summed by part)")
+    p.add_argument("--case", metavar="NAME",
+                   help="for a results file with design cases: the full summary of this "
+                        "case (default: the first, followed by the comparison of all)")
     p.set_defaults(func=_cmd_summary)
 
     p = sub.add_parser(
@@ -187,6 +202,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("results", metavar="OUT.h5", help="results file of `vfactor run`")
     p.add_argument("-o", "--output", metavar="DIR", required=True,
                    help="folder for the figures (created if missing)")
+    p.add_argument("--case", metavar="NAME",
+                   help="for a results file with design cases: only this case's figures "
+                        "(default: every case in DIR/CASE/, and cases.png comparing them)")
     p.set_defaults(func=_cmd_plot)
 
     p = sub.add_parser(
@@ -212,7 +230,36 @@ def build_parser() -> argparse.ArgumentParser:
                         "(default 1e-4)")
     p.add_argument("--self-terms", action="store_true",
                    help="csv: also list a node's exchange with itself in conductances.csv")
+    p.add_argument("--case", metavar="NAME",
+                   help="for a results file with design cases: only this case (default: "
+                        "every case, csv in PATH/CASE/, vtk and gltf as PATH_CASE.vtu/.glb)")
     p.set_defaults(func=_cmd_export)
+
+    p = sub.add_parser(
+        "sweep", parents=[common], formatter_class=_Formatter,
+        help="orbit heat loads over a range of beta angles (hot and cold orbits)",
+        description="Compute the orbit-average and peak absorbed heat per node of MODEL on "
+                    "its circular\n[orbit] with the node turned to give each beta angle of "
+                    "LIST (raan_deg and ltan\nreplaced); the geometry, view factors and "
+                    "escaping directions are computed once.\nWrites OUT_DIR/sweep.csv and "
+                    "OUT_DIR/sweep.png and prints each node's hottest and\ncoldest beta.",
+        epilog="examples:\n"
+               "  vfactor sweep sat.toml --beta 0,15,30,45,60,75 -o sweep\n"
+               "  vfactor sweep sat.toml --beta 0:70:2.5 -o sweep\n"
+               "  vfactor sweep sat.toml --beta=-60:60:10 -o sweep   # '=' before a "
+               "leading minus sign")
+    p.add_argument("model", metavar="MODEL", help="model file (TOML) with a circular [orbit]")
+    p.add_argument("--beta", metavar="LIST", required=True, type=_beta_list,
+                   help="beta angles [deg]: comma-separated values and START:STOP:STEP "
+                        "ranges (STOP included), within -90 .. 90")
+    p.add_argument("-o", "--output", metavar="OUT_DIR", required=True,
+                   help="folder for sweep.csv and sweep.png (created if missing)")
+    p.add_argument("--rays", metavar="N", type=_positive_int,
+                   help="rays emitted per node for the view factors (default: [radiation] "
+                        "rays_per_node of the model)")
+    p.add_argument("--seed", metavar="S", type=_seed,
+                   help="random seed (default: [radiation] seed of the model)")
+    p.set_defaults(func=_cmd_sweep)
 
     p = sub.add_parser(
         "demo", parents=[common], formatter_class=_Formatter,
@@ -261,42 +308,51 @@ def _cmd_run(args) -> int:
 
     result = run(args.model, args.output, rays=args.rays, seed=args.seed, workers=args.workers,
                  scheduler=args.scheduler, resume=args.resume, facet_factors=args.facet_factors,
-                 reporter=_reporter(args))
+                 cases=args.cases, reporter=_reporter(args))
     _say(args, result.describe())
     return 0
 
 
 def _cmd_summary(args) -> int:
-    from .h5io import read_results
-    from .summary import format_summary, summarize, to_json
+    from .casecompare import summary_of_file
 
-    results = read_results(args.results)
-    if args.json:
-        print(to_json(summarize(results, top=args.top)))
-    else:
-        print(format_summary(results, top=args.top, all_nodes=args.all_nodes), end="")
+    print(summary_of_file(args.results, case=args.case, top=args.top,
+                          all_nodes=args.all_nodes, as_json=args.json), end="")
     return 0
 
 
 def _cmd_plot(args) -> int:
-    from .h5io import read_results
-    from .plots import plot_all
+    from .caseplots import plot_file
 
-    files = plot_all(read_results(args.results), args.output)
-    for f in files:
+    for f in plot_file(args.results, args.output, case=args.case):
         _say(args, f"wrote {f}")
     return 0
 
 
 def _cmd_export(args) -> int:
-    from .export import DEFAULT_THRESHOLD, export
-    from .h5io import read_results
+    from .export import DEFAULT_THRESHOLD, export_cases
 
     threshold = DEFAULT_THRESHOLD if args.threshold is None else args.threshold
-    files = export(read_results(args.results), args.format, args.output, threshold=threshold,
-                   self_terms=args.self_terms)
+    files = export_cases(args.results, args.format, args.output, case=args.case,
+                         threshold=threshold, self_terms=args.self_terms)
     for f in files:
         _say(args, f"wrote {f}")
+    return 0
+
+
+def _cmd_sweep(args) -> int:
+    from .sweep import format_sweep_table, run_sweep
+
+    done = run_sweep(args.model, args.beta, args.output, rays=args.rays, seed=args.seed,
+                     reporter=_reporter(args))
+    sweep = done.sweep
+    _say(args, format_sweep_table(sweep))
+    for note in sweep.notes:
+        _say(args, note if note.startswith("warning: ") else f"note: {note}")
+    for f in done.files:
+        _say(args, f"wrote {f}")
+    _say(args, f"{sweep.beta_deg.size} beta values x {sweep.steps} steps, "
+               f"{len(sweep.node_names)} nodes: {done.elapsed_s:.1f} s")
     return 0
 
 

@@ -77,13 +77,12 @@ def run_demo(folder, *, rays=None, workers=1, quiet=False, verbose=False) -> int
 
     Returns the exit code (0, or 2 when the check finds errors).
     """
+    from .casecompare import summary_of_file
+    from .caseplots import plot_file
     from .checks import check_model, format_check_report
-    from .export import export
-    from .h5io import read_results
+    from .export import export_cases
     from .pipeline import run
-    from .plots import plot_all
     from .progress import make_reporter
-    from .summary import format_summary
 
     def say(text=""):
         if not quiet:
@@ -106,24 +105,36 @@ def run_demo(folder, *, rays=None, workers=1, quiet=False, verbose=False) -> int
     result = run(model_file, out, rays=rays, workers=workers,
                  reporter=make_reporter(quiet=quiet, verbose=verbose))
     say(result.describe())
-    results = read_results(out)
     say(f"\n== 3/5 summary {out}")
-    say(format_summary(results).rstrip("\n"))
+    say(summary_of_file(out).rstrip("\n"))
     say(f"\n== 4/5 plot {out} -o {folder / 'figures'}")
-    figures = plot_all(results, folder / "figures")
+    figures = plot_file(out, folder / "figures")
     for f in figures:
         say(f"wrote {f}")
     say(f"\n== 5/5 export {out} (csv, vtk, gltf)")
-    exported = export(results, "csv", folder / "tables")
-    exported += export(results, "vtk", folder / "demo.vtu")
-    exported += export(results, "gltf", folder / "demo.glb")
-    for f in exported:
-        say(f"wrote {f}")
+    exported = export_cases(out, "csv", folder / "tables")
+    exported += export_cases(out, "vtk", folder / "demo.vtu")
+    exported += export_cases(out, "gltf", folder / "demo.glb")
+    for where, count in _by_folder(exported):
+        say(f"wrote {count} file(s) in {where}/")
     say(f"\n== done in {time.perf_counter() - start:.0f} s. Outputs in {folder}/:")
     say(f"   model       {model_file}  (edit it and rerun: vfactor run {model_file} -o {out})")
     say(f"   results     {out}  (HDF5; `vfactor summary {out}`)")
-    say(f"   figures     {folder / 'figures'}/  ({', '.join(f.name for f in figures)})")
-    tables = [f.name for f in exported if f.suffix == ".csv"]
+    say(f"   figures     {folder / 'figures'}/  "
+        f"({', '.join(sorted({str(f.relative_to(folder / 'figures')) for f in figures}))})")
+    tables = sorted({f.name for f in exported if f.suffix == ".csv"
+                     and f.is_relative_to(folder / "tables")})
     say(f"   CSV tables  {folder / 'tables'}/  ({', '.join(tables)})")
-    say(f"   meshes      {folder / 'demo.vtu'} (ParaView), {folder / 'demo.glb'} (glTF viewers)")
+    meshes = [f.name for f in exported if f.suffix in (".vtu", ".glb", ".pvd")
+              and f.parent == folder]
+    say(f"   meshes      {', '.join(meshes)} in {folder}/ (ParaView: the .pvd plays the "
+        f"orbit; glTF viewers: .glb)")
     return 0
+
+
+def _by_folder(files) -> list:
+    """(folder, number of files) in the order first written."""
+    counts = {}
+    for f in files:
+        counts[f.parent] = counts.get(f.parent, 0) + 1
+    return list(counts.items())

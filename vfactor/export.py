@@ -41,6 +41,27 @@ __all__ = ["FORMATS", "DEFAULT_THRESHOLD", "export", "export_csv", "export_vtk",
 FORMATS = ("csv", "vtk", "gltf")
 
 
+def export_cases(path, fmt: str, target, *, case=None, threshold: float = DEFAULT_THRESHOLD,
+                 self_terms: bool = False) -> list:
+    """Export the results file ``path``: every design case (csv in ``target/CASE/``, vtk
+    and gltf as ``TARGET_CASE.vtu`` / ``.glb``), or only ``case``, or the one set of
+    results of a file without cases (to ``target`` itself); see :func:`export`."""
+    from .h5read import read_results
+
+    first = read_results(path, case=case)
+    every = [first]
+    if first.case_names and case is None:
+        every += [read_results(path, case=c) for c in first.case_names[1:]]
+    files = []
+    for results in every:
+        out = Path(target)
+        if len(every) > 1:
+            out = out / results.case if fmt == "csv" else \
+                out.with_name(f"{out.stem}_{results.case}{out.suffix}")
+        files += export(results, fmt, out, threshold=threshold, self_terms=self_terms)
+    return files
+
+
 def export(results: Results, fmt: str, path, *, threshold: float = DEFAULT_THRESHOLD,
            self_terms: bool = False) -> list:
     """Export ``results`` in format ``fmt`` to ``path``; return the files written.

@@ -16,6 +16,7 @@ back into a :class:`Results` record, the input of ``vfactor summary``, ``plot`` 
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as _dt
 import json
 from pathlib import Path
@@ -348,8 +349,39 @@ def _write_heating(root, heat: Heating, time):
         _put(fa, "total", total_f, "W m-2", "time-averaged absorbed flux per facet, all sources")
 
 
+def _write_case_results(root, *, exchange, trajectory, motion, positions, heating):
+    """The groups that depend on a case, under ``root`` (the file's root or a case group)."""
+    if exchange is not None:
+        _write_exchange(root, exchange)
+    if trajectory is not None:
+        _write_trajectory(root, trajectory)
+    if motion is not None:
+        _write_motion(root, motion)
+    if positions is not None:
+        _write_positions(root, positions)
+    if heating is not None:
+        _write_heating(root, heating, None if trajectory is None else trajectory.time)
+
+
+def _write_cases(root, cases):
+    """``/cases/NAME/...``: per design case its coating values, couplings and loads."""
+    top = root.create_group("cases")
+    _put(top, "name", [c.name for c in cases], "", "design cases, in the model file's order")
+    for c in cases:
+        g = top.create_group(c.name)
+        g.attrs["description"] = str(c.description)
+        nodes = g.create_group("nodes")
+        for key in ("solar_absorptivity", "ir_emissivity", "solar_specular", "ir_specular"):
+            _put(nodes, key, getattr(c.geometry.nodes, key), "1",
+                 f"{key.replace('_', ' ')} of each node in this case")
+        _put(nodes, "coatings", json.dumps([dataclasses.asdict(x) for x in c.geometry.coatings]),
+             "", "coating values of this case (JSON list, the order of /facets coating indices)")
+        _write_case_results(g, exchange=c.exchange, trajectory=c.trajectory, motion=c.motion,
+                            positions=c.positions, heating=c.heating)
+
+
 def _write_all(target, *, model, geometry, view_factors, exchange, trajectory, heating,
-               provenance, motion=None, positions=None):
+               provenance, motion=None, positions=None, cases=None):
     h5py = h5py_quiet()
 
     prov = dict(provenance or {})
@@ -375,21 +407,16 @@ def _write_all(target, *, model, geometry, view_factors, exchange, trajectory, h
         _write_geometry(root, geometry)
         if view_factors is not None:
             _write_view_factors(root, view_factors)
-        if exchange is not None:
-            _write_exchange(root, exchange)
-        if trajectory is not None:
-            _write_trajectory(root, trajectory)
-        if motion is not None:
-            _write_motion(root, motion)
-        if positions is not None:
-            _write_positions(root, positions)
-        if heating is not None:
-            _write_heating(root, heating, None if trajectory is None else trajectory.time)
+        if cases:
+            _write_cases(root, cases)
+        else:
+            _write_case_results(root, exchange=exchange, trajectory=trajectory, motion=motion,
+                                positions=positions, heating=heating)
 
 
 def write_results(path, *, model, geometry, view_factors=None, exchange=None,
                   trajectory=None, heating=None, provenance, inputs=(), motion=None,
-                  positions=None) -> Path:
+                  positions=None, cases=None) -> Path:
     """Write the results of one run to an HDF5 file, atomically.
 
     Parameters
@@ -409,6 +436,10 @@ def write_results(path, *, model, geometry, view_factors=None, exchange=None,
         Hinges and their angle per step of ``trajectory`` (group ``/hinges``).
     positions : vfactor.positions.PositionCouplings, optional
         Couplings at hinge positions (group ``/positions``).
+    cases : sequence, optional
+        Design cases (objects with ``name``, ``description``, ``geometry`` (its coating
+        values), ``exchange``, ``trajectory``, ``motion``, ``positions``, ``heating``):
+        written under ``/cases/NAME`` instead of ``exchange`` .. ``positions`` above.
     provenance : dict
         Must hold ``seed`` and ``rays_per_node``; ``elapsed_s`` may map stage names to
         seconds (written as root attributes ``elapsed_<stage>_s``); other scalar entries
@@ -447,5 +478,5 @@ def write_results(path, *, model, geometry, view_factors=None, exchange=None,
     image = io.BytesIO()
     _write_all(image, model=model, geometry=geometry, view_factors=view_factors,
                exchange=exchange, trajectory=trajectory, heating=heating,
-               provenance=provenance, motion=motion, positions=positions)
+               provenance=provenance, motion=motion, positions=positions, cases=cases)
     return write_bytes(path, image.getbuffer(), "the results file", inputs=inputs)

@@ -19,7 +19,7 @@ from .sparsetools import as_csr, dense
 from .radiation import Exchange, ViewFactors
 from .trajectory import Trajectory
 
-__all__ = ["Results", "read_results", "read_coupling_matrix"]
+__all__ = ["Results", "read_results", "read_coupling_matrix", "case_names"]
 
 
 @dataclass(frozen=True)
@@ -47,6 +47,9 @@ class Results:
     positions : dict or None — ``angle_deg`` ((q, h) [deg]), ``step_position`` ((t,) int)
         and ``view_factors`` / ``exchange`` (tuples of q records) when the run computed
         couplings at hinge positions
+    case : str — the design case these results are of ("" for a file without cases);
+        ``geometry`` then carries that case's coating values
+    case_names : tuple of str — every case in the file (empty without cases)
     """
 
     path: Path
@@ -63,6 +66,8 @@ class Results:
     orbit_attrs: dict = field(default_factory=dict)
     hinges: dict | None = None
     positions: dict | None = None
+    case: str = ""
+    case_names: tuple = ()
 
     @property
     def seed(self) -> int:
@@ -187,7 +192,51 @@ def _read_heating(g, time) -> Heating:
         planet_ir=float(g.attrs["planet_ir_W_m2"]), case=attr_value(g.attrs["case"]))
 
 
-def read_results(path, *, dense_couplings=False) -> Results:
+class _CaseView:
+    """A results file seen as one of its design cases: the groups that depend on the case
+    come from ``/cases/NAME``, the shared ones (model, nodes, facets, view factors) from
+    the root, so the reader and :func:`vfactor.h5schema.validate` read either alike."""
+
+    _OWN = ("exchange", "orbit", "heating", "hinges", "positions")
+
+    def __init__(self, h, case: str):
+        self._h = h
+        self._g = h["cases"][case]
+        self.attrs = h.attrs
+
+    def _where(self, name: str):
+        return self._g if name.split("/")[0] in self._OWN else self._h
+
+    def get(self, name, default=None):
+        return self._where(name).get(name, default)
+
+    def __contains__(self, name) -> bool:
+        return name in self._where(name)
+
+    def __getitem__(self, name):
+        return self._where(name)[name]
+
+
+def case_names(h) -> tuple:
+    """The design cases of an open results file (empty for a file without cases)."""
+    return tuple(h["cases/name"].asstr()[()]) if "cases" in h else ()
+
+
+def _case_geometry(geometry, g):
+    """``geometry`` with the coating values stored in case group ``g``."""
+    import dataclasses
+    import json
+
+    from .geometry import Coating
+
+    nodes = dataclasses.replace(geometry.nodes, **{
+        key: g["nodes"][key][()] for key in ("solar_absorptivity", "ir_emissivity",
+                                             "solar_specular", "ir_specular")})
+    coatings = tuple(Coating(**c) for c in json.loads(g["nodes/coatings"].asstr()[()]))
+    return dataclasses.replace(geometry, nodes=nodes, coatings=coatings)
+
+
+def read_results(path, *, dense_couplings=False, case=None) -> Results:
     """Read a results file written by :func:`write_results`.
 
     Parameters
@@ -195,6 +244,8 @@ def read_results(path, *, dense_couplings=False) -> Results:
     path : str or os.PathLike
     dense_couplings : bool — return the (n, n) couplings as dense numpy arrays instead of
         ``scipy.sparse.csr_array`` (small models only: n^2 memory)
+    case : str, optional — for a file with design cases, the case to read (default: the
+        first); an unknown name raises :class:`vfactor.errors.ArgumentError`
 
     Returns
     -------
@@ -231,9 +282,20 @@ def read_results(path, *, dense_couplings=False) -> Results:
             if schema > SCHEMA_VERSION or schema < 1:
                 raise ResultsFileError(f"{path}: results schema version {schema} is not "
                                        f"supported (this vfactor reads up to {SCHEMA_VERSION})")
+            names = case_names(h)
+            if case is not None and case not in names:
+                from .errors import ArgumentError
+
+                known = ", ".join(names) if names else "none (the file has no cases)"
+                raise ArgumentError(f"{path}: no case {case!r}; cases are {known}")
+            if names:
+                case = case or names[0]
+                h = _CaseView(h, case)
             validate(h, path)
             attrs = {k: attr_value(v) for k, v in h.attrs.items()}
             geometry = _read_geometry(h)
+            if names:
+                geometry = _case_geometry(geometry, h._g)
             model = h["model"]
             source = model["source"].asstr()[()]
             vf = _read_view_factors(h["view_factors"]) if "view_factors" in h else None
@@ -283,4 +345,5 @@ def read_results(path, *, dense_couplings=False) -> Results:
     return Results(path=path, attrs=attrs, model_source=source, model_name=name,
                    geometry=geometry, view_factors=vf, exchange=ex, trajectory=tr,
                    heating=heat, node_average=node_avg, facet_average=facet_avg,
-                   orbit_attrs=orbit_attrs, hinges=hinges, positions=positions)
+                   orbit_attrs=orbit_attrs, hinges=hinges, positions=positions,
+                   case=case or "", case_names=names)

@@ -86,7 +86,7 @@ import numpy as np
 
 from vfactor.constants import SUN_RADIUS_M
 from vfactor.heatmotion import placed_step, rigid_part
-from vfactor.heatstep import Step, bands_of, one_step, prepare, trace_once, unit
+from vfactor.heatstep import Step, bands_of, one_step, prepare, reuse_trace, trace_once, unit
 
 __all__ = ["Heating", "HeatingExtremes", "HeatingSteps", "compute_heating", "heating_extremes",
            "step_weights", "SOURCES", "ROWS"]
@@ -486,13 +486,18 @@ class HeatingSteps:
     def n_steps(self) -> int:
         return len(self.steps)
 
-    def prepare(self, geometry, scene, reporter=None):
-        """The vehicle's fixed part: sides, cached escape directions, Gebhart factors."""
+    def prepare(self, geometry, scene, reporter=None, traced=None):
+        """The vehicle's fixed part: sides, cached escape directions, Gebhart factors.
+        ``traced``: the model of an earlier prepare of the same facets (another case's
+        coating values): its escape directions are reused instead of traced again."""
         from vfactor.progress import NullReporter
 
         reporter = reporter or NullReporter()
         model = prepare(geometry, scene, self.replicates, self.rays_per_facet,
                         self.sun_samples, self.seed, self.max_bounces)
+        if self.motion is None and traced is not None and reuse_trace(model, traced):
+            bands = bands_of(model, geometry, self.view) if self.reflections else None
+            return model, bands
         with reporter.stage("heating: escaping directions", total=max(model.sides.count, 1),
                             unit="facet sides") as bar:
             if self.motion is not None:   # the rigid part once, the rest at each step

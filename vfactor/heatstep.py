@@ -16,7 +16,7 @@ import numpy as np
 import scipy.sparse as sp
 from vfactor.sparsetools import as_csr
 
-__all__ = ["Model", "Step", "prepare", "trace_once", "cache_targets", "band_gebhart",
+__all__ = ["Model", "Step", "prepare", "trace_once", "cache_targets", "reuse_trace", "band_gebhart",
            "bands_of", "one_step", "unit"]
 
 
@@ -191,6 +191,27 @@ def trace_once(model: Model, bar, need_rays: bool) -> None:
                          model.k_planet, targets[a:b])
         bar.advance(b - a)
     cache_targets(model, targets, need_rays)
+
+
+_TRACED = ("targets", "segment_start", "esc_origin", "esc_dir", "position", "control",
+           "blk_start", "blk_origin", "blk_dir")
+
+
+def reuse_trace(model: Model, traced: Model) -> bool:
+    """Give ``model`` the cache of :func:`trace_once` of ``traced`` when both are the same
+    facets, nodes, seed and rays (only coating values may differ: the rays do not depend
+    on them); True when it did."""
+    same = (traced is not None and traced.targets is not None
+            and (model.m, model.k_planet, model.seed) == (traced.m, traced.k_planet, traced.seed)
+            and np.array_equal(model.vertices, traced.vertices)
+            and np.array_equal(model.triangles, traced.triangles)
+            and np.array_equal(model.facet_node, traced.facet_node)
+            and np.array_equal(model.sides.facet, traced.sides.facet)
+            and np.array_equal(model.sides.sign, traced.sides.sign))
+    if same:
+        for name in _TRACED:
+            setattr(model, name, getattr(traced, name))
+    return same
 
 
 def cache_targets(model: Model, targets, need_rays: bool, fill=None) -> None:

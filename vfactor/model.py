@@ -70,7 +70,7 @@ __all__ = [
 ]
 
 TOP_LEVEL_SECTIONS = ("model", "coatings", "parts", "hinges", "radiation", "orbit",
-                      "attitude", "environment")
+                      "attitude", "environment", "cases")
 """Top-level tables a model file may hold; anything else is an error."""
 
 _MODEL_KEYS = ("name", "length_unit", "description", "allow_outside_files")
@@ -188,6 +188,9 @@ class Model:
     description : str
     allow_outside_files : bool — ``[model] allow_outside_files``: mesh files may refer to
         files outside ``base_dir``
+    cases : tuple of vfactor.cases.Case — the ``[[cases]]`` tables (raw)
+    case_name : str — the case this model is (:func:`vfactor.cases.case_model`), "" for
+        the model file as written
     """
 
     path: str
@@ -206,6 +209,8 @@ class Model:
     environment_table: dict | None = None
     description: str = ""
     allow_outside_files: bool = False
+    cases: tuple = ()
+    case_name: str = ""
 
     def part(self, name: str) -> Part:
         """The part called ``name`` (KeyError listing the known names)."""
@@ -296,10 +301,11 @@ def load_model_text(text: str, path_for_messages: str = "<model>", base_dir=None
             raise ModelError(msg, file=reader.file) from None
         problems.append(Problem("error", reader.file, "", msg))
         return None
-    return _read_document(doc, text, reader, base)
+    return read_document(doc, text, reader, base)
 
 
-def _read_document(doc: dict, text: str, reader: Reader, base: Path) -> Model:
+def read_document(doc: dict, text: str, reader: Reader, base: Path) -> Model:
+    """The :class:`Model` of a parsed TOML document ``doc`` (``text``: its source)."""
     for key in doc:
         if key not in TOP_LEVEL_SECTIONS:
             reader.soft_error(f"[{label(key)}]", f"unknown section {key!r}"
@@ -346,6 +352,9 @@ def _read_document(doc: dict, text: str, reader: Reader, base: Path) -> Model:
             reader.soft_error(f"[{key}]", f"must be a table, got {show(value)}")
             value = None
         raw_tables[key] = value
+    from vfactor.cases import read_cases
+
+    cases = read_cases(doc.get("cases"), reader, tuple(coatings))
 
     return Model(
         path=reader.file,
@@ -364,6 +373,7 @@ def _read_document(doc: dict, text: str, reader: Reader, base: Path) -> Model:
         environment_table=raw_tables["environment"],
         description=description,
         allow_outside_files=allow_outside,
+        cases=cases,
     )
 
 

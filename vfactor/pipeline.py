@@ -64,6 +64,8 @@ class RunResult:
     geometry : vfactor.geometry.Geometry
     view_factors, exchange, trajectory, heating : results of each stage (None if not run)
     motion : vfactor.kinematics.Motion or None — hinge angles per step when parts turn
+    cases : tuple of CaseRun — per design case its results (empty for a model without
+        ``[[cases]]``; the fields above are then those of the first case)
     seed : int
     rays_per_node : int
     workers : int — processes used for the ray tracing (1 in this process; 0 for dask)
@@ -84,6 +86,7 @@ class RunResult:
     heating: object = None
     motion: object = None
     positions: object = None
+    cases: tuple = ()
     seed: int = 0
     rays_per_node: int = 0
     workers: int = 1
@@ -171,13 +174,161 @@ def _refuse_overwriting_inputs(out: Path, model) -> None:
 # ---------------------------------------------------------------------------------------
 # The shared route: one runner and one checkpoint for every stage
 # ---------------------------------------------------------------------------------------
-def _runner(geometry, scene, model, workers, scheduler):
-    key = f"{model.sha256}:{geometry.n_facets}"
+def _runner(geometry, scene, model, workers, scheduler, tag=""):
+    key = f"{model.sha256}:{geometry.n_facets}:{tag}"
     if scheduler is not None:
         return DaskRunner(geometry, key, scheduler)
     if workers > 1:
         return ProcessRunner(geometry, key, workers)
     return SerialRunner(geometry, scene)
+
+
+@dataclass(frozen=True)
+class CaseRun:
+    """The results of one design case (``name`` "" for a model without cases)."""
+
+    name: str
+    description: str
+    model: object
+    geometry: object
+    exchange: object = None
+    trajectory: object = None
+    motion: object = None
+    positions: object = None
+    heating: object = None
+
+
+def _selected_cases(model, only) -> list:
+    """The cases to compute: every ``[[cases]]`` table, or those named in ``only`` (an
+    unknown name is an ArgumentError); ``[None]`` for a model without cases."""
+    if not model.cases:
+        if only:
+            raise ArgumentError(f"--case {only[0]}: {model.path} has no [[cases]]")
+        return [None]
+    names = [c.name for c in model.cases]
+    for name in only or ():
+        if name not in names:
+            raise ArgumentError(f"--case {name}: no such case in {model.path}; cases are "
+                                f"{', '.join(names)}")
+    return [c for c in model.cases if not only or c.name in only]
+
+
+def _case_models(model, cases) -> dict:
+    """id(case) -> the Model of that case, its orbit, attitude and environment read (a bad
+    value of any case stops the run here, before the ray tracing)."""
+    from .attitude import attitude_from_table
+    from .cases import case_model
+    from .environment import environment_from_table
+    from .orbit import orbit_from_table
+
+    out = {}
+    for case in cases:
+        cm = model if case is None else case_model(model, case)
+        if case is not None:
+            file = f"{model.path} (case {case.name})"
+            if cm.orbit_table is not None:
+                orbit_from_table(cm.orbit_table, file=file)
+            if cm.attitude_table is not None:
+                attitude_from_table(cm.attitude_table, file=file)
+            environment_from_table(cm.environment_table, file)
+        out[id(case)] = cm
+    return out
+
+
+def _case_stage(case, cmodel, model, geometry, scene, view_factors, exchanges, traced, settings, *,
+                rays_per_node, seed, runner, ckpt, workers, scheduler, resumed, elapsed,
+                notes, reporter, extra_runners, multiple) -> CaseRun:
+    """Gebhart factors, trajectory, couplings at hinge positions and heating of one case
+    (``case`` None: the model as written), reusing what earlier cases computed."""
+    from . import stagework
+    from .cases import infrared_key, recoated
+    from .environment import environment_from_table
+    from .exchange import compute_exchange, traced_band
+    from .heating import HeatingSteps
+    from .kinematics import motion_of
+    from .positions import couplings_at_positions
+    from .trajectory import trajectory_from_model
+
+    name = "" if case is None else case.name
+    tag = f"{name}: " if multiple else ""
+    cgeom = geometry if case is None or not case.coatings else recoated(geometry, cmodel)
+    if cgeom is not geometry and runner is not None and not isinstance(runner, SerialRunner):
+        # workers hold the geometry they were given: this case's coatings need their own
+        runner = _runner(cgeom, scene, model, workers, scheduler, tag=name)
+        extra_runners.append(runner)
+    elif cgeom is not geometry and runner is not None:
+        runner = SerialRunner(cgeom, scene)
+        extra_runners.append(runner)
+    if multiple:
+        reporter.message(f"case {name}")
+
+    t0 = time.perf_counter()
+    key = infrared_key(cgeom)
+    if key in exchanges:
+        exchange = exchanges[key]
+    else:
+        if runner is not None and traced_band(cgeom, "ir"):
+            exchange, resumed[f"{tag}Gebhart factors"] = stagework.gebhart_on(
+                runner, cgeom, band="ir", rays_per_node=rays_per_node, seed=seed,
+                checkpoint=ckpt, reporter=reporter,
+                section_name=f"gebhart_ir:{len(exchanges)}" if len(exchanges) else None)
+        else:
+            exchange = compute_exchange(cgeom, scene, view_factors, rays_per_node=rays_per_node,
+                                        seed=seed, band="ir", reporter=reporter,
+                                        drop_tolerance=settings.gebhart_drop_tolerance)
+        exchanges[key] = exchange
+    elapsed[f"{tag}exchange"] = elapsed.get(f"{tag}exchange", 0.0) + time.perf_counter() - t0
+
+    t0 = time.perf_counter()
+    trajectory = trajectory_from_model(cmodel)
+    motion = None if trajectory is None else motion_of(cgeom, model.hinges, trajectory)
+    elapsed[f"{tag}trajectory"] = time.perf_counter() - t0
+    positions = heating = None
+    if motion is not None:
+        if not any("hinge(s) turn parts" in n for n in notes):
+            notes.append(f"{len(motion.hinges)} hinge(s) turn parts along the orbit: the "
+                         "stored couplings are those of the model as built (every hinge at "
+                         "0); each heating step uses the vehicle as placed at that step")
+        count = int(getattr(settings, "hinge_positions", 0))
+        if count:
+            t1 = time.perf_counter()
+            positions = couplings_at_positions(
+                cgeom, motion, count, rays_per_node=rays_per_node, seed=seed,
+                smooth=settings.smoothing, target_error=settings.target_error,
+                max_rays_per_node=getattr(settings, "max_rays_per_node", None),
+                drop_tolerance=settings.gebhart_drop_tolerance, reporter=reporter)
+            elapsed[f"{tag}positions"] = time.perf_counter() - t1
+            note = f"couplings also at {count} hinge position(s), in /positions"
+            if note not in notes and not multiple:
+                notes.append(note)
+    elif model.hinges and trajectory is None and case is None:
+        notes.append("the model has hinges but no [orbit]: its parts stay as built")
+    if trajectory is None:
+        if not any("has no [orbit]" in n for n in notes):
+            notes.append("the model has no [orbit]: couplings only, no heat loads")
+        return CaseRun(name=name, description="" if case is None else case.description,
+                       model=cmodel, geometry=cgeom, exchange=exchange)
+
+    environment = environment_from_table(cmodel.environment_table, model.path)
+    t0 = time.perf_counter()
+    task = HeatingSteps.of(cgeom, scene, trajectory, environment, view_factors=view_factors,
+                           rays_per_facet=int(settings.planet_rays_per_facet),
+                           sun_samples=int(settings.sun_rays_per_facet), seed=seed,
+                           motion=motion, positions=positions)
+    if runner is not None:
+        heating, resumed[f"{tag}heating steps"] = stagework.heating_on(
+            runner, cgeom, task, checkpoint=ckpt, reporter=reporter,
+            section_name=f"heating:{name}" if multiple else "heating")
+    else:
+        state = task.prepare(cgeom, scene, reporter, traced=traced[0] if traced else None)
+        if motion is None and not traced:
+            traced.append(state[0])
+        with reporter.stage(f"{tag}heating", total=task.n_steps, unit="steps") as bar:
+            heating = task.assemble(task.run(state, np.arange(task.n_steps), bar))
+    elapsed[f"{tag}heating"] = time.perf_counter() - t0
+    return CaseRun(name=name, description="" if case is None else case.description,
+                   model=cmodel, geometry=cgeom, exchange=exchange, trajectory=trajectory,
+                   motion=motion, positions=positions, heating=heating)
 
 
 # ---------------------------------------------------------------------------------------
@@ -208,7 +359,7 @@ def _inert_notes(geometry, view_factors) -> list:
 # The pipeline
 # ---------------------------------------------------------------------------------------
 def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=None,
-        resume=False, facet_factors=False, reporter=None) -> RunResult:
+        resume=False, facet_factors=False, cases=None, reporter=None) -> RunResult:
     """Compute everything a model asks for and write the results file.
 
     Parameters
@@ -229,6 +380,8 @@ def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=N
         Keep finished work in ``OUT.h5.partial`` and continue from it.
     facet_factors : bool
         Also compute and store facet-to-node view factors (sparse).
+    cases : sequence of str, optional
+        For a model with ``[[cases]]``: compute only these (default: every case).
     reporter : vfactor.progress.Reporter, optional
         Progress of the long stages; silent by default.
 
@@ -259,24 +412,18 @@ def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=N
     with signals_raise(), atomic.OutputLock(out):
         return _run(model_path, out, rays=rays, seed=seed, workers=workers,
                     scheduler=scheduler, resume=resume, facet_factors=facet_factors,
-                    reporter=reporter)
+                    reporter=reporter, only_cases=cases)
 
 
 def _run(model_path, out: Path, *, rays, seed, workers, scheduler, resume, facet_factors,
-         reporter) -> RunResult:
+         reporter, only_cases=None) -> RunResult:
     """:func:`run` after the argument checks, holding the output's lock."""
     from . import radiation, stagework
     from .checks import require_clean
-    from .environment import environment_from_table
-    from .exchange import compute_exchange, traced_band
     from .geometry import build_geometry
     from .h5io import write_results
-    from .heating import HeatingSteps, compute_heating
-    from .kinematics import motion_of
-    from .positions import couplings_at_positions
     from .model import load_model
     from .tracing.scene import Scene
-    from .trajectory import trajectory_from_model
 
     elapsed = {}
     t_start = time.perf_counter()
@@ -303,7 +450,10 @@ def _run(model_path, out: Path, *, rays, seed, workers, scheduler, resume, facet
     scene = Scene.build(geometry.vertices, geometry.triangles)
     elapsed["scene"] = time.perf_counter() - t0
 
-    view_factors = exchange = trajectory = heating = None
+    view_factors = None
+    runs, extra_runners = [], []
+    cases = _selected_cases(model, only_cases)
+    case_models = _case_models(model, cases)      # every case read before any tracing
     shared = workers > 1 or scheduler is not None or resume
     runner = ckpt = None
     resumed = {}
@@ -335,57 +485,18 @@ def _run(model_path, out: Path, *, rays, seed, workers, scheduler, resume, facet
         elapsed["view_factors"] = time.perf_counter() - t0
         notes.extend(_inert_notes(geometry, view_factors))
 
-        t0 = time.perf_counter()
-        if runner is not None and traced_band(geometry, "ir"):
-            exchange, resumed["Gebhart factors"] = stagework.gebhart_on(
-                runner, geometry, band="ir", rays_per_node=rays_per_node, seed=seed,
-                checkpoint=ckpt, reporter=reporter)
-        else:
-            exchange = compute_exchange(geometry, scene, view_factors,
-                                        rays_per_node=rays_per_node, seed=seed, band="ir",
-                                        reporter=reporter,
-                                        drop_tolerance=settings.gebhart_drop_tolerance)
-        elapsed["exchange"] = time.perf_counter() - t0
-
-        t0 = time.perf_counter()
-        trajectory = trajectory_from_model(model)
-        motion = None if trajectory is None else motion_of(geometry, model.hinges, trajectory)
-        elapsed["trajectory"] = time.perf_counter() - t0
-        positions = None
-        if motion is not None:
-            notes.append(f"{len(motion.hinges)} hinge(s) turn parts along the orbit: the "
-                         "stored couplings are those of the model as built (every hinge at "
-                         "0); each heating step uses the vehicle as placed at that step")
-            count = int(getattr(settings, "hinge_positions", 0))
-            if count:
-                t1 = time.perf_counter()
-                positions = couplings_at_positions(
-                    geometry, motion, count, rays_per_node=rays_per_node, seed=seed,
-                    smooth=settings.smoothing, target_error=settings.target_error,
-                    max_rays_per_node=getattr(settings, "max_rays_per_node", None),
-                    drop_tolerance=settings.gebhart_drop_tolerance, reporter=reporter)
-                elapsed["positions"] = time.perf_counter() - t1
-                notes.append(f"couplings also at {count} hinge position(s), in /positions")
-        elif model.hinges:
-            notes.append("the model has hinges but no [orbit]: its parts stay as built")
-        if trajectory is not None:
-            environment = environment_from_table(model.environment_table, model.path)
-            t0 = time.perf_counter()
-            heat_args = dict(view_factors=view_factors,
-                             rays_per_facet=int(settings.planet_rays_per_facet),
-                             sun_samples=int(settings.sun_rays_per_facet), seed=seed,
-                             motion=motion, positions=positions)
-            if runner is not None:
-                task = HeatingSteps.of(geometry, scene, trajectory, environment, **heat_args)
-                heating, resumed["heating steps"] = stagework.heating_on(
-                    runner, geometry, task, checkpoint=ckpt, reporter=reporter)
-            else:
-                heating = compute_heating(geometry, scene, trajectory, environment,
-                                          reporter=reporter, **heat_args)
-            elapsed["heating"] = time.perf_counter() - t0
-        else:
-            notes.append("the model has no [orbit]: couplings only, no heat loads")
+        exchanges = {}     # infrared properties -> Exchange (computed once per distinct set)
+        traced = []        # the heating stage's escaping directions, once for all cases
+        for case in cases:
+            runs.append(_case_stage(
+                case, case_models[id(case)], model, geometry, scene, view_factors, exchanges, traced, settings,
+                rays_per_node=rays_per_node, seed=seed, runner=runner, ckpt=ckpt,
+                workers=workers, scheduler=scheduler, resumed=resumed, elapsed=elapsed,
+                notes=notes, reporter=reporter, extra_runners=extra_runners,
+                multiple=bool(model.cases)))
     except BaseException:
+        for r in extra_runners:
+            r.abort()
         if runner is not None:
             runner.abort()
         if ckpt is not None:
@@ -394,11 +505,16 @@ def _run(model_path, out: Path, *, rays, seed, workers, scheduler, resume, facet
             with contextlib.suppress(atomic.OutputError):
                 ckpt.save()
         raise
+    for r in extra_runners:
+        r.close()
     if runner is not None:
         runner.close()
     if ckpt is not None:
         ckpt.save()
 
+    first = runs[0]
+    exchange, trajectory, heating = first.exchange, first.trajectory, first.heating
+    motion, positions = first.motion, first.positions
     elapsed["total"] = time.perf_counter() - t_start
     provenance = {"seed": seed, "rays_per_node": rays_per_node, "elapsed_s": elapsed,
                   "workers": int(workers) if scheduler is None else 0,
@@ -408,13 +524,13 @@ def _run(model_path, out: Path, *, rays, seed, workers, scheduler, resume, facet
     write_results(out, model=model, geometry=geometry, view_factors=view_factors,
                   exchange=exchange, trajectory=trajectory, heating=heating,
                   provenance=provenance, inputs=_model_inputs(model), motion=motion,
-                  positions=positions)
+                  positions=positions, cases=runs if model.cases else None)
     elapsed["write"] = time.perf_counter() - t0
     if ckpt is not None:
         ckpt.remove()
     return RunResult(output=out, model=model, geometry=geometry, view_factors=view_factors,
                      exchange=exchange, trajectory=trajectory, heating=heating, motion=motion,
-                     positions=positions,
+                     positions=positions, cases=tuple(runs) if model.cases else (),
                      seed=seed,
                      rays_per_node=rays_per_node,
                      workers=int(workers) if scheduler is None else 0, elapsed_s=elapsed,

@@ -71,8 +71,9 @@ def figure_names(results: Results) -> list:
     return names
 
 
-def plot_all(results: Results, folder) -> list:
-    """Write every figure that the results support into ``folder`` (created if missing).
+def plot_all(results: Results, folder, *, top=None) -> list:
+    """Write every figure that the results support into ``folder`` (created if missing);
+    ``top`` ((n,) W, optional): the upper end of each node's axis in ``heat_loads.png``.
 
     Returns
     -------
@@ -102,7 +103,8 @@ def plot_all(results: Results, folder) -> list:
               "orbit.png": plot_orbit}
     with atomic.Batch(inputs, hint=hint) as batch:
         batch.folder(folder, "the figure folder")
-        return [makers[name](results, folder / name, batch=batch)
+        return [makers[name](results, folder / name, batch=batch,
+                             **({"top": top} if name == "heat_loads.png" else {}))
                 for name in figure_names(results)]
 
 
@@ -119,34 +121,45 @@ def _shadow_spans(ax, time_min, sun_fraction):
                        alpha=0.22 if f <= 0 else 0.10, lw=0)
 
 
-def plot_heat_loads(results: Results, path, *, batch=None) -> Path:
-    """Absorbed power per node along the orbit, stacked by source, shadow shaded [W]."""
+def plot_heat_loads(results: Results, path, *, batch=None, top=None) -> Path:
+    """Absorbed power per node along the orbit, stacked by source, shadow shaded [W]; the
+    first panel is the whole vehicle. ``top`` (optional): per node the upper end of its y
+    axis [W] (e.g. the largest value over several design cases, so that the figures of the
+    cases share their scales); by default each panel's own."""
     heat, tr = results.heating, results.trajectory
     names = results.geometry.nodes.names
-    total = heat.node_solar + heat.node_albedo + heat.node_planet_ir
+    sources = ("solar", "albedo", "planet_ir")
+    loads = [getattr(heat, f"node_{src}") for src in sources]
+    total = loads[0] + loads[1] + loads[2]
     average = node_averages(total, tr.time)
-    order = np.argsort(-average, kind="stable")[:_MAX_PANELS]
-    k = len(order)
+    order = np.argsort(-average, kind="stable")[:_MAX_PANELS - 1]
+    panels = [(f"whole vehicle   (average {average.sum():.4g} W)",
+               [x.sum(axis=1) for x in loads], total.sum(axis=1),
+               None if top is None else float(np.sum(top)))]
+    panels += [(f"{names[i]}   (average {average[i]:.4g} W)", [x[:, i] for x in loads],
+                total[:, i], None if top is None else float(top[i])) for i in order]
+    k = len(panels)
     cols = 1 if k == 1 else (2 if k <= 4 else 3)
     rows = int(np.ceil(k / cols))
     fig = _figure(4.2 * cols + 0.6, 2.3 * rows + 1.0)
     t_min = tr.time / 60.0
     axes = fig.subplots(rows, cols, squeeze=False, sharex=True)
+    present = [bool(np.any(x != 0)) for x in loads]
     for slot, ax in enumerate(axes.flat):
         if slot >= k:
             ax.set_visible(False)
             continue
-        i = order[slot]
+        title, parts, line, upper = panels[slot]
         _shadow_spans(ax, t_min, tr.sun_fraction)
-        ax.stackplot(t_min, heat.node_solar[:, i], heat.node_albedo[:, i],
-                     heat.node_planet_ir[:, i],
-                     colors=[SOURCE_COLOURS[s] for s in ("solar", "albedo", "planet_ir")],
-                     labels=[_SOURCE_LABEL[s] for s in ("solar", "albedo", "planet_ir")],
+        ax.stackplot(t_min, *parts, colors=[SOURCE_COLOURS[s] for s in sources],
                      alpha=0.95, lw=0)
-        ax.plot(t_min, total[:, i], color="#222222", lw=0.8)
-        ax.set_title(f"{names[i]}   (average {average[i]:.3g} W)", fontsize=9, loc="left")
+        ax.plot(t_min, line, color="#222222", lw=0.8)
+        ax.set_title(title, fontsize=9, loc="left", fontweight="bold" if slot == 0 else None)
         ax.set_xlim(t_min[0], t_min[-1])
-        ax.set_ylim(bottom=0)
+        if upper is not None and upper > 0:
+            ax.set_ylim(0, 1.05 * upper)
+        else:
+            ax.set_ylim(bottom=0)
         ax.grid(alpha=0.25, lw=0.5)
         ax.tick_params(labelsize=8)
         if slot % cols == 0:
@@ -155,14 +168,22 @@ def plot_heat_loads(results: Results, path, *, batch=None) -> Path:
             ax.set_xlabel("time since epoch [min]", fontsize=8)
     from matplotlib.patches import Patch
 
+    # the legend lists only what the figure shows
     handles = [Patch(color=SOURCE_COLOURS[s], label=_SOURCE_LABEL[s])
-               for s in ("solar", "albedo", "planet_ir")]
-    handles += [Patch(color=_SHADOW, alpha=0.22, label="umbra"),
-                Patch(color=_SHADOW, alpha=0.10, label="penumbra")]
-    fig.legend(handles=handles, loc="outside lower center", ncols=5, fontsize=8, frameon=False)
-    more = "" if len(names) <= _MAX_PANELS else f" ({k} largest of {len(names)} nodes)"
+               for s, shown in zip(sources, present) if shown]
+    fraction = np.asarray(tr.sun_fraction)
+    if np.any(fraction <= 0):
+        handles.append(Patch(color=_SHADOW, alpha=0.22, label="umbra"))
+    if np.any((fraction > 0) & (fraction < 1)):
+        handles.append(Patch(color=_SHADOW, alpha=0.10, label="penumbra"))
+    if handles:
+        fig.legend(handles=handles, loc="outside lower center", ncols=len(handles),
+                   fontsize=8, frameon=False)
+    more = "" if len(names) < _MAX_PANELS else f" ({k - 1} largest of {len(names)} nodes)"
+    case = f"design case {results.case}, " if results.case else ""
+    shared = ", y scales shared by the cases" if top is not None else ""
     fig.suptitle(f"{results.model_name}: absorbed environmental heat per node{more}, "
-                 f"case {heat.case}", fontsize=10)
+                 f"{case}environment {heat.case}{shared}", fontsize=10)
     return _save(fig, Path(path), batch)
 
 

@@ -103,7 +103,8 @@ def view_factors_on(runner, geometry, settings, *, rays_per_node, seed, checkpoi
     return vf, resumed[0]
 
 
-def gebhart_on(runner, geometry, *, band, rays_per_node, seed, checkpoint, reporter):
+def gebhart_on(runner, geometry, *, band, rays_per_node, seed, checkpoint, reporter,
+               section_name=None):
     """Traced Gebhart factors by :class:`vfactor.exchange.GebhartRounds` jobs on
     ``runner``: the bits of :func:`vfactor.exchange.monte_carlo_gebhart`.
 
@@ -113,8 +114,8 @@ def gebhart_on(runner, geometry, *, band, rays_per_node, seed, checkpoint, repor
 
     task = GebhartRounds.of(geometry, band=band, rays_per_node=rays_per_node, seed=seed)
     m = task.rays_per_round
-    section = None if checkpoint is None else checkpoint.pairs(f"gebhart_{band}",
-                                                               rays_per_round=m)
+    section = None if checkpoint is None else checkpoint.pairs(
+        section_name or f"gebhart_{band}", rays_per_round=m)
     pair_node, pair_round = task.pairs(np.arange(geometry.n_nodes, dtype=np.int64))
     sums = TallySums.empty(geometry.n_nodes, m)
     with reporter.stage(f"Gebhart factors ({band}, reflection tracing)",
@@ -123,7 +124,7 @@ def gebhart_on(runner, geometry, *, band, rays_per_node, seed, checkpoint, repor
     return exchange_from_tallies(geometry, sums, band=band), resumed
 
 
-def heating_on(runner, geometry, task, *, checkpoint, reporter):
+def heating_on(runner, geometry, task, *, checkpoint, reporter, section_name="heating"):
     """Heat loads by blocks of steps of ``task`` (:class:`vfactor.heating.HeatingSteps`)
     on ``runner``: the bits of :func:`vfactor.heating.compute_heating`.
 
@@ -131,7 +132,7 @@ def heating_on(runner, geometry, task, *, checkpoint, reporter):
     """
     section = None
     if checkpoint is not None:
-        section = checkpoint.steps("heating", rays_per_facet=task.rays_per_facet,
+        section = checkpoint.steps(section_name, rays_per_facet=task.rays_per_facet,
                                    sun_samples=task.sun_samples, n_steps=task.n_steps,
                                    replicates=task.replicates, max_bounces=task.max_bounces)
     rows = task.empty_rows()

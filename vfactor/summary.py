@@ -11,7 +11,6 @@ nodes of largest load listed (``all_nodes=True`` lists every node; the JSON alwa
 from __future__ import annotations
 
 import json
-import textwrap
 from types import SimpleNamespace
 
 import numpy as np
@@ -100,6 +99,15 @@ _SOURCE_LABEL = {"solar": "solar", "albedo": "albedo", "planet_ir": "planet IR",
 # ---------------------------------------------------------------------------------------
 # Numbers
 # ---------------------------------------------------------------------------------------
+def _epoch_text(epoch) -> str:
+    """ISO 8601 UTC without a fraction of a second when it is zero."""
+    text = str(epoch)
+    head, dot, tail = text.partition(".")
+    if dot and tail.rstrip("Z").strip("0") == "":
+        return head + ("Z" if text.endswith("Z") else "")
+    return text
+
+
 def _orbit_facts(results: Results) -> dict | None:
     """Orbit facts of :func:`vfactor.trajectory.orbit_facts` plus the sampling used."""
     tr = results.trajectory
@@ -110,7 +118,7 @@ def _orbit_facts(results: Results) -> dict | None:
     f = orbit_facts(tr)
     t = np.asarray(tr.time, dtype=float)
     return {
-        "epoch_utc": tr.epoch_utc,
+        "epoch_utc": _epoch_text(tr.epoch_utc),
         "period_s": float(f.period_s),
         "steps": int(t.size),
         "step_s": float(t[1] - t[0]) if t.size > 1 else 0.0,
@@ -380,194 +388,10 @@ def to_json(summary: dict) -> str:
 # ---------------------------------------------------------------------------------------
 # Text
 # ---------------------------------------------------------------------------------------
-def _table(header, rows, align=None) -> list:
-    cells = [[str(h) for h in header]] + [[str(c) for c in r] for r in rows]
-    widths = [max(len(r[k]) for r in cells) for k in range(len(header))]
-    align = align or ["<"] + [">"] * (len(header) - 1)
-    out = []
-    for idx, r in enumerate(cells):
-        out.append("  " + "  ".join(f"{c:{al}{w}}" for c, w, al in zip(r, widths, align)))
-        if idx == 0:
-            out.append("  " + "  ".join("-" * w for w in widths))
-    return out
+def format_summary(results: Results, top: int = 15, all_nodes: bool = False,
+                   extra: str = "") -> str:
+    """The summary as text (what ``vfactor summary`` prints; :mod:`vfactor.summarytext`);
+    ``extra``: a section placed before the warnings and cautions."""
+    from .summarytext import summary_text
 
-
-def _g(x, digits=4) -> str:
-    if x is None:
-        return "-"
-    if x == 0:
-        return "0"
-    return f"{x:.{digits}g}"
-
-
-def _hms(seconds) -> str:
-    if seconds is None:
-        return "-"
-    s = float(seconds)
-    if s < 60:
-        return f"{s:.1f} s"
-    m, s = divmod(s, 60)
-    if m < 60:
-        return f"{int(m)} min {s:04.1f} s"
-    h, m = divmod(m, 60)
-    return f"{int(h)} h {int(m):02d} min"
-
-
-def _load_cells(r) -> list:
-    return [f"{_g(r[src]['average_W'])} [{_g(r[src]['min_W'])}, {_g(r[src]['max_W'])}]"
-            for src in _SOURCES + ("total",)]
-
-
-def format_summary(results: Results, top: int = 15, all_nodes: bool = False) -> str:
-    """The summary as text (what ``vfactor summary`` prints); above
-    :data:`NODE_LIST_LIMIT` nodes the per-node tables are summed by part unless
-    ``all_nodes``."""
-    s = summarize(results, top=top)
-    by_part = len(s["nodes"]) > NODE_LIST_LIMIT and not all_nodes
-    p = s["provenance"]
-    lines = [f"vfactor results: {p['file']}", ""]
-    lines.append("Run")
-    el = p["elapsed_s"] or {}
-    run_rows = [
-        ("model", p["model_name"]),
-        ("model sha256", p["model_sha256"]),
-        ("vfactor version", p["vfactor_version"]),
-        ("created (UTC)", p["created_utc"]),
-        ("seed", p["seed"]),
-        ("rays per node", f"{p['rays_per_node']:,}"),
-        ("nodes / facets", f"{p['nodes']} / {p['facets']}"),
-    ]
-    if p.get("workers"):
-        run_rows.append(("workers", p["workers"]))
-    for stage, sec in el.items():
-        run_rows.append((f"time: {stage.replace('_', ' ')}", _hms(sec)))
-    lines += [f"  {k:<22}{v}" for k, v in run_rows]
-
-    if by_part:
-        lines += ["", f"Nodes by part ({len(s['nodes'])} nodes, more than {NODE_LIST_LIMIT}: "
-                      "summed by part; --all-nodes lists every node, --json gives them all)"]
-        lines += _table(["part", "nodes", "facets", "area [m2]", "coatings"],
-                        [(r["part"], r["nodes"], r["facets"], _g(r["area_m2"]),
-                          ", ".join(r["coatings"])) for r in s["parts"]],
-                        ["<", ">", ">", ">", "<"])
-    else:
-        lines += ["", "Nodes"]
-        lines += _table(["node", "coating", "area [m2]", "alpha", "eps", "facets"],
-                        [(r["name"], r["coating"], _g(r["area_m2"]),
-                          f"{r['solar_absorptivity']:.3f}", f"{r['ir_emissivity']:.3f}",
-                          r["facets"]) for r in s["nodes"]],
-                        ["<", "<", ">", ">", ">", ">"])
-
-    if s["couplings"] is not None:
-        c = s["couplings"]
-        lines += ["", f"Strongest couplings ({c['shown']} of {c['pairs_total']} node pairs, "
-                      "infrared band; +- is one sigma)"]
-        rows = []
-        for r in c["strongest"]:
-            rows.append((f"{r['from']} -> {r['to']}",
-                         f"{r['view_factor']:.4f} +- {r['view_factor_stderr']:.1e}",
-                         _g(r.get("gebhart")),
-                         _g(r.get("exchange_area_m2")) + (
-                             f" +- {r['exchange_area_stderr_m2']:.1e}"
-                             if r.get("exchange_area_stderr_m2") is not None else ""),
-                         _g(r.get("conductance_W_K4"))))
-        lines += _table(["pair", "view factor", "Gebhart", "exch. area [m2]",
-                         "conductance [W K-4]"], rows)
-        if by_part:
-            lines += ["", "Couplings to deep space by part (view factor: area-weighted "
-                          "mean [min, max] over the part's nodes)"]
-            lines += _table(["part", "view factor to space", "conductance [W K-4]"],
-                            [(r["part"], f"{r['space_view_factor']['area_weighted']:.4f} "
-                                         f"[{r['space_view_factor']['min']:.4f}, "
-                                         f"{r['space_view_factor']['max']:.4f}]",
-                              _g(r.get("conductance_space_W_K4")))
-                             for r in s["parts"] if "space_view_factor" in r])
-        else:
-            lines += ["", "Couplings to deep space (and of each node to itself)"]
-            lines += _table(["node", "view factor", "to itself", "to inert", "Gebhart",
-                             "exch. area [m2]", "conductance [W K-4]", "rays"],
-                            [(r["node"],
-                              f"{r['view_factor']:.4f} +- {r['view_factor_stderr']:.1e}",
-                              f"{r['self_view_factor']:.4f}", f"{r['inert']:.4f}",
-                              _g(r.get("gebhart")),
-                              _g(r.get("exchange_area_m2")), _g(r.get("conductance_W_K4")),
-                              f"{r['rays']:,}") for r in s["space"]])
-        acc = s["accuracy"]
-        lines += ["", "Accuracy"]
-        lines.append(f"  largest one-sigma error of any view factor: {acc['largest_stderr']:.2e}")
-        rel = acc["largest_relative_stderr_significant"]
-        lines.append(f"  largest relative one-sigma error of view factors >= "
-                     f"{acc['significant_threshold']}: " +
-                     (f"{100 * rel:.2f} %" if np.isfinite(rel) else
-                      "none reaches that level (small nodes: judge the absolute error above)"))
-        lines += textwrap.wrap(f"reciprocity/closure smoothing: {acc['smoothing_method']}; "
-                               f"largest adjustment {acc['largest_adjustment_sigma']:.2f} sigma",
-                               width=92, initial_indent="  ", subsequent_indent="    ")
-        if acc["target_error"] is not None:
-            lines.append(f"  target error {acc['target_error']:g}: "
-                         f"{'reached' if acc['converged'] else 'NOT reached (ray budget spent)'}")
-        if acc["exchange_method"]:
-            lines.append(f"  Gebhart factors by: {acc['exchange_method']}")
-        if acc["exchange_method"] == "matrix":
-            lines.append(f"  Gebhart entries below {acc['gebhart_drop_tolerance']:g} of a node's "
-                         f"emission left out: largest share dropped "
-                         f"{100 * acc['largest_gebhart_dropped']:.2g} % of a node's emission")
-
-    o = s["orbit"]
-    if o is not None:
-        lines += ["", "Orbit"]
-        rows = [("epoch (UTC)", o["epoch_utc"]),
-                ("period", f"{o['period_s'] / 60:.2f} min"),
-                ("steps", f"{o['steps']} of {o['step_s']:.1f} s, "
-                          f"{o['span_s'] / o['period_s']:.2f} orbits"),
-                ("beta angle", f"{o['beta_min_deg']:.2f} .. {o['beta_max_deg']:.2f} deg")]
-        rows.append(("altitude", f"{o['altitude_min_km']:.1f} .. {o['altitude_max_km']:.1f} km"))
-        rows += [("in shadow (any)", f"{100 * o['eclipse_share']:.1f} % of the time "
-                                     f"({o['eclipses']} passage(s), {o['shadow_model']} shadow)"),
-                 ("in umbra", f"{100 * o['umbra_share']:.1f} % of the time"),
-                 ("longest shadow", f"{o['longest_eclipse_s'] / 60:.1f} min, penumbra "
-                                    f"{o['penumbra_s']:.1f} s per passage")]
-        lines += [f"  {k:<22}{v}" for k, v in rows]
-
-    if s["hinges"]:
-        lines += ["", "Hinges (angle along the orbit; couplings above are of the model as built,"
-                      " every hinge at 0)"]
-        lines += _table(["hinge", "law", "rides on", "angle [deg]"],
-                        [(r["name"], r["law"], r["parent"] or "-",
-                          f"{r['min_deg']:.1f} .. {r['max_deg']:.1f}") for r in s["hinges"]])
-        if s["positions"]:
-            lines.append(f"  couplings also at {s['positions']} hinge positions: /positions, "
-                         "export couplings_position_K.csv")
-
-    h = s["heat_loads"]
-    if h is not None:
-        lines += ["", f"Absorbed heat loads per node [W] (environment case {h['case']}: "
-                      f"solar {_g(h['solar_constant_W_m2'][0])}..{_g(h['solar_constant_W_m2'][1])}"
-                      f" W m-2, albedo {h['albedo']:g}, planet IR {h['planet_ir_W_m2']:g} W m-2)"]
-        labels = [f"{_SOURCE_LABEL[src]}: avg [min, max]" for src in _SOURCES + ("total",)]
-        if by_part:
-            lines += ["  summed over the nodes of each part (min and max of the part's sum)"]
-            lines += _table(["part"] + labels, [[r["part"]] + _load_cells(r["heat_loads"])
-                                                for r in s["parts"]])
-            lines += ["", f"  the {len(h['largest'])} nodes of largest orbit-average load"]
-            lines += _table(["node"] + labels, [[r["node"]] + _load_cells(r)
-                                                for r in h["largest"]])
-        else:
-            lines += _table(["node"] + labels, [[r["node"]] + _load_cells(r)
-                                                for r in h["nodes"]])
-        lines.append("  avg = time average over the steps; reflections inside the vehicle included")
-        w = h.get("largest_stderr")
-        if w is not None:
-            lines.append(f"  largest one-sigma Monte Carlo error of a directly absorbed load: "
-                         f"{_g(w['stderr_W'])} W ({w['node']}, {_SOURCE_LABEL[w['source']]}, "
-                         f"step {w['step']})")
-
-    if s["warnings"]:
-        lines += ["", "Warnings"]
-        for w in s["warnings"]:
-            lines += textwrap.wrap(w, width=92, initial_indent="  - ",
-                                   subsequent_indent="    ")
-    lines += ["", "Cautions"]
-    for c in CAUTIONS:
-        lines += textwrap.wrap(c, width=92, initial_indent="  - ", subsequent_indent="    ")
-    return "\n".join(lines) + "\n"
+    return summary_text(results, top=top, all_nodes=all_nodes, extra=extra)
