@@ -419,3 +419,93 @@ def test_epochs_before_year_1000_keep_four_digits():
 
     assert ephemeris.format_epoch(dt.datetime(1, 3, 21, tzinfo=dt.timezone.utc)) == \
         "0001-03-21T00:00:00.000000Z"
+
+
+# --------------------------------------------------------------------------------------
+# beta_deg: the node that gives a beta angle at the epoch
+# --------------------------------------------------------------------------------------
+@pytest.mark.parametrize("epoch", ["2027-03-21T00:00:00Z", "2027-06-21T12:00:00Z",
+                                   "2027-12-02T06:30:00Z"])
+@pytest.mark.parametrize("inclination_deg", [28.5, 51.6, 97.8, 135.0])
+def test_beta_deg_gives_that_beta_angle_at_step_0(epoch, inclination_deg):
+    # the beta angle is asin(h_hat . s_hat), h = r x v (Gilmore (ed.), Spacecraft Thermal
+    # Control Handbook, Vol. I, 2nd ed., 2002, ch. 2; common practice); the trajectory
+    # computes it from the propagated state, independently of raan_from_beta's inverse
+    from vfactor.attitude import attitude_from_table
+    from vfactor.orbit import beta_range
+    from vfactor.trajectory import compute_trajectory
+
+    low, high = np.degrees(beta_range(epoch, math.radians(inclination_deg)))
+    betas = [b for b in (-75.0, -40.0, -10.0, 0.0, 12.5, 45.0, 70.0) if low < b < high]
+    assert len(betas) >= 3                       # every case checks several values
+    for beta in betas:
+        orbit = orbit_from_table({"type": "circular", "altitude_km": 550.0,
+                                  "inclination_deg": inclination_deg, "beta_deg": beta,
+                                  "epoch": epoch, "steps_per_orbit": 8}, file="m.toml")
+        tr = compute_trajectory(orbit, attitude_from_table(None))
+        # to 1e-6 deg, as asked of the inverse
+        assert abs(math.degrees(tr.beta[0]) - beta) < 1e-6, (beta, math.degrees(tr.beta[0]))
+        # the node chosen is the one on the sunlit side: local mean time of the ascending
+        # node within 06:00 .. 18:00 up to the equation of time (under 16.5 min, common
+        # practice)
+        hours = local_time_of_node(orbit.raan, ephemeris.times_from_epoch(epoch, [0.0]))[0]
+        assert 6.0 - 16.5 / 60.0 < hours < 18.0 + 16.5 / 60.0, hours
+        # the other node with that beta, Omega' - alpha = 180 deg - (Omega - alpha) (same
+        # sine), gives the same beta: the choice was between these two
+        ra, _, _ = ephemeris.sun_ra_dec(ephemeris.times_from_epoch(epoch, [0.0]))
+        mirror = math.degrees(2.0 * ra[0] + math.pi - orbit.raan) % 360.0
+        other = orbit_from_table({"type": "circular", "altitude_km": 550.0,
+                                  "inclination_deg": inclination_deg, "raan_deg": mirror,
+                                  "epoch": epoch, "steps_per_orbit": 8})
+        assert abs(math.degrees(compute_trajectory(other, attitude_from_table(None)).beta[0])
+                   - beta) < 1e-6
+
+
+def test_beta_deg_with_sun_synchronous_inclination():
+    orbit = orbit_from_table({"altitude_km": 700.0, "sun_synchronous": True,
+                              "beta_deg": -25.0, "epoch": EPOCH, "steps_per_orbit": 4})
+    from vfactor.attitude import attitude_from_table
+    from vfactor.trajectory import compute_trajectory
+
+    tr = compute_trajectory(orbit, attitude_from_table(None))
+    # same definition as above; the inclination is the sun-synchronous one (> 90 deg)
+    assert abs(math.degrees(tr.beta[0]) + 25.0) < 1e-6
+    assert math.degrees(orbit.inclination) > 90.0
+
+
+def test_beta_deg_out_of_reach_names_the_reachable_range():
+    # sin(delta - i) <= sin(beta) <= sin(delta + i) over every node (from h . s with
+    # |sin(Omega - alpha)| <= 1); delta from the ephemeris' own Sun declination
+    epoch = "2027-06-21T12:00:00Z"
+    _, dec, _ = ephemeris.sun_ra_dec(ephemeris.times_from_epoch(epoch, [0.0]))
+    delta = math.degrees(dec[0])
+    with pytest.raises(ModelError) as err:
+        circular(inclination_deg=28.5, beta_deg=70.0, epoch=epoch)
+    e = err.value
+    assert e.where == "[orbit] beta_deg" and e.file == "model.toml" and "\n" not in str(e)
+    assert "70 deg cannot be reached" in e.message
+    assert f"{delta - 28.5:.3f} .. {delta + 28.5:.3f} deg" in e.message, e.message
+    # an equatorial orbit has one beta only, the Sun's declination
+    with pytest.raises(ModelError, match=rf"only {delta:.3f} deg is"):
+        circular(inclination_deg=0.0, beta_deg=0.0, epoch=epoch)
+
+
+@pytest.mark.parametrize("extra, other", [({"raan_deg": 10.0}, "raan_deg"),
+                                          ({"ltan": "10:30"}, "ltan")])
+def test_beta_deg_excludes_raan_deg_and_ltan(extra, other):
+    with pytest.raises(ModelError) as err:
+        circular(beta_deg=20.0, **extra)
+    e = err.value
+    assert e.where == "[orbit] beta_deg" and "\n" not in str(e)
+    assert f"give beta_deg or {other}, not both" in e.message
+    assert "beta_deg = 20.0" in e.message and f"{other} = {extra[other]!r}" in e.message
+
+
+def test_beta_deg_range_and_kind_are_checked():
+    with pytest.raises(ModelError, match="beta_deg") as err:
+        circular(beta_deg=95.0)
+    assert "95" in err.value.message
+    # elements orbits take raan_deg or ltan only (the key belongs to circular orbits)
+    with pytest.raises(ModelError, match="beta_deg"):
+        orbit_from_table({"type": "elements", "perigee_km": 500.0, "apogee_km": 900.0,
+                          "inclination_deg": 60.0, "beta_deg": 10.0, "epoch": EPOCH})

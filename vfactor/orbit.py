@@ -45,6 +45,8 @@ __all__ = [
     "solve_kepler",
     "elements_to_state",
     "raan_from_ltan",
+    "raan_from_beta",
+    "beta_range",
     "local_time_of_node",
 ]
 
@@ -315,6 +317,94 @@ def raan_from_ltan(epoch_utc, ltan_hours: float) -> float:
     return math.fmod(raan + 4.0 * math.pi, 2.0 * math.pi)
 
 
+def _sun_direction_at(epoch_utc) -> np.ndarray:
+    """(3,) unit vector from the planet centre to the Sun at the epoch, ICRF axes: the
+    direction :func:`vfactor.trajectory.compute_trajectory` takes the beta angle from."""
+    sun = ephemeris.sun_position(ephemeris.times_from_epoch(epoch_utc, [0.0]))[0]
+    return sun / np.linalg.norm(sun)
+
+
+def beta_range(epoch_utc, inclination: float) -> tuple:
+    """Smallest and largest beta angle an orbit of this inclination can have at the epoch.
+
+    Parameters
+    ----------
+    epoch_utc : str or datetime — ISO 8601 UTC
+    inclination : float — i, ICRF equator [rad]
+
+    Returns
+    -------
+    (low, high) : float — beta angles [rad], over every right ascension of the node
+
+    Notes
+    -----
+    From sin beta = cos i sin delta + sin i cos delta sin(Omega - alpha) (see
+    :func:`raan_from_beta`), linear in sin(Omega - alpha) in [-1, 1] with a coefficient
+    sin i cos delta >= 0: sin(delta - i) <= sin beta <= sin(delta + i).
+    """
+    s = _sun_direction_at(epoch_utc)
+    delta = math.asin(max(-1.0, min(1.0, float(s[2]))))
+    return math.asin(math.sin(delta - inclination)), math.asin(math.sin(delta + inclination))
+
+
+def raan_from_beta(epoch_utc, inclination: float, beta: float) -> float:
+    """ICRF right ascension of the ascending node that gives the beta angle ``beta`` at epoch.
+
+    Parameters
+    ----------
+    epoch_utc : str or datetime — ISO 8601 UTC
+    inclination : float — i, ICRF equator [rad], 0..pi
+    beta : float — beta angle wanted at the epoch [rad]: the angle between the geocentric
+        Sun direction and the orbit plane, positive toward the orbit normal h = r x v
+
+    Returns
+    -------
+    float — RAAN [rad], 0..2 pi. Of the two nodes that give ``beta``, the one on the
+    sunlit side of the planet: |Omega - alpha| <= 90 deg, i.e. a local apparent solar time
+    of the ascending node between 06:00 and 18:00. The other node is at the local time
+    mirrored about 06:00 (at an equinox, ascending nodes at 10:30 and 01:30 give the same
+    beta); give ``raan_deg`` or ``ltan`` for it.
+
+    Raises
+    ------
+    ValueError
+        ``beta`` outside :func:`beta_range` for this inclination at the epoch (the message
+        gives the range in degrees).
+
+    Notes
+    -----
+    The orbit normal is h = (sin i sin Omega, -sin i cos Omega, cos i) (third column of
+    the perifocal-to-inertial rotation, Vallado 2013, ch. 2) and the Sun direction
+    s = (cos delta cos alpha, cos delta sin alpha, sin delta), so
+    sin beta = h . s = cos i sin delta + sin i cos delta sin(Omega - alpha)
+    (the beta angle as asin(h . s): Gilmore (ed.), Spacecraft Thermal Control Handbook,
+    Vol. I, 2nd ed., 2002, ch. 2, who writes it with ecliptic angles; this equatorial form
+    is derived here from h . s). Hence Omega = alpha + asin(x),
+    x = (sin beta - cos i sin delta) / (sin i cos delta). For i = 0 or pi every node gives
+    beta = +-delta and the node is taken at alpha.
+    """
+    s = _sun_direction_at(epoch_utc)
+    delta = math.asin(max(-1.0, min(1.0, float(s[2]))))
+    alpha = math.atan2(float(s[1]), float(s[0]))
+    low, high = beta_range(epoch_utc, inclination)
+    slack = 1e-12   # rad: rounding of the range ends
+    if not low - slack <= beta <= high + slack:
+        reachable = (f"only {math.degrees(low):.3f} deg is" if high - low < 1e-9 else
+                     f"the reachable range is {math.degrees(low):.3f} .. "
+                     f"{math.degrees(high):.3f} deg")
+        raise ValueError(f"a beta angle of {math.degrees(beta):g} deg cannot be reached "
+                         f"with an inclination of {math.degrees(inclination):.4g} deg at this "
+                         f"epoch (Sun declination {math.degrees(delta):.3f} deg): "
+                         f"{reachable}")
+    coefficient = math.sin(inclination) * math.cos(delta)
+    if coefficient < 1e-15:
+        x = 0.0
+    else:
+        x = (math.sin(beta) - math.cos(inclination) * math.sin(delta)) / coefficient
+    raan = alpha + math.asin(max(-1.0, min(1.0, x)))
+    return math.fmod(raan + 4.0 * math.pi, 2.0 * math.pi)
+
+
 # --------------------------------------------------------------------------------------
 # the Orbit object
 # --------------------------------------------------------------------------------------
@@ -479,7 +569,8 @@ def circular_orbit(altitude_km: float, inclination_deg: float, raan_deg: float,
 _COMMON_KEYS = {"type", "epoch", "orbits", "steps_per_orbit", "step_s", "shadow"}
 _KEYS = {
     "circular": _COMMON_KEYS | {"altitude_km", "inclination_deg", "raan_deg", "ltan",
-                                "sun_synchronous", "argument_of_latitude_deg", "j2_drift"},
+                                "beta_deg", "sun_synchronous", "argument_of_latitude_deg",
+                                "j2_drift"},
     "elements": _COMMON_KEYS | {"perigee_km", "apogee_km", "semi_major_axis_km",
                                 "eccentricity", "inclination_deg", "raan_deg", "ltan",
                                 "sun_synchronous", "arg_perigee_deg", "true_anomaly_deg",
@@ -531,7 +622,19 @@ def _inclination_and_node(reader, a, e, epoch, planet):
     if reader.has("raan_deg") and reader.has("ltan"):
         raise reader.error("ltan", f"give raan_deg or ltan, not both (ltan = "
                            f"{reader.table['ltan']!r}, raan_deg = {reader.table['raan_deg']!r})")
-    if reader.has("ltan"):
+    if reader.has("beta_deg"):
+        other = next((k for k in ("raan_deg", "ltan") if reader.has(k)), None)
+        if other is not None:
+            raise reader.error("beta_deg", f"give beta_deg or {other}, not both (beta_deg = "
+                               f"{reader.table['beta_deg']!r}, {other} = "
+                               f"{reader.table[other]!r})")
+        beta = math.radians(reader.number("beta_deg", minimum=-90.0, maximum=90.0,
+                                          unit="deg"))
+        try:
+            raan = raan_from_beta(epoch, inclination, beta)
+        except ValueError as exc:
+            raise reader.error("beta_deg", str(exc)) from None
+    elif reader.has("ltan"):
         raan = raan_from_ltan(epoch, _parse_ltan(reader))
     else:
         raan = math.radians(_angle(reader, "raan_deg"))
@@ -622,7 +725,9 @@ def orbit_from_table(table: dict, file: str | None = None, planet: Planet = EART
         - ``orbits`` (default 1), and ``steps_per_orbit`` (default 72) or ``step_s``;
         - ``shadow`` = "conical" (default, with penumbra) | "cylindrical";
         - circular: ``altitude_km``, ``inclination_deg`` or ``sun_synchronous = true``,
-          ``raan_deg`` (default 0) or ``ltan = "HH:MM"``, ``argument_of_latitude_deg``
+          ``raan_deg`` (default 0) or ``ltan = "HH:MM"`` or ``beta_deg`` (the node that
+          gives this beta angle at the epoch, :func:`raan_from_beta`),
+          ``argument_of_latitude_deg``
           (position at epoch, from the ascending node; default 0), ``j2_drift``;
         - elements: ``perigee_km`` and ``apogee_km`` (altitudes above the equatorial
           radius) or ``semi_major_axis_km`` and ``eccentricity``; ``inclination_deg`` or
