@@ -117,6 +117,7 @@ def check_model(path) -> CheckReport:
     problems[:] = [p for p in problems if not (p.severity == "note" and p.where in unread)]
     if _check_built(model, geometry, report):
         check_geometry(model, geometry, report)
+        _check_network(model, geometry, report)
     if report.ok:
         from vfactor.checkcache import check_key, store_passed
 
@@ -172,6 +173,7 @@ def require_clean(model: Model, geometry: Geometry, rays: int | None = None) -> 
     _check_settings(model, report)
     if _check_built(model, geometry, report):
         check_geometry(model, geometry, report)
+        _check_network(model, geometry, report)
     _raise_first(report.errors, model)
     store_passed(key, report.problems)
     return report.warnings + resources
@@ -266,6 +268,22 @@ def _check_settings(model: Model, report: CheckReport) -> None:
     if model.attitude_table is not None and model.orbit_table is None:
         report.problems.append(Problem("warning", file, "[attitude]",
                                        "has no effect without an [orbit] section"))
+
+
+def _check_network(model: Model, geometry: Geometry, report: CheckReport) -> None:
+    """The ``[network]`` section (``vfactor solve``) against the built nodes."""
+    import tomllib
+
+    from vfactor.netmodel import network_from_table
+
+    table = tomllib.loads(model.source_text).get("network")
+    if table is None:
+        return
+    try:
+        network_from_table(table, geometry.nodes.names, geometry.nodes.area, file=report.path)
+    except ModelError as err:
+        report.problems.append(Problem("error", report.path, err.where or "[network]",
+                                       err.message))
 
 
 def _check_cases(model: Model, report: CheckReport) -> None:

@@ -236,6 +236,29 @@ def build_parser() -> argparse.ArgumentParser:
     p.set_defaults(func=_cmd_export)
 
     p = sub.add_parser(
+        "solve", parents=[common], formatter_class=_Formatter,
+        help="quick-look temperatures from the couplings and heat loads",
+        description="Solve the thermal network of a results file: the steady temperatures "
+                    "under the\norbit-average loads and the cyclic transient over the orbit, "
+                    "with the one-sigma\nstatistical error carried from the couplings and "
+                    "loads. Capacities, dissipation,\nlinks, heaters and blankets come from "
+                    "the model's [network] section. The temperatures\nare added to OUT.h5 "
+                    "(/temperatures); -o also writes CSV tables and a figure.\nA quick-look "
+                    "check of the inputs, not a substitute for a verified thermal model.",
+        epilog="examples:\n  vfactor solve sat.h5\n  vfactor solve sat.h5 -o temperatures\n"
+               "  vfactor solve sat.h5 --case hot --model sat-edited.toml -o temperatures")
+    p.add_argument("results", metavar="OUT.h5", help="results file of `vfactor run`")
+    p.add_argument("-o", "--output", metavar="DIR",
+                   help="also write temperatures.csv, temperature_nodes.csv and "
+                        "temperatures.png here (DIR/CASE/ with several cases)")
+    p.add_argument("--case", metavar="NAME", help="only this design case (default: every case)")
+    p.add_argument("--model", metavar="MODEL",
+                   help="take the [network] section from this model file instead of the "
+                        "model stored in the results (the couplings and loads stay those "
+                        "of the run)")
+    p.set_defaults(func=_cmd_solve)
+
+    p = sub.add_parser(
         "sweep", parents=[common], formatter_class=_Formatter,
         help="orbit heat loads over a range of beta angles (hot and cold orbits)",
         description="Compute the orbit-average and peak absorbed heat per node of MODEL on "
@@ -337,6 +360,21 @@ def _cmd_export(args) -> int:
                          threshold=threshold, self_terms=args.self_terms)
     for f in files:
         _say(args, f"wrote {f}")
+    return 0
+
+
+def _cmd_solve(args) -> int:
+    from .solve import format_temperatures, solve_file
+
+    solved = solve_file(args.results, case=args.case, model=args.model,
+                        reporter=_reporter(args))
+    if not args.quiet:
+        print(format_temperatures(solved), end="")
+    if args.output:
+        from .tempout import write_outputs
+
+        for f in write_outputs(solved, args.output, inputs=[args.results]):
+            _say(args, f"wrote {f}")
     return 0
 
 

@@ -37,8 +37,8 @@ import numpy as np
 
 from vfactor.constants import DEEP_SPACE_TEMPERATURE_K, STEFAN_BOLTZMANN
 
-__all__ = ["Network", "steady_state", "cyclic_transient", "temperature_sensitivity",
-           "TransientResult", "NetworkError"]
+__all__ = ["Network", "steady_state", "steady_with_heaters", "cyclic_transient",
+           "temperature_sensitivity", "TransientResult", "NetworkError"]
 
 
 class NetworkError(ValueError):
@@ -207,16 +207,122 @@ class TransientResult:
     temperature : (t, n) float [K]
     orbits : int — orbits integrated until the cycle repeated
     change : float — largest |T(end) - T(start)| of the last orbit [K]
+    duty : (h,) float — share of the last orbit each heater was on [1]
     """
 
     time: np.ndarray
     temperature: np.ndarray
     orbits: int
     change: float
+    duty: np.ndarray = None
+
+
+def _one_orbit(rhs_base, jac, T, free, samples, period, heaters, state, cap, rtol, atol):
+    """One orbit from ``T`` with the heaters in ``state``, stopping at every switch.
+
+    Returns (temperatures of the free nodes at ``samples`` (s, f), on-time of each heater
+    [s], end temperatures (f,), end heater state)."""
+    from scipy.integrate import solve_ivp
+
+    n_free = int(free.sum())
+    index = np.cumsum(free) - 1                    # node -> position among the free
+    rows = np.empty((samples.size, n_free))
+    on_time = np.zeros(len(heaters))
+    t0, y = 0.0, T[free].copy()
+    state = state.copy()
+    rows[0] = y
+    done = 1
+    while True:
+        extra = np.zeros(T.size)
+        for k, h in enumerate(heaters):
+            if state[k]:
+                extra[h.node] += h.power
+        events = []
+        for k, h in enumerate(heaters):
+            if not free[h.node]:
+                continue
+            level = h.off if state[k] else h.on
+            j = int(index[h.node])
+
+            def crossing(t, yy, j=j, level=level):
+                return yy[j] - level
+            crossing.terminal = True
+            crossing.direction = 1.0 if state[k] else -1.0
+            events.append((k, crossing))
+        wanted = samples[(samples > t0) & (samples <= period)]
+        sol = solve_ivp(lambda t, yy: rhs_base(t, yy, extra), (t0, period), y, method="BDF",
+                        t_eval=wanted, jac=jac, rtol=rtol, atol=atol,
+                        events=[e for _, e in events] or None)
+        if not sol.success:
+            raise NetworkError(f"transient: the integrator failed ({sol.message})")
+        got = np.asarray(sol.y, dtype=float).reshape(n_free, -1).T
+        rows[done:done + got.shape[0]] = got
+        done += got.shape[0]
+        switched = [(k, float(sol.t_events[i][0])) for i, (k, _) in enumerate(events)
+                    if sol.status == 1 and sol.t_events[i].size]
+        if switched:
+            k, t_switch = min(switched, key=lambda x: x[1])
+            on_time += np.where(state, t_switch - t0, 0.0)
+            y = np.asarray(sol.y_events[[i for i, (kk, _) in enumerate(events)
+                                         if kk == k][0]][0], dtype=float)
+            state[k] = not state[k]
+            t0 = t_switch
+            if t0 >= period:
+                break
+            continue
+        on_time += np.where(state, period - t0, 0.0)
+        y = got[-1] if got.shape[0] else np.asarray(sol.y, float).reshape(n_free, -1)[:, -1]
+        break
+    return rows, on_time, y, state
+
+
+def steady_with_heaters(net: Network, loads, heaters=(), tol=1e-9):
+    """Steady temperatures with thermostat heaters (:class:`vfactor.netmodel.Heater`):
+    a heater whose node would sit below the middle of its band gives the power that holds
+    it there, up to its ``power`` (the orbit average of an on/off thermostat that keeps
+    cycling; common practice for steady estimates).
+
+    Returns ((n,) temperatures [K], (h,) heater powers [W]).
+    """
+    Q = np.asarray(loads, float).reshape(-1).copy()
+    mode = ["off"] * len(heaters)          # off | held | full
+    power = np.zeros(len(heaters))
+    T = None
+    for _ in range(2 * len(heaters) + 3):
+        fixed = net.fixed.copy()
+        q = Q.copy()
+        for k, h in enumerate(heaters):
+            if mode[k] == "held":
+                fixed[h.node] = 0.5 * (h.on + h.off)
+            elif mode[k] == "full":
+                q[h.node] += h.power
+        held = Network(net.names, net.capacity, net.conductance, net.exchange,
+                       net.exchange_space, fixed, net.space_temperature)
+        T = steady_state(held, q, initial=T, tol=tol)
+        flow, _ = _balance(held, T, q)
+        changed = False
+        for k, h in enumerate(heaters):
+            mid = 0.5 * (h.on + h.off)
+            want = {"off": "held" if T[h.node] < mid else "off",
+                    "full": "held" if T[h.node] > mid else "full"}.get(mode[k])
+            if mode[k] == "held":
+                need = -flow[h.node]        # what the node must get to stay at mid
+                want = "off" if need <= 0 else ("full" if need > h.power else "held")
+                power[k] = min(max(need, 0.0), h.power)
+            elif mode[k] == "full":
+                power[k] = h.power
+            else:
+                power[k] = 0.0
+            if want != mode[k]:
+                mode[k], changed = want, True
+        if not changed:
+            return T, power
+    raise NetworkError("steady state: the heaters' switching did not settle")
 
 
 def cyclic_transient(net: Network, time, loads, period, initial=None, tol=0.01,
-                     max_orbits=50, rtol=1e-6, atol=1e-4) -> TransientResult:
+                     max_orbits=50, rtol=1e-6, atol=1e-4, heaters=(),
+                     dissipation=None) -> TransientResult:
     """Temperatures under periodic loads, repeated until the orbit repeats itself.
 
     Parameters
@@ -228,8 +334,13 @@ def cyclic_transient(net: Network, time, loads, period, initial=None, tol=0.01,
     initial : (n,) float, optional — temperatures at t = 0 of the first orbit (default: the
         steady state of the orbit-average loads, which shortens the approach)
     tol : float — the cycle is reached when no temperature changes more than this over one
-        orbit [K]
+        orbit [K] (with heaters switching out of step with the orbit: when no orbit-average
+        temperature changes more than this from one orbit to the next)
     rtol, atol : float — tolerances of the BDF integrator (scipy.integrate.solve_ivp)
+    heaters : sequence of :class:`vfactor.netmodel.Heater` — each switches on when its node
+        falls below ``on`` and off when it rises above ``off`` (the switching times are
+        found as events of the integration, so the integrator never steps over them)
+    dissipation : callable t -> (n,) [W], optional — internal power added to the loads
 
     Returns
     -------
@@ -265,10 +376,13 @@ def cyclic_transient(net: Network, time, loads, period, initial=None, tol=0.01,
     T[~free] = net.fixed[~free]
     cap = np.where(free, net.capacity, 1.0)
 
-    def rhs(t, y):
+    def rhs_base(t, y, extra):
         full = T.copy()
         full[free] = y
-        flow, _ = _balance(net, full, load_at(t))
+        q = load_at(t) + extra
+        if dissipation is not None:
+            q = q + dissipation(t)
+        flow, _ = _balance(net, full, q)
         return flow[free] / cap[free]
 
     def jac(t, y):
@@ -279,17 +393,23 @@ def cyclic_transient(net: Network, time, loads, period, initial=None, tol=0.01,
         return (sub.multiply(1.0 / cap[free][:, None])).tocsc()
 
     samples = np.concatenate([t_in, [period]])
+    state = np.array([T[h.node] < 0.5 * (h.on + h.off) for h in heaters], dtype=bool)
+    mean = None
     for orbit in range(1, max_orbits + 1):
-        sol = solve_ivp(rhs, (0.0, period), T[free], method="BDF", t_eval=samples,
-                        jac=jac, rtol=rtol, atol=atol)
-        if not sol.success:
-            raise NetworkError(f"transient: the integrator failed ({sol.message})")
-        end = sol.y[:, -1]
-        change = float(np.max(np.abs(end - T[free]), initial=0.0))
-        T[free] = end
-        if change < tol:
+        start, start_state = T[free].copy(), state.copy()
+        rows, on_time, T_free, state = _one_orbit(rhs_base, jac, T, free, samples, period,
+                                                  heaters, state, cap, rtol, atol)
+        change = float(np.max(np.abs(T_free - start), initial=0.0))
+        T[free] = T_free
+        # a thermostat that is not in step with the orbit never repeats it exactly: then
+        # the orbit averages settling count as the cycle reached
+        previous, mean = mean, (0.5 * (rows[1:] + rows[:-1]) * np.diff(samples)[:, None]).sum(
+            axis=0) / period
+        settled = previous is not None and bool(np.any(on_time > 0)) and float(
+            np.max(np.abs(mean - previous), initial=0.0)) < tol
+        if (change < tol and np.array_equal(state, start_state)) or settled:
             temps = np.tile(T, (samples.size, 1))
-            temps[:, free] = sol.y.T
-            return TransientResult(samples, temps, orbit, change)
+            temps[:, free] = rows
+            return TransientResult(samples, temps, orbit, change, on_time / period)
     raise NetworkError(f"transient: no cyclic steady state within {max_orbits} orbits "
                        f"(last change {change:.3g} K)")
