@@ -52,7 +52,15 @@ def compare_cases(cases: list, by_part: bool = False) -> dict:
     head, per_case = [], []
     for r in cases:
         total = _totals(r)
-        entry = {"name": r.case or "(model)", "description": "", "has_loads": total is not None}
+        entry = {"name": r.case or "(model)", "description": "", "has_loads": total is not None,
+                 "temperatures": None}
+        if r.temperatures is not None:
+            t = r.temperatures
+            entry["temperatures"] = {
+                "steady_K": [float(x) for x in t["steady"]],
+                "steady_stderr_K": [float(x) for x in t["steady_stderr"]],
+                "orbit_min_K": [float(x) for x in np.min(t["transient"], axis=0)],
+                "orbit_max_K": [float(x) for x in np.max(t["transient"], axis=0)]}
         if r.case:
             import h5py
 
@@ -138,6 +146,19 @@ def format_comparison(cmp: dict) -> str:
         rows.append(cells)
     lines += _table(header, rows, ["<"] + [">"] * len(loaded) + ["<", "<"])
     lines.append("  hottest / coldest: the case of largest / smallest orbit average for that row")
+    solved = [c for c in loaded if c.get("temperatures") is not None]
+    if solved and not cmp["by_part"]:
+        lines += ["", "Quick-look temperatures per node and case [K] (vfactor solve): steady "
+                      "+- one sigma (orbit min to max)"]
+        rows = []
+        for i, r in enumerate(cmp["rows"]):
+            cells = [r["name"]]
+            for c in solved:
+                t = c["temperatures"]
+                cells.append(f"{t['steady_K'][i]:.1f} +- {t['steady_stderr_K'][i]:.2f} "
+                             f"({t['orbit_min_K'][i]:.1f} to {t['orbit_max_K'][i]:.1f})")
+            rows.append(cells)
+        lines += _table(["node"] + [c["name"] for c in solved], rows)
     return "\n".join(lines) + "\n"
 
 

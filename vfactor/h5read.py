@@ -47,6 +47,8 @@ class Results:
     positions : dict or None — ``angle_deg`` ((q, h) [deg]), ``step_position`` ((t,) int)
         and ``view_factors`` / ``exchange`` (tuples of q records) when the run computed
         couplings at hinge positions
+    temperatures : dict or None — of ``vfactor solve`` (``/temperatures``): ``steady``,
+        ``steady_stderr``, ``time``, ``transient`` and the group's attributes
     case : str — the design case these results are of ("" for a file without cases);
         ``geometry`` then carries that case's coating values
     case_names : tuple of str — every case in the file (empty without cases)
@@ -66,6 +68,7 @@ class Results:
     orbit_attrs: dict = field(default_factory=dict)
     hinges: dict | None = None
     positions: dict | None = None
+    temperatures: dict | None = None
     case: str = ""
     case_names: tuple = ()
 
@@ -197,7 +200,7 @@ class _CaseView:
     come from ``/cases/NAME``, the shared ones (model, nodes, facets, view factors) from
     the root, so the reader and :func:`vfactor.h5schema.validate` read either alike."""
 
-    _OWN = ("exchange", "orbit", "heating", "hinges", "positions")
+    _OWN = ("exchange", "orbit", "heating", "hinges", "positions", "temperatures")
 
     def __init__(self, h, case: str):
         self._h = h
@@ -321,6 +324,12 @@ def read_results(path, *, dense_couplings=False, case=None) -> Results:
                                                    for p in range(q)),
                              "exchange": tuple(_read_exchange(g[f"{p}/exchange"])
                                                for p in range(q))}
+            temperatures = None
+            if "temperatures" in h:
+                g = h["temperatures"]
+                temperatures = {key: g[key][()] for key in ("steady", "steady_stderr", "time",
+                                                             "transient")}
+                temperatures.update({k: attr_value(v) for k, v in g.attrs.items()})
             node_avg = facet_avg = None
             if "heating" in h and "average" in h["heating"]:
                 node_avg = {k: v[()] for k, v in h["heating/average"].items()}
@@ -346,4 +355,4 @@ def read_results(path, *, dense_couplings=False, case=None) -> Results:
                    geometry=geometry, view_factors=vf, exchange=ex, trajectory=tr,
                    heating=heat, node_average=node_avg, facet_average=facet_avg,
                    orbit_attrs=orbit_attrs, hinges=hinges, positions=positions,
-                   case=case or "", case_names=names)
+                   temperatures=temperatures, case=case or "", case_names=names)

@@ -223,6 +223,17 @@ def summary_text(results: Results, top: int = 15, all_nodes: bool = False,
                          f"{_g(w['stderr_W'])} W ({w['node']}, {_SOURCE_LABEL[w['source']]}, "
                          f"step {w['step']})")
 
+    temps = results.temperatures
+    if temps is not None and not by_part:
+        lines += [""] + textwrap.wrap(
+            "Quick-look temperatures [K] (vfactor solve: steady under the orbit-average "
+            "loads +- one sigma; orbit min to max of the cyclic transient; a check of the "
+            "inputs, not a verified thermal model)", width=92, subsequent_indent="  ")
+        T, err, tr = temps["steady"], temps["steady_stderr"], temps["transient"]
+        lines += _table(["node", "steady", "orbit"],
+                        [(name, f"{T[i]:.2f} +- {err[i]:.2f}",
+                          f"{tr[:, i].min():.2f} to {tr[:, i].max():.2f}")
+                         for i, name in enumerate(results.geometry.nodes.names)])
     if extra:
         lines += [""] + extra.rstrip("\n").split("\n")
     if s["warnings"]:
