@@ -272,9 +272,10 @@ def build_parser() -> argparse.ArgumentParser:
                "  vfactor sweep sat.toml --beta=-60:60:10 -o sweep   # '=' before a "
                "leading minus sign")
     p.add_argument("model", metavar="MODEL", help="model file (TOML) with a circular [orbit]")
-    p.add_argument("--beta", metavar="LIST", required=True, type=_beta_list,
+    p.add_argument("--beta", metavar="LIST", type=_beta_list,
                    help="beta angles [deg]: comma-separated values and START:STOP:STEP "
-                        "ranges (STOP included), within -90 .. 90")
+                        "ranges (STOP included), within -90 .. 90 (default: [sweep] "
+                        "beta_deg of the model)")
     p.add_argument("-o", "--output", metavar="OUT_DIR", required=True,
                    help="folder for sweep.csv and sweep.png (created if missing)")
     p.add_argument("--rays", metavar="N", type=_positive_int,
@@ -381,7 +382,10 @@ def _cmd_solve(args) -> int:
 def _cmd_sweep(args) -> int:
     from .sweep import format_sweep_table, run_sweep
 
-    done = run_sweep(args.model, args.beta, args.output, rays=args.rays, seed=args.seed,
+    from .sweep import model_beta_list
+
+    beta = args.beta if args.beta is not None else model_beta_list(args.model)
+    done = run_sweep(args.model, beta, args.output, rays=args.rays, seed=args.seed,
                      reporter=_reporter(args))
     sweep = done.sweep
     _say(args, format_sweep_table(sweep))

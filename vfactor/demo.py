@@ -73,8 +73,8 @@ def copy_demo(folder) -> tuple:
 
 
 def run_demo(folder, *, rays=None, workers=1, quiet=False, verbose=False) -> int:
-    """Copy the demo model into ``folder`` and run check, run, summary, plot, export and
-    solve (quick-look temperatures).
+    """Copy the demo model into ``folder`` and run check, run, summary, plot, export, solve
+    (quick-look temperatures) and a short beta sweep.
 
     Returns the exit code (0, or 2 when the check finds errors).
     """
@@ -85,6 +85,7 @@ def run_demo(folder, *, rays=None, workers=1, quiet=False, verbose=False) -> int
     from .pipeline import run
     from .progress import make_reporter
     from .solve import format_temperatures, solve_file
+    from .sweep import format_sweep_table, model_beta_list, run_sweep
     from .tempout import write_outputs
 
     def say(text=""):
@@ -97,35 +98,42 @@ def run_demo(folder, *, rays=None, workers=1, quiet=False, verbose=False) -> int
     say(f"== vfactor demo: the invented satellite 'Orrelwyn-2' in {folder}/")
     for n in notes:
         say(f"   note: {n}")
-    say(f"\n== 1/6 check {model_file}")
+    say(f"\n== 1/7 check {model_file}")
     report = check_model(model_file)
     say(format_check_report(report).rstrip("\n"))
     if not report.ok:
         print(format_check_report(report).rstrip("\n") if quiet else "", end="", file=sys.stderr)
         return 2
     out = folder / "demo.h5"
-    say(f"\n== 2/6 run {model_file} -o {out}")
+    say(f"\n== 2/7 run {model_file} -o {out}")
     reporter = make_reporter(quiet=quiet, verbose=verbose)
     result = run(model_file, out, rays=rays, workers=workers, reporter=reporter)
     say(result.describe())
-    say(f"\n== 3/6 summary {out}")
+    say(f"\n== 3/7 summary {out}")
     say(summary_of_file(out).rstrip("\n"))
-    say(f"\n== 4/6 plot {out} -o {folder / 'figures'}")
+    say(f"\n== 4/7 plot {out} -o {folder / 'figures'}")
     figures = plot_file(out, folder / "figures")
     for f in figures:
         say(f"wrote {f}")
-    say(f"\n== 5/6 export {out} (csv, vtk, gltf)")
+    say(f"\n== 5/7 export {out} (csv, vtk, gltf)")
     exported = export_cases(out, "csv", folder / "tables")
     exported += export_cases(out, "vtk", folder / "demo.vtu")
     exported += export_cases(out, "gltf", folder / "demo.glb")
     for where, count in _by_folder(exported):
         say(f"wrote {count} file(s) in {where}/")
-    say(f"\n== 6/6 solve {out} -o {folder / 'temperatures'}  (quick-look temperatures)")
+    say(f"\n== 6/7 solve {out} -o {folder / 'temperatures'}  (quick-look temperatures)")
     solved = solve_file(out, reporter=reporter)
     say(format_temperatures(solved).rstrip("\n"))
     temperature_files = write_outputs(solved, folder / "temperatures", inputs=[out])
     for where, count in _by_folder(temperature_files):
         say(f"wrote {count} file(s) in {where}/")
+    betas = model_beta_list(model_file)
+    say(f"\n== 7/7 sweep {model_file} -o {folder / 'sweep'}  (beta "
+        f"{', '.join(f'{b:g}' for b in betas)} deg)")
+    swept = run_sweep(model_file, betas, folder / "sweep", rays=rays, reporter=reporter)
+    say(format_sweep_table(swept.sweep).rstrip("\n"))
+    for f in swept.files:
+        say(f"wrote {f}")
     say(f"\n== done in {time.perf_counter() - start:.0f} s. Outputs in {folder}/:")
     say(f"   model       {model_file}  (edit it and rerun: vfactor run {model_file} -o {out})")
     say(f"   results     {out}  (HDF5; `vfactor summary {out}`)")
@@ -140,6 +148,7 @@ def run_demo(folder, *, rays=None, workers=1, quiet=False, verbose=False) -> int
         f"orbit; glTF viewers: .glb)")
     say(f"   temperatures {folder / 'temperatures'}/  (per case: temperatures.csv, "
         f"temperature_nodes.csv, temperatures.png; quick-look, not a verified model)")
+    say(f"   sweep       {folder / 'sweep'}/  (sweep.csv, sweep.png: loads against beta)")
     return 0
 
 

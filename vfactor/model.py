@@ -70,7 +70,7 @@ __all__ = [
 ]
 
 TOP_LEVEL_SECTIONS = ("model", "coatings", "parts", "hinges", "radiation", "orbit",
-                      "attitude", "environment", "cases", "network")
+                      "attitude", "environment", "cases", "network", "sweep")
 """Top-level tables a model file may hold; anything else is an error."""
 
 _MODEL_KEYS = ("name", "length_unit", "description", "allow_outside_files")

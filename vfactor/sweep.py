@@ -445,6 +445,37 @@ def _model_inputs(model) -> list:
                      if p.shape == "mesh" and p.parameters.get("file")]
 
 
+def model_beta_list(model_path) -> tuple:
+    """The beta angles of the model file's ``[sweep] beta_deg`` (a list of numbers or a
+    LIST string as for ``--beta``) [deg]; ArgumentError when it has none."""
+    import tomllib
+
+    try:
+        doc = tomllib.loads(Path(model_path).read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
+        raise ModelError(f"cannot read the model file: {exc}", file=str(model_path)) from None
+    table = doc.get("sweep")
+    if table is None or "beta_deg" not in table:
+        raise ArgumentError(f"{model_path}: give --beta LIST, or [sweep] beta_deg in the "
+                            "model")
+    value = table["beta_deg"]
+    unknown = sorted(set(table) - {"beta_deg"})
+    if unknown:
+        raise ModelError(f"unknown key {unknown[0]!r}; known keys: beta_deg",
+                         file=str(model_path), where="[sweep]")
+    if isinstance(value, list) and all(isinstance(v, (int, float)) and not isinstance(v, bool)
+                                       for v in value):
+        value = ",".join(repr(float(v)) for v in value)
+    if not isinstance(value, str) or not value:
+        raise ModelError(f"must be a list of numbers or a LIST string such as \"0:60:15\", "
+                         f"got {value!r}", file=str(model_path), where="[sweep] beta_deg")
+    try:
+        return parse_beta_list(value)
+    except ArgumentError as exc:
+        raise ModelError(str(exc).removeprefix("--beta: "), file=str(model_path),
+                         where="[sweep] beta_deg") from None
+
+
 def run_sweep(model_path, beta_deg, output_dir, *, rays=None, seed=None,
               reporter=None) -> SweepRun:
     """Load a model, sweep it over ``beta_deg`` and write ``sweep.csv`` and ``sweep.png``.
