@@ -359,3 +359,19 @@ def test_cli_unreachable_beta_and_help(capsys, tmp_path):
     assert "reachable range" in err and not (tmp_path / "o").exists()
     code, out, _ = _run(capsys, "sweep", "--help")
     assert code == 0 and out.startswith("usage: vfactor sweep") and "examples:" in out
+
+
+def test_beta_values_from_the_model_file(tmp_path, capsys):
+    # [sweep] beta_deg: a list of numbers or a LIST string; a bad value is one line (exit 2)
+    from vfactor.cli import main
+    from vfactor.sweep import model_beta_list
+
+    base = (tmp_path / "m.toml")
+    base.write_text('[sweep]\nbeta_deg = [30.0, 0.0, 60]\n')
+    assert model_beta_list(base) == (0.0, 30.0, 60.0)
+    base.write_text('[sweep]\nbeta_deg = "0:20:10"\n')
+    assert model_beta_list(base) == (0.0, 10.0, 20.0)
+    base.write_text('[sweep]\nbeta_deg = [100.0]\n')
+    assert main(["sweep", str(base), "-o", str(tmp_path / "out")]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "[sweep] beta_deg" in err[0]

@@ -271,12 +271,25 @@ def _check_settings(model: Model, report: CheckReport) -> None:
 
 
 def _check_network(model: Model, geometry: Geometry, report: CheckReport) -> None:
-    """The ``[network]`` section (``vfactor solve``) against the built nodes."""
+    """The ``[sweep]`` section (``vfactor sweep``) and the ``[network]`` section
+    (``vfactor solve``, against the built nodes)."""
     import tomllib
 
     from vfactor.netmodel import network_from_table
 
-    table = tomllib.loads(model.source_text).get("network")
+    doc = tomllib.loads(model.source_text)
+    if "sweep" in doc:
+        from vfactor.errors import VfactorError
+        from vfactor.sweep import model_beta_list
+
+        try:
+            model_beta_list(model.path)
+        except ModelError as err:
+            report.problems.append(Problem("error", report.path, err.where or "[sweep]",
+                                           err.message))
+        except VfactorError as err:
+            report.problems.append(Problem("error", report.path, "[sweep]", str(err)))
+    table = doc.get("network")
     if table is None:
         return
     try:
