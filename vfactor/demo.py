@@ -73,8 +73,8 @@ def copy_demo(folder) -> tuple:
 
 
 def run_demo(folder, *, rays=None, workers=1, quiet=False, verbose=False) -> int:
-    """Copy the demo model into ``folder`` and run check, run, summary, plot, export, solve
-    (quick-look temperatures) and a short beta sweep.
+    """Copy the demo model into ``folder`` and run check, run, summary, plot, export, a
+    short beta sweep and solve (quick-look temperatures).
 
     Returns the exit code (0, or 2 when the check finds errors).
     """
@@ -121,19 +121,19 @@ def run_demo(folder, *, rays=None, workers=1, quiet=False, verbose=False) -> int
     exported += export_cases(out, "gltf", folder / "demo.glb")
     for where, count in _by_folder(exported):
         say(f"wrote {count} file(s) in {where}/")
-    say(f"\n== 6/7 solve {out} -o {folder / 'temperatures'}  (quick-look temperatures)")
-    solved = solve_file(out, reporter=reporter)
-    say(format_temperatures(solved).rstrip("\n"))
-    temperature_files = write_outputs(solved, folder / "temperatures", inputs=[out])
-    for where, count in _by_folder(temperature_files):
-        say(f"wrote {count} file(s) in {where}/")
     betas = model_beta_list(model_file)
-    say(f"\n== 7/7 sweep {model_file} -o {folder / 'sweep'}  (beta "
+    say(f"\n== 6/7 sweep {model_file} -o {folder / 'sweep'}  (beta "
         f"{', '.join(f'{b:g}' for b in betas)} deg)")
     swept = run_sweep(model_file, betas, folder / "sweep", rays=rays, reporter=reporter)
     say(format_sweep_table(swept.sweep).rstrip("\n"))
     for f in swept.files:
         say(f"wrote {f}")
+    say(f"\n== 7/7 solve {out} -o {folder / 'temperatures'}  (quick-look temperatures)")
+    solved = solve_file(out, reporter=reporter)
+    say(format_temperatures(solved).rstrip("\n"))
+    temperature_files = write_outputs(solved, folder / "temperatures", inputs=[out])
+    for where, count in _by_folder(temperature_files):
+        say(f"wrote {count} file(s) in {where}/")
     say(f"\n== done in {time.perf_counter() - start:.0f} s. Outputs in {folder}/:")
     say(f"   model       {model_file}  (edit it and rerun: vfactor run {model_file} -o {out})")
     say(f"   results     {out}  (HDF5; `vfactor summary {out}`)")

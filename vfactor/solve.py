@@ -277,12 +277,15 @@ def solve_file(path, *, case=None, model=None, reporter=None) -> list:
             text = Path(model).read_text(encoding="utf-8")
         except (OSError, UnicodeDecodeError) as exc:
             raise ArgumentError(f"{model}: cannot read the model file: {exc}") from None
+    from .progress import NullReporter
+
+    reporter = reporter or NullReporter()
     out = []
-    for results in every:
-        if reporter is not None:
-            reporter.message(f"solving {results.case or 'the model'}")
-        temps = solve_results(results, model_text=text)
-        out.append((results, temps))
+    with reporter.stage("temperatures (steady, then orbits to the cyclic state)",
+                        total=len(every), unit="cases") as bar:
+        for results in every:
+            out.append((results, solve_results(results, model_text=text)))
+            bar.advance(1)
     # only after every case solved, in one write: nothing half-written
     write_temperatures(path, [(results.case, temps) for results, temps in out])
     return out
