@@ -399,11 +399,10 @@ def compute_sweep(model, geometry, beta_deg, *, scene=None, rays=None, seed=None
 # writing
 # --------------------------------------------------------------------------------------
 def _fmt(x) -> str:
-    if isinstance(x, str):
-        return x
-    if isinstance(x, (int, np.integer)):
-        return str(int(x))
-    return repr(float(x))   # shortest text that reads back to the same float64
+    """Text that reads back to the same value (the CSV tables' rule)."""
+    from .tables import _fmt as exact
+
+    return exact(x)
 
 
 def csv_header() -> list:
