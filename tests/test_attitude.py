@@ -9,7 +9,7 @@ import pytest
 
 from vfactor.attitude import DEFAULT_ATTITUDE_NOTE, attitude_from_table, axis_vector
 from vfactor.errors import ModelError
-from vfactor.orbit import orbit_from_table
+from vfactor.orbittable import orbit_from_table
 
 EPOCH = "2027-06-01T00:00:00Z"
 ANGLE_TOL = 1e-9  # rad, the pointing requirement

@@ -131,7 +131,7 @@ TLE2 = "2 99999  51.6000 120.0000 0000100   0.0000   0.0000 15.50000000    15"
 
 
 def test_tle_checksums_are_checked(capsys, tmp_path):
-    from vfactor.orbit import tle_checksum
+    from vfactor.orbittable import tle_checksum
 
     # the rule by hand for line 1: digits summed, '-' counts 1 (two minus signs)
     digits = sum(int(c) for c in TLE1[:68] if c.isdigit())

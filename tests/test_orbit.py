@@ -13,10 +13,10 @@ from vfactor.errors import ModelError
 from vfactor.orbit import (
     j2_secular_rates,
     local_time_of_node,
-    orbit_from_table,
     solve_kepler,
     sun_synchronous_inclination,
 )
+from vfactor.orbittable import orbit_from_table
 
 EPOCH = "2027-03-21T00:00:00Z"
 
@@ -369,7 +369,7 @@ def test_epoch_outside_the_ephemeris_names_the_epoch_not_an_empty_span():
 
 
 def test_tle_checksum_and_length_are_checked():
-    from vfactor.orbit import tle_checksum, tle_line_problem
+    from vfactor.orbittable import tle_checksum, tle_line_problem
 
     assert tle_line_problem(TLE_LINE1) == "" and tle_line_problem(TLE_LINE2) == ""
     # the modulo-10 rule (CelesTrak "NORAD Two-Line Element Set Format"): digits summed,

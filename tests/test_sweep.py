@@ -186,7 +186,7 @@ def test_escaping_directions_traced_once_and_same_bits_as_a_single_run(monkeypat
     from vfactor.attitude import attitude_from_table
     from vfactor.environment import environment_from_table
     from vfactor.heating import compute_heating, heating_extremes
-    from vfactor.orbit import orbit_from_table
+    from vfactor.orbittable import orbit_from_table
     from vfactor.radiation import compute_view_factors
     from vfactor.tracing.scene import Scene
     from vfactor.trajectory import compute_trajectory
@@ -241,7 +241,7 @@ def test_turning_parts_rigid_rays_once_and_positions_once(monkeypatch):
     from vfactor.environment import environment_from_table
     from vfactor.heating import compute_heating, heating_extremes
     from vfactor.kinematics import motion_of
-    from vfactor.orbit import orbit_from_table
+    from vfactor.orbittable import orbit_from_table
     from vfactor.radiation import compute_view_factors
     from vfactor.tracing.scene import Scene
     from vfactor.trajectory import compute_trajectory

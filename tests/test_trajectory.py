@@ -11,7 +11,7 @@ import pytest
 from vfactor import ephemeris
 from vfactor.attitude import DEFAULT_ATTITUDE_NOTE, attitude_from_table
 from vfactor.constants import EARTH_EQUATORIAL_RADIUS_M, SUN_RADIUS_M
-from vfactor.orbit import orbit_from_table
+from vfactor.orbittable import orbit_from_table
 from vfactor.trajectory import compute_trajectory, orbit_facts, trajectory_from_model
 
 EPOCH = "2027-03-21T00:00:00Z"

@@ -240,7 +240,7 @@ def _check_settings(model: Model, report: CheckReport) -> None:
     """
     from vfactor.attitude import attitude_from_table
     from vfactor.environment import environment_from_table
-    from vfactor.orbit import orbit_from_table
+    from vfactor.orbittable import orbit_from_table
 
     file = report.path
     readers = (("[orbit]", model.orbit_table, orbit_from_table),
@@ -305,7 +305,7 @@ def _check_cases(model: Model, report: CheckReport) -> None:
     from vfactor.attitude import attitude_from_table
     from vfactor.cases import case_model
     from vfactor.environment import environment_from_table
-    from vfactor.orbit import orbit_from_table
+    from vfactor.orbittable import orbit_from_table
 
     file = report.path
     for case in model.cases:

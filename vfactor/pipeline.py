@@ -219,7 +219,7 @@ def _case_models(model, cases) -> dict:
     from .attitude import attitude_from_table
     from .cases import case_model
     from .environment import environment_from_table
-    from .orbit import orbit_from_table
+    from .orbittable import orbit_from_table
 
     out = {}
     for case in cases:

@@ -182,7 +182,7 @@ def _planned_steps(model: Model) -> int:
     read: its own error says why)."""
     if model.orbit_table is None:
         return 0
-    from vfactor.orbit import orbit_from_table
+    from vfactor.orbittable import orbit_from_table
 
     try:
         return int(orbit_from_table(model.orbit_table, file=model.path).n_steps)

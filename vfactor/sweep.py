@@ -219,7 +219,7 @@ class SweepRun:
 # computing
 # --------------------------------------------------------------------------------------
 def _orbit_kind(table: dict) -> str:
-    """The orbit type as :func:`vfactor.orbit.orbit_from_table` infers it."""
+    """The orbit type as :func:`vfactor.orbittable.orbit_from_table` infers it."""
     if "type" in table:
         return str(table["type"])
     if "tle" in table:
@@ -230,7 +230,7 @@ def _orbit_kind(table: dict) -> str:
 def _swept_orbits(model, beta_deg):
     """The :class:`vfactor.orbit.Orbit` of each swept value (ArgumentError for a value that
     this orbit cannot have, before any ray is traced)."""
-    from .orbit import orbit_from_table
+    from .orbittable import orbit_from_table
 
     table = model.orbit_table
     if table is None:

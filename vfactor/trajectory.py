@@ -13,7 +13,7 @@ import numpy as np
 
 from vfactor import eclipse, ephemeris
 from vfactor.attitude import attitude_from_table
-from vfactor.orbit import orbit_from_table
+from vfactor.orbittable import orbit_from_table
 from vfactor.planet import EARTH, Planet, planet_by_name
 
 __all__ = ["Trajectory", "compute_trajectory", "trajectory_from_model", "orbit_facts",
