@@ -6,7 +6,11 @@
    the largest difference is printed with the reported one-sigma error for scale.
 2. How the time grows with the number of facets (the demo's max_edge divided by 1, 1.5, 2)
    and with the number of steps (18, 36, 72, 144), with the cache.
-3. The demo with its Sun-tracking wings (``[[hinges]]``): one orbit with the turning parts
+3. The statistical error of the demo's per-node planet loads (albedo, planet IR) at equal
+   rays, with the control variates of :mod:`vfactor.heatstep` and with the plain Monte
+   Carlo estimates from the very same rays (``heatstep.plain_estimates``): the largest and
+   the mean reported one-sigma error over nodes and steps, and their ratios.
+4. The demo with its Sun-tracking wings (``[[hinges]]``): one orbit with the turning parts
    (rigid rays cached once, tested against the moving parts per step; the diffuse
    redistribution by the couplings at the demo's 4 hinge positions, computed before the
    timing as the radiation stage does) against the rigid demo (wings fixed as built) and
@@ -37,7 +41,8 @@ sys.path.insert(0, str(ROOT))
 
 from vfactor.environment import environment_from_table  # noqa: E402
 from vfactor.geometry import build_geometry  # noqa: E402
-from vfactor.heating import compute_heating  # noqa: E402
+from vfactor import heatstep  # noqa: E402
+from vfactor.heating import HeatingSteps, compute_heating  # noqa: E402
 from vfactor.kinematics import motion_of  # noqa: E402
 from vfactor.model import load_model_text  # noqa: E402
 from vfactor.positions import couplings_at_positions  # noqa: E402
@@ -111,6 +116,16 @@ def main(argv=None):
     if worst != 0.0:
         print("  WARNING: cache and re-trace differ")
 
+    print("planet loads at equal rays: node one-sigma errors with the control variates / "
+          "plain estimates (same rays)")
+    plain = plain_estimates(geometry, scene, trajectory, environment, **kw)
+    for src in ("albedo", "planet_ir"):
+        cv_err = getattr(with_cache, f"node_{src}_stderr")
+        plain_err = getattr(plain, f"node_{src}_stderr")
+        print(f"  {src:9s}: largest {cv_err.max():.4f} / {plain_err.max():.4f} W "
+              f"(ratio {plain_err.max() / cv_err.max():.2f}); mean {cv_err.mean():.5f} / "
+              f"{plain_err.mean():.5f} W (ratio {plain_err.mean() / cv_err.mean():.2f})")
+
     print("time with the cache against facets (72 steps):")
     divisors = (1.0, 2.0) if args.quick else (1.0, 1.5, 2.0)
     for div in divisors:
@@ -151,6 +166,16 @@ def main(argv=None):
     print(f"  without hinge positions (couplings from each step's rays): {t_own:8.2f} s "
           f"({t_own / trajectory.n_steps * 1e3:.1f} ms/step)")
     print(f"cache speedup: {t_trace / t_cache:.2f}")
+
+
+def plain_estimates(geometry, scene, trajectory, environment, **kw):
+    """The heating of :func:`timed` (seed 1) with the plain Monte Carlo estimates of planet
+    IR and albedo on every side: the same rays, no control variates."""
+    task = HeatingSteps.of(geometry, scene, trajectory, environment, seed=1, **kw)
+    model, _ = task.prepare(geometry, scene)
+    plain = heatstep.plain_estimates(model)
+    bands = heatstep.bands_of(plain, geometry, None)
+    return task.assemble(task.run((plain, bands), np.arange(task.n_steps)))
 
 
 def _first(trajectory, stop, start=0):
