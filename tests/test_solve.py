@@ -260,9 +260,10 @@ def test_temperature_error_matches_the_scatter_over_seeds(tmp_path):
     steady, sigma = np.array(steady), np.array(sigma)
     scatter = steady.std(axis=0, ddof=1)
     reported = sigma.mean(axis=0)
-    # a node that sees only space in full sun is exact: both are rounding noise there
+    # a node nothing hides from the Sun and the planet is exact (direct solar by its lit
+    # share, planet loads by their closed forms): both are rounding noise there
     random = reported > 1e-6
-    assert random.sum() >= 5 and np.all(scatter[~random] < 1e-9)
+    assert random.sum() >= 2 and np.all(scatter[~random] < 1e-6), (scatter, reported)
     ratio = scatter[random] / reported[random]
     # 8 seeds: the sample standard deviation is within [0.45, 1.6] of the true one with
     # about 95 % probability (chi-square, 7 degrees of freedom); the median over nodes
