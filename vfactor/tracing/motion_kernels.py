@@ -21,7 +21,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
-from .config import JIT_PARALLEL
+from .config import JIT, JIT_PARALLEL
 from .heat_kernels import PURPOSE_PLANET, TARGET_ESCAPE, TARGET_INERT, _side_ray, side_stream
 from .traverse import closest_hit
 
@@ -113,6 +113,19 @@ def near_spheres(vertices, triangles, normals, side_facet, side_sign, seed, repl
                 out[s, j] = near
 
 
+@njit(**JIT, inline="always")
+def _put_ray(vertices, triangles, normals, f, sign, seed, stream, r, k, row, out_origin,
+             out_direction):
+    """Draw ray ``(r, k)`` of side ``(f, sign)`` and write it to row ``row``."""
+    x, y, z, dx, dy, dz = _side_ray(vertices, triangles, normals, f, sign, seed, stream, r, k)
+    out_origin[row, 0] = x
+    out_origin[row, 1] = y
+    out_origin[row, 2] = z
+    out_direction[row, 0] = dx
+    out_direction[row, 1] = dy
+    out_direction[row, 2] = dz
+
+
 @njit(**JIT_PARALLEL)
 def store_rays(vertices, triangles, normals, side_facet, side_sign, seed, replicates,
                per_replicate, select, row_start, out_origin, out_direction):
@@ -134,14 +147,8 @@ def store_rays(vertices, triangles, normals, side_facet, side_sign, seed, replic
             for k in range(per_replicate):
                 if not select[s, r * per_replicate + k]:
                     continue
-                x, y, z, dx, dy, dz = _side_ray(vertices, triangles, normals, f, sign, seed,
-                                                stream, r, k)
-                out_origin[row, 0] = x
-                out_origin[row, 1] = y
-                out_origin[row, 2] = z
-                out_direction[row, 0] = dx
-                out_direction[row, 1] = dy
-                out_direction[row, 2] = dz
+                _put_ray(vertices, triangles, normals, f, sign, seed, stream, r, k, row,
+                         out_origin, out_direction)
                 row += 1
 
 
@@ -205,12 +212,6 @@ def compose_escaping(vertices, triangles, normals, side_facet, side_sign, seed, 
                         row += 1
                     src += 1
                 elif target[s, j] == TARGET_ESCAPE:
-                    x, y, z, dx, dy, dz = _side_ray(vertices, triangles, normals, f, sign,
-                                                    seed, stream, r, k)
-                    out_origin[row, 0] = x
-                    out_origin[row, 1] = y
-                    out_origin[row, 2] = z
-                    out_direction[row, 0] = dx
-                    out_direction[row, 1] = dy
-                    out_direction[row, 2] = dz
+                    _put_ray(vertices, triangles, normals, f, sign, seed, stream, r, k, row,
+                             out_origin, out_direction)
                     row += 1
