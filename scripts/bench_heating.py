@@ -41,7 +41,7 @@ sys.path.insert(0, str(ROOT))
 
 from vfactor.environment import environment_from_table  # noqa: E402
 from vfactor.geometry import build_geometry  # noqa: E402
-from vfactor import heatstep  # noqa: E402
+from vfactor import heatreflect, heatstep  # noqa: E402
 from vfactor.heating import HeatingSteps, compute_heating  # noqa: E402
 from vfactor.kinematics import motion_of  # noqa: E402
 from vfactor.model import load_model_text  # noqa: E402
@@ -174,7 +174,7 @@ def plain_estimates(geometry, scene, trajectory, environment, **kw):
     task = HeatingSteps.of(geometry, scene, trajectory, environment, seed=1, **kw)
     model, _ = task.prepare(geometry, scene)
     plain = heatstep.plain_estimates(model)
-    bands = heatstep.bands_of(plain, geometry, None)
+    bands = heatreflect.bands_of(plain, geometry, None)
     return task.assemble(task.run((plain, bands), np.arange(task.n_steps)))
 
 

@@ -683,7 +683,7 @@ class _Bar:
 
 def _sphere_oracle(o, d, centre, radius, sun):
     """One ray against the planet in plain Python: the stable root t = c / (b + sqrt(b^2 -
-    c)) (Haines et al. 2019, Ray Tracing Gems ch. 7, as heat_kernels documents) and
+    c)) (Haines et al. 2019, Ray Tracing Gems ch. 7, as planet_kernels documents) and
     max(0, cos solar zenith) at the point met."""
     wx, wy, wz = centre[0] - o[0], centre[1] - o[1], centre[2] - o[2]
     b = d[0] * wx + d[1] * wy + d[2] * wz
@@ -705,14 +705,14 @@ def test_planet_step_matches_a_ray_by_ray_oracle():
     # planet_step skips the sides that cannot see the planet and, where nothing sunlit is
     # in sight, the cos(solar zenith) of every ray: neither may change a bit of the sums
     # (in ray order) or of the per-ray results, against every cached ray tested one by one.
-    from vfactor import heatstep
-    from vfactor.tracing import heat_kernels as hk
+    from vfactor import heatplanet, heatreflect, heatstep
+    from vfactor.tracing import planet_kernels
 
     geo = _cavity_geometry()
     scene = Scene.build(geo.vertices, geo.triangles)
     model = heatstep.prepare(geo, scene, 4, 64, 8, 3, 16)
     heatstep.trace_once(model, _Bar(), need_rays=True)
-    bands = heatstep.bands_of(model, geo, None)
+    bands = heatreflect.bands_of(model, geo, None)
     s, m = model.sides, model.m
     g = s.count * m
     lit = heatstep.Step(sun=heatstep.unit([0.3, 0.2, 1.0]), centre=np.array([0.0, 0.0, -FAR]),
@@ -721,7 +721,7 @@ def test_planet_step_matches_a_ray_by_ray_oracle():
     dark = heatstep.Step(sun=heatstep.unit([0.1, 0.0, -1.0]),
                          centre=np.array([0.0, 0.0, -FAR]), solar=S0, fraction=0.0,
                          cos_half=1.0, radius=EARTH_R, olr=0.0, albedo=0.3)
-    assert not heatstep._dark_cap(model, lit) and heatstep._dark_cap(model, dark)
+    assert not heatplanet.dark_cap(model, lit) and heatplanet.dark_cap(model, dark)
     culled = 0
     every = np.ones(s.count, dtype=np.bool_)
     wanted = ~model.control | bands.specular        # as one_step asks for them
@@ -731,11 +731,11 @@ def test_planet_step_matches_a_ray_by_ray_oracle():
         for sides in (every, wanted):
             seen, blocked = np.zeros((2, g)), np.zeros((2, g))
             rows = (np.zeros(bands.n_rows, np.bool_), np.zeros(bands.n_rows))
-            hk.planet_step((model.order, model.position, s.normal, model.reach, sides),
+            planet_kernels.planet_step((model.order, model.position, s.normal, model.reach, sides),
                            (model.segment_start, model.esc_origin, model.esc_dir),
                            (model.blk_start, model.blk_origin, model.blk_dir),
                            (step.centre, step.radius, step.sun,
-                            heatstep._dark_cap(model, step)),
+                            heatplanet.dark_cap(model, step)),
                            m, bands.row_slot, seen, blocked, rows)
             outputs.append((seen, blocked, rows))
         (seen, blocked, rows), (seen_w, blocked_w, rows_w) = outputs
@@ -770,13 +770,13 @@ def test_planet_step_matches_a_ray_by_ray_oracle():
 
 def test_replicate_sums_match_bincount():
     # The per-(replicate, node) sums are np.bincount of each replicate's column, bit for bit.
-    from vfactor.tracing import heat_kernels as hk
+    from vfactor.tracing import heat_sums
 
     rng = np.random.default_rng(2)
     node = rng.integers(0, 7, size=500)
     values = rng.normal(size=(500, 5))
     out = np.empty((5, 9))
-    hk.replicate_sums(node, values, out)
+    heat_sums.replicate_sums(node, values, out)
     expected = np.stack([np.bincount(node, weights=values[:, r], minlength=9)
                          for r in range(5)])
     np.testing.assert_array_equal(out, expected)

@@ -12,7 +12,8 @@ import shutil
 
 import numba
 
-from vfactor.tracing import cache, heat_kernels, motion_kernels, scene, traverse, vf_kernels
+from vfactor.tracing import (cache, chain_kernels, heat_kernels, heat_sums, motion_kernels,
+                             planet_kernels, scene, side_rays, traverse, vf_kernels)
 
 
 def _dispatchers(module):
@@ -22,8 +23,9 @@ def _dispatchers(module):
 
 
 def test_every_cached_tracing_kernel_uses_the_package_stamp():
-    kernels = [k for m in (traverse, scene, vf_kernels, heat_kernels, motion_kernels)
-               for k in _dispatchers(m)]
+    modules = (traverse, scene, vf_kernels, heat_kernels, planet_kernels, chain_kernels,
+               heat_sums, side_rays, motion_kernels)
+    kernels = [k for m in modules for k in _dispatchers(m)]
     assert kernels
     for k in kernels:
         locator = k._cache._impl.locator

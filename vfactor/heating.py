@@ -86,7 +86,8 @@ import numpy as np
 
 from vfactor.constants import SUN_RADIUS_M
 from vfactor.heatmotion import placed_step, rigid_part
-from vfactor.heatstep import Step, bands_of, one_step, prepare, reuse_trace, trace_once, unit
+from vfactor.heatreflect import bands_of
+from vfactor.heatstep import Step, one_step, prepare, reuse_trace, trace_once, unit
 
 __all__ = ["Heating", "HeatingExtremes", "HeatingSteps", "compute_heating", "heating_extremes",
            "step_weights", "SOURCES", "ROWS"]

@@ -35,7 +35,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from vfactor import heatstep
+from vfactor import heatreflect, heatstep
 from vfactor.kinematics import swept_spheres
 
 __all__ = ["RigidPart", "rigid_part", "placed_step"]
@@ -97,7 +97,7 @@ def _stored(model, facet, sign, select):
 def rigid_part(task, geometry, model, bar) -> RigidPart:
     """Trace the rays of the rigid sides once among the rigid facets (``model``: the
     :func:`vfactor.heatstep.prepare` of the vehicle as built; ``bar`` advanced per side)."""
-    from vfactor.tracing import heat_kernels as hk
+    from vfactor.tracing import side_rays
     from vfactor.tracing import motion_kernels as mk
     from vfactor.tracing.scene import Scene
 
@@ -110,7 +110,7 @@ def rigid_part(task, geometry, model, bar) -> RigidPart:
     rigid_index[rigid_side] = np.arange(int(rigid_side.sum()))
     rigid = np.flatnonzero(owner < 0)
     n_rays = model.m * model.k_planet
-    targets = np.full((int(rigid_side.sum()), n_rays), hk.TARGET_ESCAPE, np.int32)
+    targets = np.full((int(rigid_side.sum()), n_rays), side_rays.TARGET_ESCAPE, np.int32)
     distance = np.full(targets.shape, np.inf)
     near = np.zeros(targets.shape, np.bool_)
     facet, sign = s.facet[rigid_side], s.sign[rigid_side]
@@ -125,7 +125,7 @@ def rigid_part(task, geometry, model, bar) -> RigidPart:
         mk.near_spheres(vertices, triangles, model.normals, facet, sign, model.seed,
                         model.m, model.k_planet, distance, centres, radii, near)
     escape_start, escape_origin, escape_direction = _stored(
-        model, facet, sign, targets == hk.TARGET_ESCAPE)
+        model, facet, sign, targets == side_rays.TARGET_ESCAPE)
     near_rows = np.flatnonzero(near.ravel())
     _, near_origin, near_direction = _stored(model, facet, sign, near)
     bar.advance(s.count)
@@ -143,7 +143,7 @@ def placed_step(task, geometry, rigid: RigidPart, gebhart: dict, k: int, step, p
     :class:`vfactor.heating.HeatingSteps` with a ``motion``) on the vehicle as placed then.
     ``gebhart`` holds the Gebhart factors of the hinge positions already used (filled
     here)."""
-    from vfactor.tracing import heat_kernels as hk
+    from vfactor.tracing import heat_kernels
     from vfactor.tracing import motion_kernels as mk
     from vfactor.tracing.scene import Scene
 
@@ -174,9 +174,9 @@ def placed_step(task, geometry, rigid: RigidPart, gebhart: dict, k: int, step, p
         # turning sides: their rays in the whole placed vehicle (one traversal is faster
         # than one in the rigid facets and one in the turning ones)
         part = np.empty((int(own.sum()), n_rays), np.int32)
-        hk.trace_targets(model.arrays, model.vertices, model.triangles, model.normals,
-                         s.facet[own], s.sign[own], model.facet_node, model.seed, model.m,
-                         model.k_planet, part)
+        heat_kernels.trace_targets(model.arrays, model.vertices, model.triangles,
+                                   model.normals, s.facet[own], s.sign[own], model.facet_node,
+                                   model.seed, model.m, model.k_planet, part)
         targets[own] = part
 
     def fill(segment_start, origin, direction):
@@ -192,7 +192,7 @@ def placed_step(task, geometry, rigid: RigidPart, gebhart: dict, k: int, step, p
         if task.position_views is not None:
             q = int(task.step_position[k])
             if q not in gebhart:
-                gebhart[q] = heatstep.band_gebhart(model, geometry, task.position_views[q])
+                gebhart[q] = heatreflect.band_gebhart(model, geometry, task.position_views[q])
             geb = gebhart[q]
-        bands = heatstep.bands_of(model, geometry, None, geb)
+        bands = heatreflect.bands_of(model, geometry, None, geb)
     heatstep.one_step(model, bands, step, True, p, out)

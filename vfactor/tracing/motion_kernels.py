@@ -1,6 +1,6 @@
 """Numba kernels of the heating stage when parts turn (:mod:`vfactor.heatmotion`).
 
-The rays are those of :mod:`vfactor.tracing.heat_kernels` (same sides, same random
+The rays are those of :mod:`vfactor.tracing.side_rays` (same sides, same random
 streams): a ray drawn here, stored or traced in part of the vehicle, has the bits of the
 same ray traced in the whole vehicle, and the nearest of the hits found in two parts is
 the hit in their union.
@@ -21,8 +21,9 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
-from .config import JIT, JIT_PARALLEL
-from .heat_kernels import PURPOSE_PLANET, TARGET_ESCAPE, TARGET_INERT, _side_ray, side_stream
+from .config import JIT_PARALLEL
+from .side_rays import (PURPOSE_PLANET, TARGET_ESCAPE, TARGET_INERT, put_ray, side_ray,
+                        side_stream)
 from .traverse import closest_hit
 
 __all__ = ["trace_targets_in", "near_spheres", "store_rays", "nearest_stored",
@@ -63,7 +64,7 @@ def trace_targets_in(arrays, local_node, local_of, vertices, triangles, normals,
                 j = r * per_replicate + k
                 if not only[s, j]:
                     continue
-                x, y, z, dx, dy, dz = _side_ray(vertices, triangles, normals, f, sign, seed,
+                x, y, z, dx, dy, dz = side_ray(vertices, triangles, normals, f, sign, seed,
                                                 stream, r, k)
                 hit, t, front = closest_hit(arrays, x, y, z, dx, dy, dz, tmax[s, j], own)
                 if hit >= 0:
@@ -95,7 +96,7 @@ def near_spheres(vertices, triangles, normals, side_facet, side_sign, seed, repl
         for r in range(replicates):
             for k in range(per_replicate):
                 j = r * per_replicate + k
-                x, y, z, dx, dy, dz = _side_ray(vertices, triangles, normals, f, sign, seed,
+                x, y, z, dx, dy, dz = side_ray(vertices, triangles, normals, f, sign, seed,
                                                 stream, r, k)
                 near = False
                 for q in range(centres.shape[0]):
@@ -111,19 +112,6 @@ def near_spheres(vertices, triangles, normals, side_facet, side_sign, seed, repl
                         near = True
                         break
                 out[s, j] = near
-
-
-@njit(**JIT, inline="always")
-def _put_ray(vertices, triangles, normals, f, sign, seed, stream, r, k, row, out_origin,
-             out_direction):
-    """Draw ray ``(r, k)`` of side ``(f, sign)`` and write it to row ``row``."""
-    x, y, z, dx, dy, dz = _side_ray(vertices, triangles, normals, f, sign, seed, stream, r, k)
-    out_origin[row, 0] = x
-    out_origin[row, 1] = y
-    out_origin[row, 2] = z
-    out_direction[row, 0] = dx
-    out_direction[row, 1] = dy
-    out_direction[row, 2] = dz
 
 
 @njit(**JIT_PARALLEL)
@@ -147,7 +135,7 @@ def store_rays(vertices, triangles, normals, side_facet, side_sign, seed, replic
             for k in range(per_replicate):
                 if not select[s, r * per_replicate + k]:
                     continue
-                _put_ray(vertices, triangles, normals, f, sign, seed, stream, r, k, row,
+                put_ray(vertices, triangles, normals, f, sign, seed, stream, r, k, row,
                          out_origin, out_direction)
                 row += 1
 
@@ -179,7 +167,7 @@ def compose_escaping(vertices, triangles, normals, side_facet, side_sign, seed, 
                      per_replicate, target, segment_start, rigid_index, rigid_target,
                      rigid_start, rigid_origin, rigid_direction, out_origin, out_direction):
     """Origins and directions of the escaping rays of a step, grouped by (side, replicate)
-    as :func:`vfactor.tracing.heat_kernels.fill_escaping` lays them out.
+    as :func:`vfactor.tracing.heat_kernels.fill_cache` lays them out.
 
     Parameters
     ----------
@@ -212,6 +200,6 @@ def compose_escaping(vertices, triangles, normals, side_facet, side_sign, seed, 
                         row += 1
                     src += 1
                 elif target[s, j] == TARGET_ESCAPE:
-                    _put_ray(vertices, triangles, normals, f, sign, seed, stream, r, k, row,
+                    put_ray(vertices, triangles, normals, f, sign, seed, stream, r, k, row,
                              out_origin, out_direction)
                     row += 1

@@ -1,0 +1,127 @@
+"""Numba kernels of the heating stage's sums: per (side, replicate) estimates of each source
+and their sums per node, replicate and facet (:mod:`vfactor.heatstep`).
+
+Every sum adds its terms in side order, as ``np.bincount`` does, so the results depend on
+nothing but the side order (bit-identical for any thread count; ``tests/test_heating.py``
+compares them with the numpy expressions they replace).
+"""
+
+from __future__ import annotations
+
+from numba import njit
+
+from .config import JIT
+
+__all__ = ["replicate_estimates", "side_tallies", "pool_sums", "facet_shares",
+           "replicate_sums"]
+
+
+@njit(**JIT)
+def replicate_estimates(sides, counts, unblocked, factors, out):
+    """Per (side, replicate) estimates of the incident power of the three sources [W].
+
+    Parameters
+    ----------
+    sides : tuple (area (s,) [m2], cos_sun (s,) [1], control (s,) bool)
+    counts : tuple (lit (s, m), seen (2, s * m), blocked (2, s * m)) float64 — unshadowed
+        Sun samples; rays that meet the planet and the sum of their mu, of the escaping and
+        of the blocked rays (:func:`vfactor.tracing.planet_kernels.planet_step`)
+    unblocked : tuple (view (s,), albedo (s,)) — unblocked view factor and albedo factor of
+        the control-variate sides [1]
+    factors : tuple (solar_fraction, olr, albedo_solar, per_sun, per_planet) — ``S f``
+        [W m-2], planet IR [W m-2], ``a S`` [W m-2], Sun samples and planet rays per
+        replicate
+    out : tuple (solar, planet_ir, albedo) of (s, m) float64, written
+
+    Notes
+    -----
+    ``solar = S f cos A lit / n``; planet IR and albedo: ``E A (view - blocked / n)`` and
+    ``a S A (albedo - blocked mu / n)`` on the control-variate sides, ``E A seen / n`` and
+    ``a S A seen mu / n`` elsewhere (module notes of :mod:`vfactor.heatstep`); the
+    operations in the order of the numpy expressions they replace.
+    """
+    area, cos_sun, control = sides
+    lit, seen, blocked = counts
+    view, albedo_view = unblocked
+    solar_fraction, olr, albedo_solar, per_sun, per_planet = factors
+    out_solar, out_ir, out_albedo = out
+    m = lit.shape[1]
+    for i in range(area.shape[0]):
+        solar_i = solar_fraction * cos_sun[i] * area[i]
+        ir_i = olr * area[i]
+        albedo_i = albedo_solar * area[i]
+        for r in range(m):
+            g = i * m + r
+            out_solar[i, r] = solar_i * (lit[i, r] / per_sun)
+            if control[i]:
+                out_ir[i, r] = ir_i * (view[i] - blocked[0, g] / per_planet)
+                out_albedo[i, r] = albedo_i * (albedo_view[i] - blocked[1, g] / per_planet)
+            else:
+                out_ir[i, r] = ir_i * (seen[0, g] / per_planet)
+                out_albedo[i, r] = albedo_i * (seen[1, g] / per_planet)
+
+
+@njit(**JIT)
+def side_tallies(node, facet, absorb, rep, incident, out_node, out_facet, out_replicates):
+    """Per node and facet sums of one source's per-side values, each added in side order
+    (what ``np.bincount`` gives: the sums do not depend on anything but the side order).
+
+    Parameters
+    ----------
+    node, facet : (s,) int64 — node and facet of each side
+    absorb : (s,) float64 — absorptivity of the side in the source's band [1]
+    rep : (s, m) float64 — replicate estimates of the power incident on the side [W]
+    incident : (s,) float64 — their mean over the replicates [W]
+    out_node : (2, n) float64, written — incident and absorbed power per node [W]
+    out_facet : (f,) float64, written — absorbed power per facet [W]
+    out_replicates : (m, n) float64, written — absorbed power per replicate and node [W]
+    """
+    out_node[:] = 0.0
+    out_facet[:] = 0.0
+    out_replicates[:] = 0.0
+    for i in range(node.shape[0]):
+        j = node[i]
+        a = absorb[i]
+        absorbed = a * incident[i]
+        out_node[0, j] += incident[i]
+        out_node[1, j] += absorbed
+        out_facet[facet[i]] += absorbed
+        for r in range(out_replicates.shape[0]):
+            out_replicates[r, j] += a * rep[i, r]
+
+
+@njit(**JIT)
+def pool_sums(node, reflected, diffuse, rep, out):
+    """``out[r, j]``: sum over the sides of node ``j`` of ``diffuse * (reflected *
+    rep[:, r])`` (the diffusely reflected power per replicate), added in side order."""
+    out[:] = 0.0
+    for i in range(node.shape[0]):
+        j = node[i]
+        for r in range(out.shape[0]):
+            out[r, j] += diffuse[i] * (reflected[i] * rep[i, r])
+
+
+@njit(**JIT)
+def facet_shares(facet, node, share, area, out):
+    """``out[f]``: sum over the sides of facet ``f`` of ``share[node] * area`` [W], in
+    side order."""
+    out[:] = 0.0
+    for i in range(facet.shape[0]):
+        out[facet[i]] += share[node[i]] * area[i]
+
+
+@njit(**JIT)
+def replicate_sums(node, values, out):
+    """``out[r, j] = sum of values[i, r] over the sides i of node j``, added in side order
+    (``np.bincount(node, weights=values[:, r])`` for each replicate ``r``).
+
+    node : (s,) int64; values : (s, m) float64; out : (m, n) float64, written
+    """
+    for r in range(out.shape[0]):
+        for j in range(out.shape[1]):
+            out[r, j] = 0.0
+    # side by side: each (replicate, node) sum still adds its sides in side order
+    for i in range(node.shape[0]):
+        j = node[i]
+        for r in range(out.shape[0]):
+            out[r, j] += values[i, r]
