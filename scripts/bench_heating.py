@@ -7,9 +7,12 @@
 2. How the time grows with the number of facets (the demo's max_edge divided by 1, 1.5, 2)
    and with the number of steps (18, 36, 72, 144), with the cache.
 3. The statistical error of the demo's per-node planet loads (albedo, planet IR) at equal
-   rays, with the control variates of :mod:`vfactor.heatstep` and with the plain Monte
-   Carlo estimates from the very same rays (``heatstep.plain_estimates``): the largest and
-   the mean reported one-sigma error over nodes and steps, and their ratios.
+   rays, with the control variates of :mod:`vfactor.heatplanet` and with the plain Monte
+   Carlo estimates from the very same rays (``heatstep.plain_estimates``); then against
+   the previous estimator, the plain estimates from one ray sequence per side instead of
+   one per node (``heatstep.side_sequences``, :mod:`vfactor.tracing.side_rays`), with the
+   same number of rays: the largest and the mean reported one-sigma error over nodes and
+   steps, and their ratios.
 4. The demo with its Sun-tracking wings (``[[hinges]]``): one orbit with the turning parts
    (rigid rays cached once, tested against the moving parts per step; the diffuse
    redistribution by the couplings at the demo's 4 hinge positions, computed before the
@@ -119,12 +122,11 @@ def main(argv=None):
     print("planet loads at equal rays: node one-sigma errors with the control variates / "
           "plain estimates (same rays)")
     plain = plain_estimates(geometry, scene, trajectory, environment, **kw)
-    for src in ("albedo", "planet_ir"):
-        cv_err = getattr(with_cache, f"node_{src}_stderr")
-        plain_err = getattr(plain, f"node_{src}_stderr")
-        print(f"  {src:9s}: largest {cv_err.max():.4f} / {plain_err.max():.4f} W "
-              f"(ratio {plain_err.max() / cv_err.max():.2f}); mean {cv_err.mean():.5f} / "
-              f"{plain_err.mean():.5f} W (ratio {plain_err.mean() / cv_err.mean():.2f})")
+    _error_ratios(with_cache, plain)
+    print("planet loads at equal rays: node one-sigma errors of this estimator / the plain "
+          "estimates with one ray sequence per side (the previous estimator)")
+    previous = plain_estimates(geometry, scene, trajectory, environment, per_side=True, **kw)
+    _error_ratios(with_cache, previous)
 
     print("time with the cache against facets (72 steps):")
     divisors = (1.0, 2.0) if args.quick else (1.0, 1.5, 2.0)
@@ -168,11 +170,30 @@ def main(argv=None):
     print(f"cache speedup: {t_trace / t_cache:.2f}")
 
 
-def plain_estimates(geometry, scene, trajectory, environment, **kw):
+def _error_ratios(ours, other):
+    """Print the largest and mean node one-sigma errors of albedo and planet IR of two
+    heating results and their ratios (other / ours)."""
+    for src in ("albedo", "planet_ir"):
+        ours_err = getattr(ours, f"node_{src}_stderr")
+        other_err = getattr(other, f"node_{src}_stderr")
+        print(f"  {src:9s}: largest {ours_err.max():.4f} / {other_err.max():.4f} W "
+              f"(ratio {other_err.max() / ours_err.max():.2f}); mean {ours_err.mean():.5f} / "
+              f"{other_err.mean():.5f} W (ratio {other_err.mean() / ours_err.mean():.2f})")
+
+
+class _Quiet:
+    def advance(self, n):
+        pass
+
+
+def plain_estimates(geometry, scene, trajectory, environment, per_side=False, **kw):
     """The heating of :func:`timed` (seed 1) with the plain Monte Carlo estimates of planet
-    IR and albedo on every side: the same rays, no control variates."""
+    IR and albedo on every side: the same rays, no control variates; ``per_side``: the
+    same number of rays from one sequence per side (``heatstep.side_sequences``)."""
     task = HeatingSteps.of(geometry, scene, trajectory, environment, seed=1, **kw)
     model, _ = task.prepare(geometry, scene)
+    if per_side:
+        model = heatstep.side_sequences(model, _Quiet())
     plain = heatstep.plain_estimates(model)
     bands = heatreflect.bands_of(plain, geometry, None)
     return task.assemble(task.run((plain, bands), np.arange(task.n_steps)))

@@ -80,7 +80,7 @@ def _local(facets, n_facets):
     return out
 
 
-def _stored(model, facet, sign, select):
+def _stored(model, facet, sign, key, select):
     """(row_start, origin, direction) of the rays ``select`` of the given sides."""
     from vfactor.tracing import motion_kernels as mk
 
@@ -89,8 +89,8 @@ def _stored(model, facet, sign, select):
     origin = np.empty((int(start[-1]), 3))
     direction = np.empty((int(start[-1]), 3))
     if facet.size:
-        mk.store_rays(model.vertices, model.triangles, model.normals, facet, sign, model.seed,
-                      model.m, model.k_planet, select, start, origin, direction)
+        mk.store_rays(model.vertices, model.triangles, model.normals, facet, sign, key,
+                      model.seed, model.m, model.k_planet, select, start, origin, direction)
     return start, origin, direction
 
 
@@ -113,21 +113,21 @@ def rigid_part(task, geometry, model, bar) -> RigidPart:
     targets = np.full((int(rigid_side.sum()), n_rays), side_rays.TARGET_ESCAPE, np.int32)
     distance = np.full(targets.shape, np.inf)
     near = np.zeros(targets.shape, np.bool_)
-    facet, sign = s.facet[rigid_side], s.sign[rigid_side]
+    facet, sign, key = s.facet[rigid_side], s.sign[rigid_side], s.key(rigid_side)
     scene = Scene.build(vertices, triangles[rigid]) if rigid.size else None
     if scene is not None and targets.size:
         mk.trace_targets_in(scene.arrays, model.facet_node[rigid],
                             _local(rigid, geometry.n_facets), vertices, triangles,
-                            model.normals, facet, sign, model.seed, model.m, model.k_planet,
-                            np.full(targets.shape, np.inf), False,
+                            model.normals, facet, sign, key, model.seed, model.m,
+                            model.k_planet, np.full(targets.shape, np.inf), False,
                             np.ones(targets.shape, np.bool_), targets, distance)
         centres, radii = swept_spheres(task.motion.hinges, geometry, owner)
-        mk.near_spheres(vertices, triangles, model.normals, facet, sign, model.seed,
+        mk.near_spheres(vertices, triangles, model.normals, facet, sign, key, model.seed,
                         model.m, model.k_planet, distance, centres, radii, near)
     escape_start, escape_origin, escape_direction = _stored(
-        model, facet, sign, targets == side_rays.TARGET_ESCAPE)
+        model, facet, sign, key, targets == side_rays.TARGET_ESCAPE)
     near_rows = np.flatnonzero(near.ravel())
-    _, near_origin, near_direction = _stored(model, facet, sign, near)
+    _, near_origin, near_direction = _stored(model, facet, sign, key, near)
     bar.advance(s.count)
     return RigidPart(rigid_side=rigid_side, rigid_index=rigid_index, targets=targets,
                      distance=distance, escape_start=escape_start,
@@ -174,15 +174,15 @@ def placed_step(task, geometry, rigid: RigidPart, gebhart: dict, k: int, step, p
         # turning sides: their rays in the whole placed vehicle (one traversal is faster
         # than one in the rigid facets and one in the turning ones)
         part = np.empty((int(own.sum()), n_rays), np.int32)
-        heat_kernels.trace_targets(model.arrays, model.vertices, model.triangles,
-                                   model.normals, s.facet[own], s.sign[own], model.facet_node,
+        heat_kernels.trace_targets(model.arrays, model.vertices, model.triangles, model.normals,
+                                   s.facet[own], s.sign[own], s.key(own), model.facet_node,
                                    model.seed, model.m, model.k_planet, part)
         targets[own] = part
 
     def fill(segment_start, origin, direction):
         mk.compose_escaping(model.vertices, model.triangles, model.normals, s.facet, s.sign,
-                            model.seed, model.m, model.k_planet, targets, segment_start,
-                            rigid.rigid_index, rigid.targets, rigid.escape_start,
+                            s.key(), model.seed, model.m, model.k_planet, targets,
+                            segment_start, rigid.rigid_index, rigid.targets, rigid.escape_start,
                             rigid.escape_origin, rigid.escape_direction, origin, direction)
 
     heatstep.cache_targets(model, targets, need_rays=True, fill=fill)

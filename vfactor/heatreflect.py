@@ -105,7 +105,7 @@ def bands_of(model, geometry, view_factors, gebhart=None) -> "Bands":
         mirror_origin = np.empty((rows.size, 3))
         if rows.size:
             heat_kernels.mirror_rays(rows, owner, model.esc_origin, model.esc_dir,
-                           np.ascontiguousarray(s.normal), mirror_origin, mirror)
+                                     np.ascontiguousarray(s.normal), mirror_origin, mirror)
         # the rows of side spec_sides[j] are side_first[j]:[j + 1] (side by side, as
         # _rows_of_sides lays them out), segment by segment
         per_side = (model.segment_start[(spec_sides + 1) * m]
@@ -189,7 +189,7 @@ def _chains_of(model, bands: Bands, name: str):
                 b = min(rows, a + _RECORD_BATCH)
                 entry = np.empty((b - a, model.max_bounces), dtype=np.int32)
                 chain_kernels.record_chains(scene, band["mirror_origin"][a:b], band["mirror"][a:b],
-                                 exclude[a:b], entry)
+                                            exclude[a:b], entry)
                 used = entry != chain_kernels.CHAIN_UNUSED
                 lengths[a:b] = used.sum(axis=1)
                 parts.append(entry[used])
@@ -258,8 +258,9 @@ def _run_chains(model, band, origin, direction, exclude, weight, replicate):
     lost = np.empty(chunks)
     if count:
         chain_kernels.specular_chains(model.arrays, model.normals, model.facet_node, band["f_abs"],
-                           band["f_spec"], origin, direction, exclude, weight, replicate,
-                           chain_kernels.CHAIN_CHUNK, model.max_bounces, absorbed, diffuse, esc, lost)
+                                      band["f_spec"], origin, direction, exclude, weight,
+                                      replicate, chain_kernels.CHAIN_CHUNK, model.max_bounces,
+                                      absorbed, diffuse, esc, lost)
     return _chain_sums(absorbed, diffuse, esc, lost, chunks)
 
 
@@ -330,11 +331,11 @@ def _sun_mirror(model, band, step, lit_mask, lit, cos_t):
     replicate = np.empty(total, dtype=np.int64)
     if total:
         heat_kernels.sun_mirror_rays(model.vertices, model.triangles, model.normals,
-                           np.ascontiguousarray(s.facet[spec]),
-                           np.ascontiguousarray(s.sign[spec]), model.seed, model.m,
-                           model.k_sun, step.sun, step.cos_half,
-                           np.ascontiguousarray(lit_mask[spec]), first, per_sample, origin,
-                           direction, exclude, weight, replicate)
+                                     np.ascontiguousarray(s.facet[spec]),
+                                     np.ascontiguousarray(s.sign[spec]), model.seed, model.m,
+                                     model.k_sun, step.sun, step.cos_half,
+                                     np.ascontiguousarray(lit_mask[spec]), first, per_sample,
+                                     origin, direction, exclude, weight, replicate)
     return origin, direction, exclude, weight, replicate
 
 
@@ -368,7 +369,8 @@ def _planet_mirror(model, bands: Bands, src, band, step, rep,
         if src == "planet_ir":
             carry = np.full(s.count, chain_kernels.CARRY_EVEN, dtype=np.int64)
         else:   # the control-variate sides carry their estimate, the others their rays
-            carry = np.where(model.control, chain_kernels.CARRY_BY_MU, chain_kernels.CARRY_MU).astype(np.int64)
+            carry = np.where(model.control, chain_kernels.CARRY_BY_MU,
+                             chain_kernels.CARRY_MU).astype(np.int64)
         kept = chain_kernels.planet_mirror_tallies(
             _chain_scene(model, band),
             (band["spec_sides"], band["side_first"], band["owner"], band["replicate"],
@@ -378,4 +380,5 @@ def _planet_mirror(model, bands: Bands, src, band, step, rep,
              planet_rays.seen, np.ascontiguousarray(rep), carry, step.albedo, step.solar),
             chains, (np.empty(rows), np.empty(rows, dtype=np.int64)), uncarried, absorbed,
             diffuse, esc, lost)
-    return _chain_sums(absorbed, diffuse, esc, lost, -(-kept // chain_kernels.CHAIN_CHUNK)), uncarried
+    chunks = -(-kept // chain_kernels.CHAIN_CHUNK)
+    return _chain_sums(absorbed, diffuse, esc, lost, chunks), uncarried

@@ -24,10 +24,10 @@ import numpy as np
 from vfactor.heatplanet import (CONTROL_BLOCKED_SHARE, albedo_groups, albedo_view, dark_cap,
                                 planet_view, vertex_extent)
 from vfactor.heatreflect import PlanetRays, reflect
-from vfactor.tracing import heat_kernels, heat_sums, planet_kernels
+from vfactor.tracing import heat_kernels, heat_sums, planet_kernels, side_rays
 
 __all__ = ["Model", "Step", "prepare", "trace_once", "cache_targets", "reuse_trace",
-           "plain_estimates", "one_step", "unit"]
+           "plain_estimates", "side_sequences", "one_step", "unit"]
 
 
 @dataclass(frozen=True)
@@ -43,10 +43,17 @@ class _Sides:
     emissivity: np.ndarray   # (s,) infrared band
     solar_specular: np.ndarray
     ir_specular: np.ndarray
+    ray_stream: np.ndarray   # (s,) uint64: the planet-ray sequence of the side's node
+    ray_rank: np.ndarray     # (s,) int64: the side's block in it (side_rays.planet_ray_keys)
 
     @property
     def count(self) -> int:
         return int(self.facet.shape[0])
+
+    def key(self, index=slice(None)) -> tuple:
+        """``side_key`` of the planet-ray kernels for the sides ``index``."""
+        return (np.ascontiguousarray(self.ray_stream[index]),
+                np.ascontiguousarray(self.ray_rank[index]))
 
 
 def _band_tables(geometry):
@@ -81,7 +88,9 @@ def _sides(geometry, normals, facet_node, props) -> _Sides:
     facet = np.ascontiguousarray(facet[order])
     sign = np.ascontiguousarray(sign[order])
     col = np.where(sign > 0, 0, 1)
-    return _Sides(facet=facet, sign=sign, node=facet_node[facet, col],
+    node = facet_node[facet, col]
+    ray_stream, ray_rank = side_rays.planet_ray_keys(node)
+    return _Sides(facet=facet, sign=sign, node=node, ray_stream=ray_stream, ray_rank=ray_rank,
                   area=np.asarray(geometry.areas, dtype=np.float64)[facet],
                   normal=normals[facet] * sign[:, None],
                   absorptivity=props[0][facet, col], emissivity=props[1][facet, col],
@@ -179,16 +188,16 @@ def trace_once(model: Model, bar, need_rays: bool, all_escaping: bool = False) -
     for a in range(0, s.count, _TRACE_BATCH):
         b = min(s.count, a + _TRACE_BATCH)
         heat_kernels.trace_targets(model.arrays, model.vertices, model.triangles, model.normals,
-                         s.facet[a:b], s.sign[a:b], model.facet_node, model.seed, model.m,
-                         model.k_planet, targets[a:b])
+                                   s.facet[a:b], s.sign[a:b], s.key(slice(a, b)), model.facet_node,
+                                   model.seed, model.m, model.k_planet, targets[a:b])
         bar.advance(b - a)
     cache_targets(model, targets, need_rays, all_escaping=all_escaping)
     model.rigid = True
 
 
 _TRACED = ("targets", "segment_start", "stored", "esc_origin", "esc_dir", "position", "reach",
-           "order", "rigid", "control", "albedo_group", "albedo_normal", "albedo_position", "blk_start",
-           "blk_origin", "blk_dir")
+           "order", "rigid", "control", "albedo_group", "albedo_normal", "albedo_position",
+           "blk_start", "blk_origin", "blk_dir")
 
 
 def reuse_trace(model: Model, traced: Model) -> bool:
@@ -264,17 +273,17 @@ def cache_targets(model: Model, targets, need_rays: bool, fill=None,
     # rays of sides without the control variate are not stored among the blocked ones
     if fill is None:
         heat_kernels.fill_cache(model.vertices, model.triangles, model.normals, s.facet, s.sign,
-                      model.seed, m, k, targets, segment_start, model.stored,
-                      model.blk_start, model.control, (model.esc_origin, model.esc_dir),
-                      (model.blk_origin, model.blk_dir))
+                                s.key(), model.seed, m, k, targets, segment_start, model.stored,
+                                model.blk_start, model.control, (model.esc_origin, model.esc_dir),
+                                (model.blk_origin, model.blk_dir))
         return
     fill(segment_start, model.esc_origin, model.esc_dir)
     if n_blk:
         # the blocked rays alone: no escaping segment is stored here
-        heat_kernels.fill_cache(model.vertices, model.triangles, model.normals, s.facet,
-                                s.sign, model.seed, m, k, targets, segment_start,
-                                np.zeros(s.count, dtype=np.bool_), model.blk_start,
-                                model.control, (np.empty((0, 3)), np.empty((0, 3))),
+        heat_kernels.fill_cache(model.vertices, model.triangles, model.normals, s.facet, s.sign,
+                                s.key(), model.seed, m, k, targets, segment_start,
+                                np.zeros(s.count, dtype=np.bool_), model.blk_start, model.control,
+                                (np.empty((0, 3)), np.empty((0, 3))),
                                 (model.blk_origin, model.blk_dir))
 
 
@@ -308,6 +317,23 @@ def plain_estimates(model: Model) -> Model:
         blk_origin=np.zeros((0, 3)), blk_dir=np.zeros((0, 3)))
 
 
+def side_sequences(model: Model, bar) -> Model:
+    """A copy of a prepared ``model`` whose planet rays come from one sequence per side
+    (stream ``PURPOSE_PLANET * STREAM_STRIDE + 2 facet + (0 front | 1 back)``, the design
+    before :func:`vfactor.tracing.side_rays.planet_ray_keys`), traced once with the
+    escaping rays of every side kept: for comparisons of the two designs at equal rays
+    (``scripts/bench_heating.py``). ``bar``: progress, advanced per side."""
+    import dataclasses
+
+    s = model.sides
+    stream = (np.uint64(side_rays.PURPOSE_PLANET) * np.uint64(side_rays.STREAM_STRIDE)
+              + (2 * s.facet + (s.sign < 0)).astype(np.uint64))
+    sides = dataclasses.replace(s, ray_stream=np.ascontiguousarray(stream, dtype=np.uint64),
+                                ray_rank=np.zeros(s.count, dtype=np.int64))
+    copy = dataclasses.replace(model, sides=sides)
+    trace_once(copy, bar, need_rays=True, all_escaping=True)
+    return copy
+
 
 def one_step(model: Model, bands, step: Step, use_cache: bool, k: int, out: dict) -> None:
     """Fill row ``k`` of every output for one step.
@@ -328,9 +354,9 @@ def one_step(model: Model, bands, step: Step, use_cache: bool, k: int, out: dict
     lit_mask = blank((s.count, m * model.k_sun), dtype=np.bool_)
     lit = blank((s.count, m))
     if sunlit:
-        heat_kernels.sun_lit_mask(model.arrays, model.vertices, model.triangles, model.normals, s.facet,
-                        s.sign, model.seed, m, model.k_sun, step.sun, step.cos_half, lit_mask,
-                        lit)
+        heat_kernels.sun_lit_mask(model.arrays, model.vertices, model.triangles, model.normals,
+                                  s.facet, s.sign, model.seed, m, model.k_sun, step.sun,
+                                  step.cos_half, lit_mask, lit)
 
     # planet: hits and albedo cosines per (side, replicate); per ray for specular sides
     blank = np.empty if s.count else np.zeros       # the kernels write every entry
@@ -347,22 +373,24 @@ def one_step(model: Model, bands, step: Step, use_cache: bool, k: int, out: dict
             # a control-variate estimate needs the side's blocked rays only; the escaping
             # ones where the plain estimate is used, or to carry specular shares
             wanted = ~model.control if bands is None else ~model.control | bands.specular
-            planet_kernels.planet_step((model.order, model.position, s.normal, model.reach, wanted),
-                           (model.segment_start, model.esc_origin, model.esc_dir),
-                           (model.blk_start, model.blk_origin, model.blk_dir), planet, m,
-                           slots, seen, blocked, (row_hit, row_mu))
+            planet_kernels.planet_step(
+                (model.order, model.position, s.normal, model.reach, wanted),
+                (model.segment_start, model.esc_origin, model.esc_dir),
+                (model.blk_start, model.blk_origin, model.blk_dir), planet, m, slots, seen,
+                blocked, (row_hit, row_mu))
         else:
-            planet_kernels.planet_uncached(model.arrays, model.vertices, model.triangles, model.normals,
-                               s.facet, s.sign, model.seed, m, model.k_planet, step.centre,
-                               step.radius, step.sun, seen, blocked)
+            planet_kernels.planet_uncached(model.arrays, model.vertices, model.triangles,
+                                           model.normals, s.facet, s.sign, s.key(), model.seed, m,
+                                           model.k_planet, step.centre, step.radius, step.sun,
+                                           seen, blocked)
             if bands is not None:
                 for band in (bands.solar, bands.ir):
                     a = band["row_offset"]
                     b = a + band["rows"].size
                     if b > a:
-                        planet_kernels.planet_ray_cos(model.esc_origin, model.esc_dir, band["rows"],
-                                          step.centre, step.radius, step.sun,
-                                          row_hit[a:b], row_mu[a:b])
+                        planet_kernels.planet_ray_cos(model.esc_origin, model.esc_dir,
+                                                      band["rows"], step.centre, step.radius,
+                                                      step.sun, row_hit[a:b], row_mu[a:b])
     # control variates (CONTROL_BLOCKED_SHARE): the unblocked value of the side, minus
     # the Monte Carlo estimate of what the vehicle hides from the same cached directions
     solar_rep = np.empty((s.count, m))
@@ -385,7 +413,7 @@ def one_step(model: Model, bands, step: Step, use_cache: bool, k: int, out: dict
         facet_power = np.empty(n_facets)
         node_rep = np.empty((m, n_nodes))
         heat_sums.side_tallies(s.node, s.facet, absorb, rep, rep.mean(axis=1), node_sums,
-                        facet_power, node_rep)
+                               facet_power, node_rep)
         out[f"incident_{src}"][k] = node_sums[0]
         absorbed_node = node_sums[1]
         if bands is not None and s.count:

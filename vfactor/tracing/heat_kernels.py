@@ -32,8 +32,7 @@ from numba import njit, prange
 
 from .config import JIT_PARALLEL
 from .sampling import cone_direction, rqmc_uniform4, triangle_point
-from .side_rays import (PURPOSE_PLANET, PURPOSE_SUN, TARGET_ESCAPE, TARGET_INERT, put_ray,
-                        side_ray, side_stream)
+from .side_rays import PURPOSE_SUN, TARGET_ESCAPE, TARGET_INERT, put_ray, side_ray, side_stream
 from .traverse import any_hit, closest_hit
 
 __all__ = [
@@ -47,8 +46,8 @@ __all__ = [
 
 
 @njit(**JIT_PARALLEL)
-def trace_targets(arrays, vertices, triangles, normals, side_facet, side_sign, facet_node,
-                  seed, replicates, per_replicate, out_target):
+def trace_targets(arrays, vertices, triangles, normals, side_facet, side_sign, side_key,
+                  facet_node, seed, replicates, per_replicate, out_target):
     """First hit of every cosine-weighted ray of every side.
 
     Parameters
@@ -56,6 +55,8 @@ def trace_targets(arrays, vertices, triangles, normals, side_facet, side_sign, f
     arrays : tuple — ``Scene.arrays``
     vertices (v, 3) [m], triangles (f, 3) int64, normals (f, 3) [1]
     side_facet (s,) int64, side_sign (s,) int64 (+1 front, -1 back)
+    side_key : tuple (stream (s,) uint64, rank (s,) int64) — each side's planet-ray
+        sequence (:func:`vfactor.tracing.side_rays.planet_ray_keys`)
     facet_node : (f, 2) int64 — node of the front (column 0) and back (column 1) side, -1 inert
     seed : uint64
     replicates, per_replicate : int
@@ -66,11 +67,12 @@ def trace_targets(arrays, vertices, triangles, normals, side_facet, side_sign, f
     for s in prange(side_facet.shape[0]):
         f = side_facet[s]
         sign = side_sign[s]
-        stream = side_stream(PURPOSE_PLANET, f, sign)
+        stream = side_key[0][s]
+        k0 = side_key[1][s] * per_replicate
         for r in range(replicates):
             for k in range(per_replicate):
                 x, y, z, dx, dy, dz = side_ray(vertices, triangles, normals, f, sign, seed,
-                                                stream, r, k)
+                                                stream, r, k0 + k)
                 hit, t, front = closest_hit(arrays, x, y, z, dx, dy, dz, np.inf, f)
                 if hit < 0:
                     target = TARGET_ESCAPE
@@ -81,14 +83,15 @@ def trace_targets(arrays, vertices, triangles, normals, side_facet, side_sign, f
 
 
 @njit(**JIT_PARALLEL)
-def fill_cache(vertices, triangles, normals, side_facet, side_sign, seed, replicates,
-               per_replicate, target, escape_start, escape_use, blocked_start, blocked_use,
-               out_escape, out_blocked):
+def fill_cache(vertices, triangles, normals, side_facet, side_sign, side_key, seed,
+               replicates, per_replicate, target, escape_start, escape_use, blocked_start,
+               blocked_use, out_escape, out_blocked):
     """Store origin and direction of the escaping rays and of the blocked rays, grouped by
     (side, replicate), in one pass (each ray drawn once, only if it is stored).
 
     Parameters
     ----------
+    side_key : as for :func:`trace_targets`
     target : (s, replicates * per_replicate) int32 — from :func:`trace_targets`
     escape_start, blocked_start : (s * replicates + 1,) int64 — first row of segment ``s *
         replicates + r`` in the escaping and in the blocked rays
@@ -106,18 +109,19 @@ def fill_cache(vertices, triangles, normals, side_facet, side_sign, seed, replic
         keep_blocked = blocked_use[s]
         if not (keep_escaping or keep_blocked):
             continue
-        stream = side_stream(PURPOSE_PLANET, f, sign)
+        stream = side_key[0][s]
+        k0 = side_key[1][s] * per_replicate
         for r in range(replicates):
             esc_row = escape_start[s * replicates + r]
             blk_row = blocked_start[s * replicates + r]
             for k in range(per_replicate):
                 if target[s, r * per_replicate + k] == TARGET_ESCAPE:
                     if keep_escaping:
-                        put_ray(vertices, triangles, normals, f, sign, seed, stream, r, k,
+                        put_ray(vertices, triangles, normals, f, sign, seed, stream, r, k0 + k,
                                 esc_row, esc_origin, esc_direction)
                         esc_row += 1
                 elif keep_blocked:
-                    put_ray(vertices, triangles, normals, f, sign, seed, stream, r, k,
+                    put_ray(vertices, triangles, normals, f, sign, seed, stream, r, k0 + k,
                             blk_row, blk_origin, blk_direction)
                     blk_row += 1
 

@@ -22,8 +22,7 @@ import numpy as np
 from numba import njit, prange
 
 from .config import JIT_PARALLEL
-from .side_rays import (PURPOSE_PLANET, TARGET_ESCAPE, TARGET_INERT, put_ray, side_ray,
-                        side_stream)
+from .side_rays import TARGET_ESCAPE, TARGET_INERT, put_ray, side_ray
 from .traverse import closest_hit
 
 __all__ = ["trace_targets_in", "near_spheres", "store_rays", "nearest_stored",
@@ -32,7 +31,7 @@ __all__ = ["trace_targets_in", "near_spheres", "store_rays", "nearest_stored",
 
 @njit(**JIT_PARALLEL)
 def trace_targets_in(arrays, local_node, local_of, vertices, triangles, normals, side_facet,
-                     side_sign, seed, replicates, per_replicate, tmax, keep_miss, only,
+                     side_sign, side_key, seed, replicates, per_replicate, tmax, keep_miss, only,
                      out_target, out_distance):
     """First hits of the rays of :func:`trace_targets` in another scene (a part of the
     vehicle), nearer than ``tmax``.
@@ -43,6 +42,9 @@ def trace_targets_in(arrays, local_node, local_of, vertices, triangles, normals,
 
     Parameters
     ----------
+    side_key : tuple (stream (s,) uint64, rank (s,) int64) — the planet-ray sequence of
+        each side (:func:`vfactor.tracing.side_rays.planet_ray_keys`), as for
+        :func:`vfactor.tracing.heat_kernels.trace_targets`
     local_node : (g, 2) int64 — node of the front and back side of each facet of the scene
     local_of : (f,) int64 — local index of each global facet in the scene, -1 if absent
     tmax : (s, replicates * per_replicate) float64 — hits at this distance or beyond do not
@@ -57,7 +59,8 @@ def trace_targets_in(arrays, local_node, local_of, vertices, triangles, normals,
     for s in prange(side_facet.shape[0]):
         f = side_facet[s]
         sign = side_sign[s]
-        stream = side_stream(PURPOSE_PLANET, f, sign)
+        stream = side_key[0][s]
+        k0 = side_key[1][s] * per_replicate
         own = local_of[f]
         for r in range(replicates):
             for k in range(per_replicate):
@@ -65,7 +68,7 @@ def trace_targets_in(arrays, local_node, local_of, vertices, triangles, normals,
                 if not only[s, j]:
                     continue
                 x, y, z, dx, dy, dz = side_ray(vertices, triangles, normals, f, sign, seed,
-                                                stream, r, k)
+                                                stream, r, k0 + k)
                 hit, t, front = closest_hit(arrays, x, y, z, dx, dy, dz, tmax[s, j], own)
                 if hit >= 0:
                     node = local_node[hit, 0] if front else local_node[hit, 1]
@@ -77,14 +80,15 @@ def trace_targets_in(arrays, local_node, local_of, vertices, triangles, normals,
 
 
 @njit(**JIT_PARALLEL)
-def near_spheres(vertices, triangles, normals, side_facet, side_sign, seed, replicates,
-                 per_replicate, tmax, centres, radii, out):
+def near_spheres(vertices, triangles, normals, side_facet, side_sign, side_key, seed,
+                 replicates, per_replicate, tmax, centres, radii, out):
     """Which rays of :func:`trace_targets` pass through any of some spheres before
     ``tmax`` (the segment from the origin to ``tmax`` comes closer than the radius to the
     centre).
 
     Parameters
     ----------
+    side_key : as for :func:`trace_targets_in`
     tmax : (s, replicates * per_replicate) float64 [m] (inf: the whole ray)
     centres : (q, 3) float64 [m], radii : (q,) float64 [m]
     out : (s, replicates * per_replicate) bool, written
@@ -92,12 +96,13 @@ def near_spheres(vertices, triangles, normals, side_facet, side_sign, seed, repl
     for s in prange(side_facet.shape[0]):
         f = side_facet[s]
         sign = side_sign[s]
-        stream = side_stream(PURPOSE_PLANET, f, sign)
+        stream = side_key[0][s]
+        k0 = side_key[1][s] * per_replicate
         for r in range(replicates):
             for k in range(per_replicate):
                 j = r * per_replicate + k
                 x, y, z, dx, dy, dz = side_ray(vertices, triangles, normals, f, sign, seed,
-                                                stream, r, k)
+                                                stream, r, k0 + k)
                 near = False
                 for q in range(centres.shape[0]):
                     wx = centres[q, 0] - x
@@ -115,13 +120,14 @@ def near_spheres(vertices, triangles, normals, side_facet, side_sign, seed, repl
 
 
 @njit(**JIT_PARALLEL)
-def store_rays(vertices, triangles, normals, side_facet, side_sign, seed, replicates,
-               per_replicate, select, row_start, out_origin, out_direction):
+def store_rays(vertices, triangles, normals, side_facet, side_sign, side_key, seed,
+               replicates, per_replicate, select, row_start, out_origin, out_direction):
     """Origin and direction of the chosen rays of every side, side by side and in column
     order within a side.
 
     Parameters
     ----------
+    side_key : as for :func:`trace_targets_in`
     select : (s, replicates * per_replicate) bool — the rays stored
     row_start : (s + 1,) int64 — first row of side ``s``
     out_origin, out_direction : (row_start[-1], 3) float64, written [m], [1]
@@ -129,13 +135,14 @@ def store_rays(vertices, triangles, normals, side_facet, side_sign, seed, replic
     for s in prange(side_facet.shape[0]):
         f = side_facet[s]
         sign = side_sign[s]
-        stream = side_stream(PURPOSE_PLANET, f, sign)
+        stream = side_key[0][s]
+        k0 = side_key[1][s] * per_replicate
         row = row_start[s]
         for r in range(replicates):
             for k in range(per_replicate):
                 if not select[s, r * per_replicate + k]:
                     continue
-                put_ray(vertices, triangles, normals, f, sign, seed, stream, r, k, row,
+                put_ray(vertices, triangles, normals, f, sign, seed, stream, r, k0 + k, row,
                          out_origin, out_direction)
                 row += 1
 
@@ -163,14 +170,15 @@ def nearest_stored(arrays, local_node, origin, direction, tmax, out_target, out_
 
 
 @njit(**JIT_PARALLEL)
-def compose_escaping(vertices, triangles, normals, side_facet, side_sign, seed, replicates,
-                     per_replicate, target, segment_start, rigid_index, rigid_target,
+def compose_escaping(vertices, triangles, normals, side_facet, side_sign, side_key, seed,
+                     replicates, per_replicate, target, segment_start, rigid_index, rigid_target,
                      rigid_start, rigid_origin, rigid_direction, out_origin, out_direction):
     """Origins and directions of the escaping rays of a step, grouped by (side, replicate)
     as :func:`vfactor.tracing.heat_kernels.fill_cache` lays them out.
 
     Parameters
     ----------
+    side_key : as for :func:`trace_targets_in`
     target : (s, replicates * per_replicate) int32 — first hits at this step
     segment_start : (s * replicates + 1,) int64 — rows of the output per (side, replicate)
     rigid_index : (s,) int64 — row of the side in ``rigid_target``, -1 for a turning side
@@ -184,7 +192,8 @@ def compose_escaping(vertices, triangles, normals, side_facet, side_sign, seed, 
         q = rigid_index[s]
         f = side_facet[s]
         sign = side_sign[s]
-        stream = side_stream(PURPOSE_PLANET, f, sign)
+        stream = side_key[0][s]
+        k0 = side_key[1][s] * per_replicate
         src = rigid_start[q] if q >= 0 else 0
         for r in range(replicates):
             row = segment_start[s * replicates + r]
@@ -200,6 +209,6 @@ def compose_escaping(vertices, triangles, normals, side_facet, side_sign, seed, 
                         row += 1
                     src += 1
                 elif target[s, j] == TARGET_ESCAPE:
-                    put_ray(vertices, triangles, normals, f, sign, seed, stream, r, k, row,
+                    put_ray(vertices, triangles, normals, f, sign, seed, stream, r, k0 + k, row,
                              out_origin, out_direction)
                     row += 1

@@ -33,7 +33,7 @@ import numpy as np
 from numba import njit, prange
 
 from .config import JIT, JIT_PARALLEL
-from .side_rays import PURPOSE_PLANET, side_ray, side_stream
+from .side_rays import side_ray
 from .traverse import any_hit
 
 __all__ = ["planet_step", "planet_uncached", "planet_ray_cos", "CULL_MARGIN"]
@@ -249,8 +249,8 @@ def _zero_rows(count, row_hit, row_mu, slot0, slot1):
 
 
 @njit(**JIT_PARALLEL)
-def planet_uncached(arrays, vertices, triangles, normals, side_facet, side_sign, seed,
-                    replicates, per_replicate, centre, radius, sun, out_seen, out_blocked):
+def planet_uncached(arrays, vertices, triangles, normals, side_facet, side_sign, side_key,
+                    seed, replicates, per_replicate, centre, radius, sun, out_seen, out_blocked):
     """Per step, without the cache: re-trace every ray against the vehicle, then the planet.
 
     Same outputs (segment ``s * replicates + r``) and the same rays as
@@ -259,6 +259,8 @@ def planet_uncached(arrays, vertices, triangles, normals, side_facet, side_sign,
 
     Parameters
     ----------
+    side_key : tuple (stream (s,) uint64, rank (s,) int64) — each side's planet-ray
+        sequence (:func:`vfactor.tracing.side_rays.planet_ray_keys`)
     out_seen : (2, g) float64, written — rays that escape the vehicle and meet the planet,
         and the sum over them of max(0, cos solar zenith)
     out_blocked : (2, g) float64, written — the same for the rays the vehicle blocks (the
@@ -273,7 +275,8 @@ def planet_uncached(arrays, vertices, triangles, normals, side_facet, side_sign,
     for s in prange(side_facet.shape[0]):
         f = side_facet[s]
         sign = side_sign[s]
-        stream = side_stream(PURPOSE_PLANET, f, sign)
+        stream = side_key[0][s]
+        k0 = side_key[1][s] * per_replicate
         for r in range(replicates):
             hits = 0.0
             cos_sum = 0.0
@@ -281,7 +284,7 @@ def planet_uncached(arrays, vertices, triangles, normals, side_facet, side_sign,
             blocked_cos = 0.0
             for k in range(per_replicate):
                 x, y, z, dx, dy, dz = side_ray(vertices, triangles, normals, f, sign, seed,
-                                                stream, r, k)
+                                                stream, r, k0 + k)
                 hit, mu = _sphere(x, y, z, dx, dy, dz, cx, cy, cz, radius, sx, sy, sz)
                 if not hit:
                     continue
