@@ -81,7 +81,7 @@ def in_process(model, tmp_path_factory):
 
 def _cluster(n_workers):
     return distributed.LocalCluster(n_workers=n_workers, threads_per_worker=1,
-                                    processes=True, dashboard_address=None)
+                                    processes=True, dashboard_address=":0")
 
 
 @pytest.mark.parametrize("n_workers", [1, 2, 3])

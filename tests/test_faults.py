@@ -464,8 +464,9 @@ def test_workers_die_with_their_parent(tmp_path, capsys, how):
         while _running(everyone) and time.monotonic() - t0 < 10:
             time.sleep(0.05)
         gone_after = time.monotonic() - t0
+        # within the 10 s of the loop above: measured ~0.1 s (SIGKILL) and ~1 s (SIGTERM,
+        # SIGINT) on a quiet machine, 5.4 s for SIGTERM on a 2-core machine at load 6
         assert _running(everyone) == set(), f"still running {gone_after:.1f} s after {how}"
-        assert gone_after < 5.0  # measured ~0.1 s (SIGKILL) and ~1 s (SIGTERM, SIGINT)
         _, err = parent.communicate(timeout=30)
     finally:
         if parent.poll() is None:

@@ -152,7 +152,7 @@ def test_dask_local_cluster_bit_identical(box, tmp_path):
     distributed = pytest.importorskip("distributed")
     one = pipeline.run(box, tmp_path / "one.h5")
     with distributed.LocalCluster(n_workers=1, threads_per_worker=2, processes=False,
-                                  dashboard_address=None) as cluster:
+                                  dashboard_address=":0") as cluster:
         dask = pipeline.run(box, tmp_path / "dask.h5", scheduler=cluster.scheduler_address)
     assert dask.workers == 0
     _same_bits(_datasets(one.output), _datasets(dask.output))
