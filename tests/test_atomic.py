@@ -7,7 +7,7 @@ import stat
 
 import pytest
 
-from vfactor import atomic
+from vfactor import atomic, outputlock
 
 
 def test_temporary_names_are_hidden_ours_and_short_enough(tmp_path):
@@ -70,9 +70,9 @@ def test_inputs_are_refused_by_path_symlink_and_hard_link(tmp_path):
 
 def test_lock_is_exclusive_within_a_process_too(tmp_path):
     out = tmp_path / "r.h5"
-    with atomic.OutputLock(out) as lock:
-        assert lock.held and atomic.lock_path(out).exists()
+    with outputlock.OutputLock(out) as lock:
+        assert lock.held and outputlock.lock_path(out).exists()
         with pytest.raises(atomic.OutputBusyError, match=f"pid {os.getpid()}") as err:
-            atomic.OutputLock(out).acquire()  # flock: a second open file description
+            outputlock.OutputLock(out).acquire()  # flock: a second open file description
         assert "\n" not in str(err.value)
-    assert not atomic.lock_path(out).exists()
+    assert not outputlock.lock_path(out).exists()

@@ -26,7 +26,7 @@ import h5py
 import numpy as np
 import pytest
 
-from vfactor import atomic, cli, h5io, pipeline
+from vfactor import atomic, cli, h5io, outputlock, pipeline
 
 from conftest import DEMO_MODEL, REPO
 from results_sample import sample_results
@@ -357,8 +357,8 @@ def test_stale_temporaries_are_removed_by_the_next_write(results, box, tmp_path,
 # ---------------------------------------------------------------------------------------
 # One writer per results file
 # ---------------------------------------------------------------------------------------
-_HOLD_LOCK = ("import sys, time\nfrom vfactor import atomic\n"
-              "lock = atomic.OutputLock(sys.argv[1]).acquire()\n"
+_HOLD_LOCK = ("import sys, time\nfrom vfactor import outputlock\n"
+              "lock = outputlock.OutputLock(sys.argv[1]).acquire()\n"
               "print('held', flush=True)\ntime.sleep(120)\n")
 
 
@@ -368,7 +368,7 @@ def test_second_run_on_a_locked_output_is_refused(box, tmp_path, capsys):
                               stdout=subprocess.PIPE, text=True)
     try:
         assert holder.stdout.readline().strip() == "held"
-        lock = atomic.lock_path(out)
+        lock = outputlock.lock_path(out)
         text = lock.read_bytes()
         code, _, err = _cli(capsys, "run", box, "-o", out)
         line = _one_error_line(err)
@@ -378,25 +378,25 @@ def test_second_run_on_a_locked_output_is_refused(box, tmp_path, capsys):
         holder.kill()  # SIGKILL: the lock file stays behind, its holder dead
         holder.wait()
         holder.stdout.close()
-    assert atomic.lock_path(out).exists()
+    assert outputlock.lock_path(out).exists()
     code, _, err = _cli(capsys, "run", box, "-o", out)
     assert code == 0 and err == ""  # the stale lock is taken over ...
-    assert out.is_file() and not atomic.lock_path(out).exists()  # ... and removed at the end
+    assert out.is_file() and not outputlock.lock_path(out).exists()  # ... and removed at the end
 
 
 def test_lock_without_flock_takes_over_only_dead_holders(tmp_path, monkeypatch):
     # systems without fcntl (Windows): exclusive create, and the PID recorded decides
-    monkeypatch.setattr(atomic, "_fcntl", None)
+    monkeypatch.setattr(outputlock, "_fcntl", None)
     out = tmp_path / "x.h5"
-    lock = atomic.lock_path(out)
+    lock = outputlock.lock_path(out)
     import json
     import socket
 
     lock.write_text(json.dumps({"pid": _dead_pid(), "host": socket.gethostname()}))
-    with atomic.OutputLock(out):
+    with outputlock.OutputLock(out):
         assert json.loads(lock.read_text())["pid"] == os.getpid()
         with pytest.raises(atomic.OutputBusyError, match=f"pid {os.getpid()}"):
-            atomic.OutputLock(out).acquire()
+            outputlock.OutputLock(out).acquire()
     assert not lock.exists()
 
 
@@ -476,7 +476,7 @@ def test_workers_die_with_their_parent(tmp_path, capsys, how):
     if how == "SIGKILL":
         assert parent.returncode == -signal.SIGKILL
         assert left == ["run.h5.lock"]  # nobody could remove it: the next run takes it over
-        with atomic.OutputLock(out):
+        with outputlock.OutputLock(out):
             pass
         assert list(tmp_path.iterdir()) == []
     else:

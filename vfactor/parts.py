@@ -427,7 +427,7 @@ def _check_references(path: str, fname: str, base: Path, where: str, reader: Rea
     """Refuse a mesh file that makes its loader read a file outside the model's folder
     ``base`` (an XDMF DataItem naming /home/.../other.h5, an HDF5 external link, a glTF
     buffer beside a mesh file kept elsewhere), unless ``[model] allow_outside_files``."""
-    from vfactor.meshfile import referenced_files
+    from vfactor.meshrefs import referenced_files
 
     if not Path(path).is_file():
         return   # the geometry reports the missing file

@@ -43,7 +43,7 @@ from pathlib import Path
 
 import numpy as np
 
-from . import atomic
+from . import atomic, outputlock
 from .checkpoint import CHECKPOINT_SUFFIX, Checkpoint, checkpoint_path
 from .errors import ArgumentError
 from .interrupts import RunTerminated, signals_raise
@@ -166,7 +166,7 @@ def _model_inputs(model) -> list:
 def _refuse_overwriting_inputs(out: Path, model) -> None:
     """OutputError when the results file, its checkpoint or its lock file would replace the
     model file or a mesh file the model reads (``vfactor run sat.toml -o sat.toml``)."""
-    atomic.refuse_inputs([out, checkpoint_path(out), atomic.lock_path(out)],
+    atomic.refuse_inputs([out, checkpoint_path(out), outputlock.lock_path(out)],
                          _model_inputs(model),
                          hint="give the results another file name (e.g. run.h5)")
 
@@ -402,14 +402,14 @@ def run(model_path, output_path, *, rays=None, seed=None, workers=1, scheduler=N
 
     Notes
     -----
-    For the whole run this process holds ``OUT.h5.lock`` (:class:`vfactor.atomic.OutputLock`)
+    For the whole run this process holds ``OUT.h5.lock`` (:class:`vfactor.outputlock.OutputLock`)
     and turns SIGTERM and SIGHUP into :class:`RunTerminated`; worker processes die with it.
     """
     reporter = reporter or NullReporter()
     out = _check_arguments(output_path, rays, seed, workers, scheduler)
-    atomic.refuse_inputs(atomic.lock_path(out), [model_path],
+    atomic.refuse_inputs(outputlock.lock_path(out), [model_path],
                          hint="give the results another file name (e.g. run.h5)")
-    with signals_raise(), atomic.OutputLock(out):
+    with signals_raise(), outputlock.OutputLock(out):
         return _run(model_path, out, rays=rays, seed=seed, workers=workers,
                     scheduler=scheduler, resume=resume, facet_factors=facet_factors,
                     reporter=reporter, only_cases=cases)
