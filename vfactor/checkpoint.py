@@ -32,7 +32,10 @@ __all__ = ["Checkpoint", "PairSection", "StepSection", "checkpoint_path", "CHECK
            "CHECKPOINT_EVERY_S"]
 
 CHECKPOINT_SUFFIX = ".partial"
-_CHECKPOINT_KIND = "vfactor-checkpoint-3"
+#: Changes whenever the rays of a stage change for the same model and seed (4: the planet
+#: rays of the heating stage drawn from one sequence per node), so that a run never
+#: resumes from steps or tallies of other rays.
+_CHECKPOINT_KIND = "vfactor-checkpoint-4"
 #: Shortest time between two saves of the checkpoint [s].
 CHECKPOINT_EVERY_S = 5.0
 #: A save may take at most this share of the time between saves [1].
