@@ -107,7 +107,7 @@ MAX_RAYS_PER_ROUND = (1 << 32) - 1
 (:data:`vfactor.tracing.vf_kernels.MAX_RAYS_PER_ROUND` - 1; a test checks they agree)."""
 MAX_ROUNDS = 1 << 16
 """Most rounds a node may get (:data:`vfactor.tracing.vf_kernels.MAX_ROUNDS`)."""
-GROWTH_STEP, GROWTH_CAP, GROWTH_LIMIT = 4, 32, 1 << 24
+GROWTH_STEP, GROWTH_CAP, GROWTH_LIMIT = 8, 32, 1 << 24
 """Round sizes (:func:`vfactor.tracing.vf_kernels.round_rays`: rounds after the first grow
 by ``m`` every ``GROWTH_STEP`` rounds up to ``min(GROWTH_CAP, GROWTH_LIMIT // m)`` times
 ``m``, never below ``m``; a test checks they agree)."""

@@ -21,8 +21,8 @@ Units of work ("rounds")
 ------------------------
 A *round* is one independent randomised replicate: every node of the round emits
 ``round_rays(r, rays_per_round)`` rays (:func:`vfactor.tracing.vf_kernels.round_rays`:
-``rays_per_round`` in the first :data:`MIN_ROUNDS` rounds, more in the later rounds that
-only rows far from their target error reach), placed with a stratified, randomised
+``rays_per_round`` in the first 16 rounds, which hold the :data:`MIN_ROUNDS` every node
+gets, more in the later rounds that only rows far from their target error reach), placed with a stratified, randomised
 quasi-Monte Carlo design (see :mod:`vfactor.tracing.vf_kernels`). The tally of round ``r``
 for node ``i`` is a pure function of ``(geometry, seed, i, r, rays_per_round)``; tallies are
 integers, so any set of rounds summed in any order, on any number of threads or processes,
@@ -174,8 +174,8 @@ def trace_tallies(geometry, scene, node_indices, seed, rays_per_node, round_inde
         Sparse rows (``.toarray()`` gives the dense ``(k, n + 2)`` int64 counts): rays of
         each node whose first hit is node 0..n-1, space (column n) or an inert side
         (column n + 1); each row sums to ``round_rays(round_index, rays_per_node)``
-        (:func:`vfactor.tracing.vf_kernels.round_rays`: ``rays_per_node`` for the first
-        :data:`MIN_ROUNDS` rounds).
+        (:func:`vfactor.tracing.vf_kernels.round_rays`: ``rays_per_node`` for the first 16
+        rounds).
 
     Notes
     -----
@@ -359,9 +359,9 @@ def _plan_goal(sums: TallySums, ratio):
     estimate does not make it overshoot; otherwise to ``(1 + u / 2) P``, so that the next
     look decides. Few looks near the target matter for honesty: each is a chance to stop
     on an estimate that happens to be low (checked against the scatter over seeds in the
-    tests). On the demo (20 seeds, target 0.5 %) this takes 6.6 M rays where the former rule
+    tests). On the demo (20 seeds, target 0.5 %) this takes 6.8 M rays where the former rule
     (1.1 P with exponent 1, rounds of one size) took 9.9 M, with the reported errors as
-    close to the scatter over seeds (ratio 1.03 against 1.12).
+    close to the scatter over seeds (ratio 1.10 against 1.12).
     """
     rays = np.asarray(sums.rays, dtype=np.float64)
     k_eff = rays * rays / np.maximum(np.asarray(sums.rays_sq, dtype=np.float64), 1.0)

@@ -28,14 +28,14 @@ estimated from the spread between rounds (:func:`vfactor.tallystats.tally_statis
 
 Round sizes
 -----------
-Round ``r`` has :func:`round_rays` ``(r, m)`` rays: ``m`` in the first 8 rounds (every
-node's), then ``m`` more every :data:`GROWTH_STEP` rounds up to ``GROWTH_CAP m`` (fewer
+Round ``r`` has :func:`round_rays` ``(r, m)`` rays: ``m`` in the first 16 rounds (the 8
+every node gets and 8 more), then ``m`` more every :data:`GROWTH_STEP` rounds up to ``GROWTH_CAP m`` (fewer
 where that would pass :data:`GROWTH_LIMIT` rays: :func:`growth_cap`). The
 variance of a randomised QMC replicate falls faster than 1 / rays (measured on the demo's
 hardest couplings, per ray: rounds of 50 000 rays had about half the variance of rounds of
 12 500), so a row that needs many rays is better served by larger replicates, while the
 number of replicates, which sets how well the error itself is known, still grows (about
-``sqrt(8 N / m)`` rounds for ``N`` rays). Rounds of different sizes are combined by the
+``sqrt(16 N / m)`` rounds for ``N`` rays). Rounds of different sizes are combined by the
 ratio estimator in :func:`vfactor.tallystats.tally_statistics`.
 
 Within a full chunk the rays are traced in increasing ``u0``, so each ray's side is found
@@ -97,10 +97,12 @@ MAX_ROUNDS = 1 << 16
 #: Largest number of rays per node in one round (32 bits of ray index).
 MAX_RAYS_PER_ROUND = 1 << 32
 #: Round sizes (see :func:`round_rays`): rounds ``r >= 2 GROWTH_STEP`` have
-#: ``min(r // GROWTH_STEP, GROWTH_CAP)`` times the rays of the first rounds (demo, 20
-#: seeds, target 0.5 %: a step of 4 rounds needed 5.9 M rays, 8 rounds 6.2 M, 16 rounds
-#: 7.0 M, rounds all of one size 7.1 M). The first 8 rounds (``MIN_ROUNDS``) keep ``m``.
-GROWTH_STEP = 4
+#: ``min(r // GROWTH_STEP, growth_cap(m))`` times the rays of the first rounds. Measured with
+#: adaptive rounds (target 0.5 % on the demo, 20 seeds; 0.3 % on the catalog squares, 320
+#: estimates): a step of 4 rounds took 6.6 M rays on the demo, but its errors, known from
+#: fewer rounds, came out too small on the squares (mean z^2 1.26); a step of 8 rounds took
+#: 6.8 M with mean z^2 0.99; rounds all of one size took 9.9 M.
+GROWTH_STEP = 8
 GROWTH_CAP = 32
 #: Rounds grow to at most this many rays (or stay at ``m`` when ``m`` is larger), which
 #: keeps the int64 sums of squared tallies as far from overflow as rounds of one size.
@@ -339,13 +341,13 @@ def round_rays(round_index, rays_per_round):
     """Rays a node emits in round ``r`` of a computation with ``rays_per_round = m``:
     ``m * clip(r // GROWTH_STEP, 1, growth_cap(m))`` (array in, array out).
 
-    The first ``2 GROWTH_STEP`` rounds (the ``MIN_ROUNDS = 8`` rounds every node gets) have
-    ``m`` rays; later rounds, which only rows that need many rays reach, grow by ``m`` every
-    ``GROWTH_STEP`` rounds up to :func:`growth_cap` ``(m) m``.
+    The first ``2 GROWTH_STEP = 16`` rounds (the ``MIN_ROUNDS = 8`` rounds every node gets
+    and 8 more) have ``m`` rays; later rounds, which only rows that need many rays reach,
+    grow by ``m`` every ``GROWTH_STEP`` rounds up to :func:`growth_cap` ``(m) m``.
     A randomised quasi-Monte Carlo replicate of more rays has a smaller variance per ray
     (measured on the demo's hardest couplings: rounds of 50 000 rays had about half the
     variance per ray of rounds of 12 500), while the number of replicates, which sets how
-    well the error itself is known, still grows with the rays (about ``sqrt(8 N / m)``
+    well the error itself is known, still grows with the rays (about ``sqrt(16 N / m)``
     rounds for ``N`` rays). A pure function of ``(r, m)``, so rounds stay units of work.
     """
     r = np.asarray(round_index, dtype=np.int64)
