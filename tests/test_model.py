@@ -300,6 +300,8 @@ def test_ray_limits_agree_with_the_kernels():
     assert model.MIN_ROUNDS == radiation.MIN_ROUNDS
     assert model.MAX_RAYS_PER_ROUND == vf_kernels.MAX_RAYS_PER_ROUND - 1
     assert model.MAX_ROUNDS == vf_kernels.MAX_ROUNDS
+    assert (model.GROWTH_STEP, model.GROWTH_CAP, model.GROWTH_LIMIT) == (
+        vf_kernels.GROWTH_STEP, vf_kernels.GROWTH_CAP, vf_kernels.GROWTH_LIMIT)
 
 
 def test_ray_limit_problem_bounds():

@@ -82,15 +82,17 @@ def _scene_with_sides():
     return make_geometry(sheets)
 
 
-def _oracle_pairs(g, pairs, seed, m, purpose):
-    """(counts, per-ray side ids, per-ray columns) rebuilt ray by ray in Python."""
+def _oracle_pairs(g, pairs, seed, m, purpose, lengths=None):
+    """(counts, per-ray side ids, per-ray columns) rebuilt ray by ray in Python; pair ``p``
+    emits ``lengths[p]`` rays (default ``m`` each)."""
     n = g.n_nodes
     ptr, facet, sign, cum, side_id = K.emitter_table(g.front_node, g.back_node, g.areas, n)
     counts = np.zeros((len(pairs), n + 2), np.int64)
     sides, cols = [], []
     for p, (node, rnd) in enumerate(pairs):
         O, D, E, S = [], [], [], []
-        for j in range(m):
+        size = m if lengths is None else int(lengths[p])
+        for j in range(size):
             u = r5_point_python(seed, purpose * STREAM_STRIDE + node, rnd, j)
             s = ptr[node] + int(np.searchsorted(cum[ptr[node]:ptr[node + 1]], u[0],
                                                 side="right"))
@@ -103,7 +105,7 @@ def _oracle_pairs(g, pairs, seed, m, purpose):
             S.append(s)
         hit, _, front, _, _ = moller_trumbore(np.array(O), np.array(D), g.vertices,
                                               g.triangles, exclude=np.array(E))
-        for k in range(m):
+        for k in range(size):
             if hit[k] < 0:
                 c = n
             else:
@@ -144,6 +146,58 @@ def test_vf_pairs_equals_ray_by_ray_oracle():
     np.testing.assert_array_equal(kin_emit[4][ray_side], ref_side)
     np.testing.assert_array_equal(ray_col, ref_col)
     assert counts[:, -2].sum() > 0 and counts[:, -1].sum() > 0    # space and inert seen
+
+
+def test_round_sizes_grow_after_the_first_rounds():
+    m = 7
+    sizes = K.round_rays(np.arange(200), m)
+    np.testing.assert_array_equal(sizes[:8], m)            # MIN_ROUNDS = 8 rounds of m
+    step = K.GROWTH_STEP
+    assert np.all(sizes[2 * step:] >= 2 * m) and np.all(np.diff(sizes) >= 0)
+    np.testing.assert_array_equal(sizes, m * np.clip(np.arange(200) // step, 1,
+                                                     K.GROWTH_CAP))
+    assert K.round_rays(10 ** 4, m) == K.GROWTH_CAP * m
+    big = K.GROWTH_LIMIT // 4                        # growth stops at GROWTH_LIMIT rays
+    assert K.round_rays(10 ** 4, big) == K.GROWTH_LIMIT
+    assert K.round_rays(10 ** 4, 3 * K.GROWTH_LIMIT) == 3 * K.GROWTH_LIMIT   # never cut
+    np.testing.assert_array_equal(K.rays_through([0, 8, 40], big),
+                                  np.cumsum(K.round_rays(np.arange(40), big))[[0, 7, 39]]
+                                  * [0, 1, 1])
+    np.testing.assert_array_equal(K.rays_through(np.arange(201), m),
+                                  np.concatenate([[0], np.cumsum(sizes)]))
+
+
+def test_vf_pairs_with_grown_rounds_and_windows_equals_oracle():
+    # Rounds past the first ones have more rays; a window (j_lo, j_hi) ends at each round's
+    # own length; full chunks (traced in sorted order) and small ones both appear.
+    g = _scene_with_sides()
+    sc = Scene.build(g.vertices, g.triangles)
+    emit = K.emitter_table(g.front_node, g.back_node, g.areas, g.n_nodes)
+    geo = (g.vertices, g.triangles, g.normals, g.front_node.astype(np.int64),
+           g.back_node.astype(np.int64))
+    m = 300
+    pairs = [(0, 2), (1, 17), (2, 41)]
+    lengths = K.round_rays([p[1] for p in pairs], m)
+    assert list(lengths) == [300, 600, 1500]
+    nodes, rounds = [p[0] for p in pairs], [p[1] for p in pairs]
+    counts, ray_side, ray_col = K.vf_pairs(sc.arrays, emit, geo, nodes, rounds, 5, m,
+                                           record=True)
+    ref, ref_side, ref_col = _oracle_pairs(g, pairs, 5, m, K.PURPOSE_VF, lengths)
+    np.testing.assert_array_equal(counts, ref)
+    np.testing.assert_array_equal(counts.sum(axis=1), lengths)
+    np.testing.assert_array_equal(emit[4][ray_side], ref_side)
+    np.testing.assert_array_equal(ray_col, ref_col)
+    parts = [K.vf_pairs(sc.arrays, emit, geo, nodes, rounds, 5, m, lo, hi)[0]
+             for lo, hi in ((0, 250), (250, 700), (700, 5000))]
+    np.testing.assert_array_equal(sum(parts), counts)
+    import numba
+    old = numba.get_num_threads()
+    try:
+        numba.set_num_threads(1)
+        one = K.vf_pairs(sc.arrays, emit, geo, nodes[::-1], rounds[::-1], 5, m)[0]
+    finally:
+        numba.set_num_threads(old)
+    np.testing.assert_array_equal(one[::-1], counts)          # threads, pair order
 
 
 def test_gebhart_pairs_with_black_nodes_is_a_first_hit_tally():

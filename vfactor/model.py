@@ -107,6 +107,10 @@ MAX_RAYS_PER_ROUND = (1 << 32) - 1
 (:data:`vfactor.tracing.vf_kernels.MAX_RAYS_PER_ROUND` - 1; a test checks they agree)."""
 MAX_ROUNDS = 1 << 16
 """Most rounds a node may get (:data:`vfactor.tracing.vf_kernels.MAX_ROUNDS`)."""
+GROWTH_STEP, GROWTH_CAP, GROWTH_LIMIT = 8, 32, 1 << 24
+"""Round sizes (:func:`vfactor.tracing.vf_kernels.round_rays`: rounds after the first grow
+by ``m`` every ``GROWTH_STEP`` rounds up to ``min(GROWTH_CAP, GROWTH_LIMIT // m)`` times
+``m``, never below ``m``; a test checks they agree)."""
 MAX_TALLY_SQUARES = (1 << 63) - 1
 """Largest sum over the rounds of a squared round tally the int64 sums can hold
 (:class:`vfactor.tallystats.TallySums.squares`)."""
@@ -117,8 +121,9 @@ def ray_limit_problem(rays_per_node: int, max_rays_per_node: int) -> str:
 
     A node's rays are split into at least :data:`MIN_ROUNDS` rounds of
     ``m = ceil(rays / 8)`` rays; ``m`` must fit the 32-bit ray index, and the sum over the
-    rounds of ``m^2`` (the worst case of one column taking every ray) must fit int64, with
-    up to ``max_rays_per_node // m`` rounds when ``target_error`` adds rounds.
+    rounds of their squared sizes (the worst case of one column taking every ray) must fit
+    int64: at most the largest round (see :data:`GROWTH_CAP`) times the rays, up to
+    ``max_rays_per_node`` when ``target_error`` adds rounds.
     """
     m = -(-int(rays_per_node) // MIN_ROUNDS)
     if m > MAX_RAYS_PER_ROUND:
@@ -126,7 +131,8 @@ def ray_limit_problem(rays_per_node: int, max_rays_per_node: int) -> str:
                 f"{MAX_RAYS_PER_ROUND} the 32-bit ray index holds; use at most "
                 f"{MIN_ROUNDS * MAX_RAYS_PER_ROUND}")
     rounds = min(MAX_ROUNDS, max(MIN_ROUNDS, int(max_rays_per_node) // m))
-    if rounds * m * m > MAX_TALLY_SQUARES:
+    largest = m * max(1, min(GROWTH_CAP, GROWTH_LIMIT // m))
+    if largest * max(int(max_rays_per_node), MIN_ROUNDS * m) > MAX_TALLY_SQUARES:
         return (f"{rays_per_node} rays per node (rounds of {m} rays, up to {rounds} rounds "
                 f"within max_rays_per_node = {max_rays_per_node}) overflow the 64-bit sums "
                 f"of squared tallies that give the error estimate; use fewer rays (10^9 per "

@@ -51,7 +51,6 @@ def run_pairs(runner, task, pair_node, pair_round, sums: TallySums, section, bar
 
     Returns the number of pairs taken from the checkpoint section.
     """
-    m = task.rays_per_round
     todo = np.ones(pair_node.size, bool)
     if section is not None:
         done_nodes, done_rows = [], []
@@ -62,8 +61,9 @@ def run_pairs(runner, task, pair_node, pair_round, sums: TallySums, section, bar
                 done_rows.append(row)
                 todo[p] = False
         if done_rows:
-            sums.add_pairs(done_nodes, PairTallies.concat(done_rows))
-            bar.advance(m * len(done_rows))
+            done = PairTallies.concat(done_rows)
+            sums.add_pairs(done_nodes, done)
+            bar.advance(int(done.row_sums().sum()))
     nodes, rounds = pair_node[todo], pair_round[todo]
     jobs = [(nodes[sl], rounds[sl])
             for sl in job_slices(nodes.size, _parallel(runner), section is not None)]
@@ -71,7 +71,7 @@ def run_pairs(runner, task, pair_node, pair_round, sums: TallySums, section, bar
         sums.add_pairs(job_nodes, tallies)
         if section is not None:
             section.add(job_rounds, job_nodes, tallies)
-        bar.advance(len(job_nodes) * m)
+        bar.advance(int(tallies.row_sums().sum()))
     return int((~todo).sum())
 
 

@@ -100,7 +100,7 @@ class TallyStatistics(NamedTuple):
     ----------
     mean : (n, n + 2) scipy.sparse.csr_array — hit fractions per row: nodes, space, inert [1]
     stderr : (n, n + 2) csr_array — one-sigma error of ``mean``, same pattern [1]
-    rays : (n,) int64 — rays emitted per row (rounds x rays per round)
+    rays : (n,) int64 — rays emitted per row (the sum of its rounds' rays)
     """
 
     mean: sp.csr_array
@@ -118,20 +118,31 @@ class TallySums:
     Attributes
     ----------
     n_nodes : int
-    rays_per_round : int — rays per node in every round (the same for all rounds)
+    rays_per_round : int — ``m``, the rays of the first rounds; every round has a positive
+        multiple of ``m`` rays (:func:`vfactor.tracing.vf_kernels.round_rays`)
     rounds : (n,) int64 — number of rounds added per row
-    counts, squares : (n, n + 2) csr_array (properties) — sum over rounds of the hit counts
-        of each entry and of their squares
+    rays, rays_sq : (n,) int64 — sum over a row's rounds of their rays and of its square
+    counts, squares, cross : (n, n + 2) csr_array (properties) — sum over rounds of the hit
+        counts ``c`` of each entry, of ``c^2`` and of ``c`` times the round's rays
     """
 
     n_nodes: int
     rays_per_round: int
     rounds: np.ndarray
+    rays: np.ndarray = None
+    rays_sq: np.ndarray = None
     _keys: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
     _sum: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
     _sq: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
+    _x: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
     _pending: list = field(default_factory=list)
     _pending_size: int = 0
+
+    def __post_init__(self):
+        if self.rays is None:
+            self.rays = np.zeros(self.n_nodes, np.int64)
+        if self.rays_sq is None:
+            self.rays_sq = np.zeros(self.n_nodes, np.int64)
 
     @classmethod
     def empty(cls, n_nodes: int, rays_per_round: int) -> "TallySums":
@@ -164,15 +175,20 @@ class TallySums:
                              f"({idx.size}, {self.n_cols}), got ({len(t)}, {t.n_cols})")
         if idx.size and (idx.min() < 0 or idx.max() >= self.n_nodes):
             raise ValueError(f"TallySums.add_pairs: nodes must be in 0..{self.n_nodes - 1}")
-        if np.any(t.row_sums() != self.rays_per_round):
-            raise ValueError(f"TallySums.add_pairs: every tally row must sum to "
-                             f"rays_per_round = {self.rays_per_round}")
+        rays = t.row_sums()
+        m = self.rays_per_round
+        if np.any((rays < m) | (rays % m != 0)):
+            raise ValueError(f"TallySums.add_pairs: every tally row must sum to a positive "
+                             f"multiple of rays_per_round = {m}")
         if idx.size == 0:
             return
-        keys = idx[t.row_ids()] * self.n_cols + t.cols
-        self._pending.append((keys, t.counts, t.counts * t.counts))
+        rows = t.row_ids()
+        keys = idx[rows] * self.n_cols + t.cols
+        self._pending.append((keys, t.counts, t.counts * t.counts, t.counts * rays[rows]))
         self._pending_size += keys.size
         np.add.at(self.rounds, idx, 1)
+        np.add.at(self.rays, idx, rays)
+        np.add.at(self.rays_sq, idx, rays * rays)
         if self._pending_size > max(1 << 22, self._keys.size):
             self._compact()
 
@@ -181,24 +197,27 @@ class TallySums:
         if other.rays_per_round != self.rays_per_round or other.n_nodes != self.n_nodes:
             raise ValueError("TallySums.merge: different rays_per_round or node count")
         other._compact()
-        self._pending.append((other._keys, other._sum, other._sq))
+        self._pending.append((other._keys, other._sum, other._sq, other._x))
         self._pending_size += other._keys.size
         self.rounds += other.rounds
+        self.rays += other.rays
+        self.rays_sq += other.rays_sq
         self._compact()
 
     def _compact(self) -> None:
         if not self._pending:
             return
         keys = np.concatenate([self._keys] + [p[0] for p in self._pending])
-        s = np.concatenate([self._sum] + [p[1] for p in self._pending])
-        q = np.concatenate([self._sq] + [p[2] for p in self._pending])
+        parts = [np.concatenate([own] + [p[i] for p in self._pending])
+                 for i, own in ((1, self._sum), (2, self._sq), (3, self._x))]
         order = np.argsort(keys, kind="stable")
-        keys, s, q = keys[order], s[order], q[order]
+        keys = keys[order]
+        parts = [a[order] for a in parts]
         starts = np.flatnonzero(np.r_[True, keys[1:] != keys[:-1]]) if keys.size else \
             np.zeros(0, np.int64)
         self._keys = keys[starts]
-        self._sum = np.add.reduceat(s, starts) if keys.size else s
-        self._sq = np.add.reduceat(q, starts) if keys.size else q
+        self._sum, self._sq, self._x = (np.add.reduceat(a, starts) if keys.size else a
+                                        for a in parts)
         self._pending = []
         self._pending_size = 0
 
@@ -218,6 +237,11 @@ class TallySums:
     def squares(self) -> sp.csr_array:
         self._compact()
         return self._csr(self._sq)
+
+    @property
+    def cross(self) -> sp.csr_array:
+        self._compact()
+        return self._csr(self._x)
 
     @property
     def nnz(self) -> int:
@@ -241,16 +265,27 @@ def tally_statistics(sums: TallySums) -> TallyStatistics:
 
     Notes
     -----
-    With ``K >= 2`` rounds of ``m`` rays, each round gives an independent unbiased estimate
-    ``p_r = c_r / m`` (randomised quasi-Monte Carlo replicates). The estimate is their mean
-    ``p = sum(c) / (K m)`` and its one-sigma error the standard error of the mean of the
-    replicates (Owen 2013, "Monte Carlo theory, methods and examples", ch. 17, eq. 17.3)::
+    With ``K >= 2`` rounds, round ``r`` of ``n_r`` rays gives an independent unbiased
+    estimate ``c_r / n_r`` (randomised quasi-Monte Carlo replicates). The estimate is the
+    share of all the row's rays, ``p = C / N`` (``C = sum c_r``, ``N = sum n_r``). When all
+    rounds have the same size ``m`` its one-sigma error is the standard error of the mean
+    of the replicates (Owen 2013, "Monte Carlo theory, methods and examples", ch. 17,
+    eq. 17.3)::
 
         sigma^2 = (K sum(c^2) - (sum c)^2) / (K^2 (K - 1) m^2)
 
-    computed in exact integer arithmetic before the one division. With a single round no
-    spread exists, and the binomial bound ``sqrt(p (1 - p) / m)`` of independent rays is
-    reported instead (conservative: stratification only lowers the variance).
+    computed in exact integer arithmetic before the one division. When the sizes differ
+    (rows that got the larger later rounds), each replicate keeps its own variance, and the
+    error is the ratio (cluster) estimator's, with the ``K / (K - 1)`` factor that makes it
+    the formula above for equal sizes (Cochran 1977, "Sampling techniques", 3rd ed.,
+    eq. 6.13 with clusters as the replicates)::
+
+        sigma^2 = K / (K - 1) * sum (c_r - p n_r)^2 / N^2,
+
+    expanded as ``sum c^2 - 2 p sum c n + p^2 sum n^2`` over the integer sums. With a
+    single round no spread exists, and the binomial bound ``sqrt(p (1 - p) / m)`` of
+    independent rays is reported instead (conservative: stratification only lowers the
+    variance).
     """
     rounds = np.asarray(sums.rounds, dtype=np.int64)
     m = int(sums.rays_per_round)
@@ -259,7 +294,8 @@ def tally_statistics(sums: TallySums) -> TallyStatistics:
         raise ValueError(f"tally_statistics: rows {bad[:10].tolist()} have no rounds")
     counts = sums.counts
     squares = sums.squares
-    rays = rounds * m
+    rays = np.asarray(sums.rays, dtype=np.int64)
+    uniform_row = rays == rounds * m
     row = row_ids(counts)
     c = counts.data.astype(np.int64)
     q = squares.data.astype(np.int64)
@@ -273,6 +309,14 @@ def tally_statistics(sums: TallySums) -> TallyStatistics:
     kf = k.astype(np.float64)
     with np.errstate(invalid="ignore", divide="ignore"):
         var = np.where(kf > 1, np.maximum(num, 0.0) / (kf * kf * (kf - 1.0) * m * m), 0.0)
+        if not uniform_row.all():
+            x = sums.cross.data.astype(np.float64)
+            nf = rays[row].astype(np.float64)
+            s2 = np.asarray(sums.rays_sq, dtype=np.float64)[row]
+            resid = q.astype(np.float64) - 2.0 * mean * x + mean * mean * s2
+            general = np.where(kf > 1, kf / (kf - 1.0) * np.maximum(resid, 0.0) / (nf * nf),
+                               0.0)
+            var = np.where(uniform_row[row], var, general)
     binomial = mean * (1.0 - mean) / rays[row]
     var = np.where(kf > 1, var, binomial)
     shape = counts.shape
