@@ -33,8 +33,8 @@ __all__ = ["Checkpoint", "PairSection", "StepSection", "checkpoint_path", "CHECK
 
 CHECKPOINT_SUFFIX = ".partial"
 #: Changes whenever the rays of a stage change for the same model and seed (4: the planet
-#: rays of the heating stage drawn from one sequence per node), so that a run never
-#: resumes from steps or tallies of other rays.
+#: rays of the heating stage drawn from one sequence per node; view-factor rounds after
+#: the 16th larger), so that a run never resumes from steps or tallies of other rays.
 _CHECKPOINT_KIND = "vfactor-checkpoint-4"
 #: Shortest time between two saves of the checkpoint [s].
 CHECKPOINT_EVERY_S = 5.0
