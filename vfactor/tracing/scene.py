@@ -35,6 +35,7 @@ from __future__ import annotations
 
 from typing import NamedTuple
 
+import numba
 import numpy as np
 from numba import njit, prange
 
@@ -232,7 +233,8 @@ def _closest_kernel(arrays, origins, directions, tmax, exclude, facet, distance,
         front[i] = fr
 
 
-#: Rays per chunk of the batch query (each chunk is traced as one interleaved stream).
+#: Most rays per chunk of the batch query (each chunk is traced as one interleaved
+#: stream; smaller batches are cut into at least 8 chunks per thread).
 _CHUNK = 1024
 #: Tree size (nodes and leaf blocks) above which batch queries trace rays side by side
 #: (:func:`vfactor.tracing.traverse.closest_hit_stream`): where the tree no longer fits in
@@ -244,12 +246,12 @@ STREAM_BYTES = 32 << 20
 
 @njit(**JIT_PARALLEL)
 def _closest_stream_kernel(arrays, origins, directions, tmax, exclude, facet, distance, front,
-                           n_lanes):
+                           n_lanes, chunk):
     n = origins.shape[0]
-    n_chunks = (n + _CHUNK - 1) // _CHUNK
+    n_chunks = (n + chunk - 1) // chunk
     for c in prange(n_chunks):
-        lo = c * _CHUNK
-        hi = min(n, lo + _CHUNK)
+        lo = c * chunk
+        hi = min(n, lo + chunk)
         closest_hit_stream(arrays, origins, directions, tmax, exclude, lo, hi, facet,
                            distance, front, n_lanes)
 
@@ -363,8 +365,9 @@ class Scene:
         front = np.empty(r, dtype=np.bool_)
         if r:
             if self.stream_lanes > 0:
+                chunk = min(_CHUNK, max(64, -(-r // (8 * numba.get_num_threads()))))
                 _closest_stream_kernel(self.arrays, o, d, tm, ex, facet, distance, front,
-                                       self.stream_lanes)
+                                       self.stream_lanes, chunk)
             else:
                 _closest_kernel(self.arrays, o, d, tm, ex, facet, distance, front)
         return Hits(facet, distance, front)
