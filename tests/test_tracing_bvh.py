@@ -26,7 +26,7 @@ def _lane_box(tree, n, c):
 
 
 def _check_tree(tree, vertices, triangles, max_leaf):
-    seen = np.zeros(tree.tri.shape[0], dtype=int)
+    seen = np.zeros(tree.n_facets, dtype=int)
     visited = {0}
     for n, c, ref in _walk(tree):
         box = _lane_box(tree, n, c)
@@ -43,12 +43,16 @@ def _check_tree(tree, vertices, triangles, max_leaf):
             assert count <= max_leaf
             if count == 0:
                 assert (box[:3] == np.inf).all() and (box[3:] == -np.inf).all()
-            seen[first:first + count] += 1
-            for r in range(first, first + count):
-                p = tree.tri[r].reshape(3, 3)
+                continue
+            # A leaf's triangles fill whole blocks from lane 0 (first is a block index).
+            assert 0 <= first and first + (count - 1) // bvh.TRI_LANES < len(tree.leaf_tri)
+            ids, rows = tree.leaf(ref)
+            seen[ids] += 1
+            for p in rows.reshape(-1, 3, 3):
                 # Float32 boxes enclose the float64 vertices exactly (outward rounding).
                 assert (box[:3] <= p.min(axis=0)).all() and (box[3:] >= p.max(axis=0)).all()
-    assert (seen == 1).all()                   # every triangle in exactly one leaf
+    # every triangle in exactly one leaf
+    assert (seen[tree.tri_ids] == 1).all() and seen.sum() == len(tree.tri_ids)
     assert len(visited) == tree.n_nodes
     # Rows of tri are the original facets given by tri_ids.
     np.testing.assert_array_equal(tree.tri.reshape(-1, 3, 3),
@@ -104,7 +108,7 @@ def test_refit_matches_rebuild():
     v1 = (v0 * [1.0, 1.3, 0.8]) @ rot.T + [0.2, -0.1, 3.0]
     scene.refit(v1)
     assert all(a is b for a, b in zip(arrays_before, scene.arrays))   # in place
-    _check_tree(scene.bvh, v1, tris, 4)
+    _check_tree(scene.bvh, v1, tris, 12)          # Scene.build default max_leaf
     fresh = Scene.build(v1, tris)
     o = g.uniform(-3, 3, (20000, 3)) + [0.2, -0.1, 3.0]
     # Half aimed at vertices of the moved mesh, half at random.

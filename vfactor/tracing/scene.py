@@ -1,7 +1,10 @@
 """Scene: a BVH over the facets of a model, with batch ray queries.
 
 Batch queries (:meth:`Scene.closest_hit`, :meth:`Scene.occluded`) take numpy arrays of rays
-and run in parallel over the rays. Fused kernels (sample -> trace -> tally inside numba)
+and run in parallel over the rays; on trees larger than :data:`STREAM_BYTES`
+:meth:`Scene.closest_hit` traces 16 rays side by side per thread
+(:func:`vfactor.tracing.traverse.closest_hit_stream`, bit-identical answers), rays kept in
+their input order. Fused kernels (sample -> trace -> tally inside numba)
 call the device functions of :mod:`vfactor.tracing.traverse` directly with
 :attr:`Scene.arrays`; :func:`count_cosine_hits` is the pattern to copy:
 
@@ -32,6 +35,7 @@ from __future__ import annotations
 
 from typing import NamedTuple
 
+import numba
 import numpy as np
 from numba import njit, prange
 
@@ -40,7 +44,7 @@ from . import bvh as _bvh
 from .config import JIT, JIT_PARALLEL, TASK_RAYS
 from .rng import uniform4
 from .sampling import cosine_direction, triangle_point
-from .traverse import any_hit, closest_hit
+from .traverse import STREAM_RAYS, any_hit, closest_hit, closest_hit_stream
 
 __all__ = ["Scene", "Hits", "CosineTally", "rays_by_area", "ray_tasks", "cosine_rays",
            "count_cosine_hits"]
@@ -229,6 +233,29 @@ def _closest_kernel(arrays, origins, directions, tmax, exclude, facet, distance,
         front[i] = fr
 
 
+#: Most rays per chunk of the batch query (each chunk is traced as one interleaved
+#: stream; smaller batches are cut into at least 8 chunks per thread).
+_CHUNK = 1024
+#: Tree size (nodes and leaf blocks) above which batch queries trace rays side by side
+#: (:func:`vfactor.tracing.traverse.closest_hit_stream`): where the tree no longer fits in
+#: the last-level cache the waits for memory dominate, and interleaving 16 rays per
+#: thread hides them (+20-60 % measured at 1e6 triangles); below, one ray at a time is
+#: faster (-25 % with streams at 1e4 triangles: the bookkeeping costs more than it hides).
+STREAM_BYTES = 32 << 20
+
+
+@njit(**JIT_PARALLEL)
+def _closest_stream_kernel(arrays, origins, directions, tmax, exclude, facet, distance, front,
+                           n_lanes, chunk):
+    n = origins.shape[0]
+    n_chunks = (n + chunk - 1) // chunk
+    for c in prange(n_chunks):
+        lo = c * chunk
+        hi = min(n, lo + chunk)
+        closest_hit_stream(arrays, origins, directions, tmax, exclude, lo, hi, facet,
+                           distance, front, n_lanes)
+
+
 @njit(**JIT_PARALLEL)
 def _occluded_kernel(arrays, origins, directions, tmax, exclude, out):
     for i in prange(origins.shape[0]):
@@ -250,11 +277,14 @@ class Scene:
         self.vertices = vertices
         self.triangles = triangles
         self.bvh = tree
+        #: Rays traced side by side per thread by :meth:`closest_hit` (0: one at a time);
+        #: answers are bit-identical either way, only the speed differs.
+        self.stream_lanes = STREAM_RAYS if tree.nbytes > STREAM_BYTES else 0
         self.normals = np.empty((triangles.shape[0], 3))
         _facet_normals(vertices, triangles, self.normals)
 
     @classmethod
-    def build(cls, vertices, triangles, max_leaf=4, n_bins=16):
+    def build(cls, vertices, triangles, max_leaf=12, n_bins=16):
         """Build the BVH of a triangle mesh.
 
         Parameters
@@ -283,9 +313,9 @@ class Scene:
 
     @property
     def arrays(self):
-        """``(nodes, nodes_i, tri, tri_ids)``: what the device functions take."""
+        """``(nodes, nodes_i, leaf_tri, leaf_tri_i)``: what the device functions take."""
         t = self.bvh
-        return (t.nodes, t.nodes_i, t.tri, t.tri_ids)
+        return (t.nodes, t.nodes_i, t.leaf_tri, t.leaf_tri_i)
 
     @property
     def n_facets(self):
@@ -334,7 +364,12 @@ class Scene:
         distance = np.empty(r)
         front = np.empty(r, dtype=np.bool_)
         if r:
-            _closest_kernel(self.arrays, o, d, tm, ex, facet, distance, front)
+            if self.stream_lanes > 0:
+                chunk = min(_CHUNK, max(64, -(-r // (8 * numba.get_num_threads()))))
+                _closest_stream_kernel(self.arrays, o, d, tm, ex, facet, distance, front,
+                                       self.stream_lanes, chunk)
+            else:
+                _closest_kernel(self.arrays, o, d, tm, ex, facet, distance, front)
         return Hits(facet, distance, front)
 
     def occluded(self, origins, directions, tmax, exclude=None):
