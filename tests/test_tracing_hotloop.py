@@ -2,7 +2,7 @@
 
 The tree keeps its triangles in leaf blocks of TRI_LANES triangles tested as vector code
 (``traverse._triangle_lanes``), and batch queries trace several rays side by side
-(``traverse.closest_hit_stream``). Checked here, on random rays and on adversarial ones
+(``streams.closest_hit_stream``). Checked here, on random rays and on adversarial ones
 (aimed exactly at shared vertices and edge points, grazing along faces, axis-aligned):
 
 - every lane of the block test gives the bits (hit, t, det) of the scalar watertight test;

@@ -3,7 +3,7 @@
 Batch queries (:meth:`Scene.closest_hit`, :meth:`Scene.occluded`) take numpy arrays of rays
 and run in parallel over the rays; on trees larger than :data:`STREAM_BYTES`
 :meth:`Scene.closest_hit` traces 16 rays side by side per thread
-(:func:`vfactor.tracing.traverse.closest_hit_stream`, bit-identical answers), rays kept in
+(:func:`vfactor.tracing.streams.closest_hit_stream`, bit-identical answers), rays kept in
 their input order. Fused kernels (sample -> trace -> tally inside numba)
 call the device functions of :mod:`vfactor.tracing.traverse` directly with
 :attr:`Scene.arrays`; :func:`count_cosine_hits` is the pattern to copy:
@@ -44,7 +44,8 @@ from . import bvh as _bvh
 from .config import JIT, JIT_PARALLEL, TASK_RAYS
 from .rng import uniform4
 from .sampling import cosine_direction, triangle_point
-from .traverse import STREAM_RAYS, any_hit, closest_hit, closest_hit_stream
+from .streams import STREAM_RAYS, closest_hit_stream
+from .traverse import any_hit, closest_hit
 
 __all__ = ["Scene", "Hits", "CosineTally", "rays_by_area", "ray_tasks", "cosine_rays",
            "count_cosine_hits"]
@@ -237,7 +238,7 @@ def _closest_kernel(arrays, origins, directions, tmax, exclude, facet, distance,
 #: stream; smaller batches are cut into at least 8 chunks per thread).
 _CHUNK = 1024
 #: Tree size (nodes and leaf blocks) above which batch queries trace rays side by side
-#: (:func:`vfactor.tracing.traverse.closest_hit_stream`): where the tree no longer fits in
+#: (:func:`vfactor.tracing.streams.closest_hit_stream`): where the tree no longer fits in
 #: the last-level cache the waits for memory dominate, and interleaving 16 rays per
 #: thread hides them (+20-60 % measured at 1e6 triangles); below, one ray at a time is
 #: faster (-25 % with streams at 1e4 triangles: the bookkeeping costs more than it hides).
