@@ -26,21 +26,6 @@ def rectangle(center, u, v, size_u, size_v):
     return verts, np.array([[0, 1, 2], [0, 2, 3]])
 
 
-def grid(center, u, v, size_u, size_v, cells):
-    """A rectangle as ``cells`` x ``cells`` squares of two triangles; front normal = u x v."""
-    c = np.asarray(center, float)
-    u = np.asarray(u, float)
-    v = np.asarray(v, float)
-    s = np.linspace(-0.5, 0.5, cells + 1)
-    verts = np.array([c + a * size_u * u + b * size_v * v for b in s for a in s])
-    tris = []
-    for j in range(cells):
-        for i in range(cells):
-            q = j * (cells + 1) + i
-            tris += [[q, q + 1, q + cells + 2], [q, q + cells + 2, q + cells + 1]]
-    return verts, np.array(tris)
-
-
 def icosphere(radius, subdivisions=3, center=(0, 0, 0)):
     import trimesh
 

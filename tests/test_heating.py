@@ -203,17 +203,17 @@ def test_one_ray_sequence_per_node_lowers_the_error_of_a_many_facet_plate():
     # (vfactor.tracing.side_rays): where the sides see nearly the same silhouette (a
     # 0.2 m plate of 128 facets, facing nadir, a 1 m panel 2 m below it hiding part of the
     # planet), their errors cancel in the node's sum. At equal rays the scatter over seeds
-    # must be well below that of one sequence per side (measured 2.3 x here; 1 to 2.3 x on
-    # other layouts, hence the margin), both designs must agree (unbiased, within
+    # must be well below that of one sequence per side (2.7 x over these 32 seeds, 3.7 x
+    # over 80; 1 to 2.3 x on other layouts, hence the margin), both designs must agree (unbiased, within
     # K_SIGMA), and the reported one-sigma error must still cover the scatter (replicate
     # spread, Owen 2013 ch. 17).
-    from heating_helpers import grid
+    from radiation_shapes import rectangle as grid
     from vfactor import heatstep
     from vfactor.heating import HeatingSteps
 
     coats = {"c": Coating("c", 0.5, 0.8), "k": Coating("k", 0.9, 0.9)}
     geo = make_geometry([
-        dict(mesh=grid((0, 0, 0), (1, 0, 0), (0, 1, 0), 0.2, 0.2, 8),
+        dict(mesh=grid((-0.1, -0.1, 0), (0.2, 0, 0), (0, 0.2, 0), 8, 8),
              front=("c", "top"), back=("c", "bottom")),
         dict(mesh=rectangle((0.6, 0, -2.0), (1, 0, 0), (0, 1, 0), 1.0, 1.0),
              front=("k", "panel"), back=None)], coats)
@@ -221,7 +221,7 @@ def test_one_ray_sequence_per_node_lowers_the_error_of_a_many_facet_plate():
     tr = make_trajectory([[1, 0, 0]], [0, 0, -1], EARTH_R + 500e3)
     env = Environment("custom", S0, 0.0, 237.0)
     i = geo.nodes.index("bottom")
-    seeds = 16
+    seeds = 32
     node_design, side_design, sigmas = [], [], []
     for seed in range(1, seeds + 1):
         task = HeatingSteps.of(geo, scene, tr, env, seed=seed, rays_per_facet=64,
@@ -237,9 +237,11 @@ def test_one_ray_sequence_per_node_lowers_the_error_of_a_many_facet_plate():
     assert scatter < 0.7 * side_scatter
     assert abs(node_design.mean() - side_design.mean()) < K_SIGMA * math.hypot(
         scatter, side_scatter) / math.sqrt(seeds)
-    # 16 seeds: the sample std lies within 0.6..1.45 of sigma with probability ~0.99
-    # (chi distribution, 15 degrees of freedom)
-    assert 0.6 < scatter / np.mean(sigmas) < 1.45
+    # 32 seeds: the sample std lies within 0.68..1.33 of sigma with probability 0.99
+    # (chi distribution, 31 degrees of freedom, scipy.stats.chi2); sigma as the rms of the
+    # reported errors (measured 1.23 here, 1.01 over 80 seeds)
+    rms_sigma = math.sqrt(np.mean(np.square(sigmas)))
+    assert 0.68 < scatter / rms_sigma < 1.33
 
 
 def test_small_sphere_planet_ir():
