@@ -366,3 +366,24 @@ def test_altitude_that_looks_like_metres_is_a_warning(write_model):
     assert "[orbit] altitude_km" in w and "550000" in w and "metres" in w
     # geostationary altitude (35 786 km, common practice) is ordinary: no warning
     assert warnings_of(check_model(write_model(BOX + ORBIT.format(alt=35786.0)))) == []
+
+
+@pytest.mark.parametrize("rays, alpha, eps, warns", [
+    (4_000, 0.3, 0.1, True),      # aluminium-like, few rays: the couplings are uncertain
+    (4_000, 0.9, 0.9, False),     # little is reflected
+    (200_000, 0.3, 0.1, False),   # 2.2 % on a 1 % view factor: below the 5 % threshold
+])
+def test_reflective_coatings_with_few_rays_warn_that_load_errors_leave_couplings_out(
+        write_model, rays, alpha, eps, warns):
+    # The heat loads' +- is the spread of the heating replicates; the couplings that
+    # redistribute reflected power are the same in each, so their error is not in it. The
+    # 1 % view factor's error is the binomial sqrt((1 - F) / (F N)) (Howell, Menguc & Siegel,
+    # Thermal Radiation Heat Transfer, 6th ed., ch. 7): 15.7 % at N = 4000.
+    path = write_model(f'[coatings.al]\nsolar_absorptivity = {alpha}\n'
+                       f'ir_emissivity = {eps}\n[radiation]\nrays_per_node = {rays}\n' + BOX
+                       .replace('coating = "w"', 'coating = "al"'), coatings=False)
+    lines = [p.line() for p in check_model(path).warnings if "leaves that error out" in p.line()]
+    assert bool(lines) == warns, lines
+    if warns:
+        assert "'al' (90 % of the infrared band)" in lines[0] and "16 %" in lines[0]
+        assert "use at least 39600 rays" in lines[0] and "\n" not in lines[0]

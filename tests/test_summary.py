@@ -148,3 +148,24 @@ def test_many_nodes_are_summed_by_part(results, monkeypatch):
     assert "Nodes by part (2 nodes" in text and "Couplings to deep space by part" in text
     assert "nodes of largest orbit-average load" in text
     assert "Nodes by part" not in summary.format_summary(r, top=1, all_nodes=True)
+
+
+def test_reflection_warning_names_the_nodes_that_take_reflected_power():
+    # Absorbed = direct (alpha x incident) + what arrives after reflections; a node whose
+    # reflected share passes REFLECTED_WARNING_SHARE is warned about when the couplings are
+    # uncertain, and not when they are not (arithmetic of the definitions, no source needed).
+    from types import SimpleNamespace
+
+    from vfactor.summary import RELATIVE_ERROR_WARNING, _reflection_warnings
+
+    nodes = SimpleNamespace(names=("a", "b"), solar_absorptivity=np.array([0.5, 0.5]),
+                            ir_emissivity=np.array([1.0, 1.0]))
+    incident = np.array([[10.0, 2.0], [10.0, 2.0]])
+    heat = SimpleNamespace(node_solar=np.array([[5.2, 1.5], [5.2, 1.5]]),   # b: 1/3 reflected
+                           incident_solar=incident, node_albedo=np.zeros((2, 2)),
+                           incident_albedo=np.zeros((2, 2)), node_planet_ir=incident.copy(),
+                           incident_planet_ir=incident)
+    lines = _reflection_warnings(heat, nodes, 2 * RELATIVE_ERROR_WARNING)
+    assert len(lines) == 1 and "1 node(s)" in lines[0] and "'b': 33 %" in lines[0]
+    assert "absorbed solar" in lines[0] and "--seed" in lines[0]
+    assert _reflection_warnings(heat, nodes, 0.5 * RELATIVE_ERROR_WARNING) == []

@@ -76,6 +76,39 @@ def _warnings(names, inert, relative_error, dropped=None) -> list:
     return out
 
 
+REFLECTED_WARNING_SHARE = 0.10
+"""Share of a node's absorbed source that arrives after reflections inside the vehicle above
+which the summary says that the loads' errors leave the couplings' error out, when the couplings
+are uncertain (:data:`RELATIVE_ERROR_WARNING`) [1] (a threshold of our own)."""
+
+
+def _reflection_warnings(heat, nodes, relative_error) -> list:
+    """The heat loads' one-sigma errors are the spread of the heating replicates; the diffuse
+    couplings that redistribute reflected power are the same in every replicate, so their
+    own error is not in it (see ``vfactor check``). Warn where reflected power is a large
+    share of what is absorbed and the couplings are uncertain."""
+    if not relative_error > RELATIVE_ERROR_WARNING:
+        return []
+    out = []
+    for src, prop in (("solar", nodes.solar_absorptivity), ("albedo", nodes.solar_absorptivity),
+                      ("planet_ir", nodes.ir_emissivity)):
+        absorbed = np.sum(getattr(heat, f"node_{src}"), axis=0)
+        direct = np.sum(getattr(heat, f"incident_{src}") * np.asarray(prop)[None, :], axis=0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            share = np.where(absorbed > 0.0, (absorbed - direct) / absorbed, 0.0)
+        many = np.flatnonzero(share > REFLECTED_WARNING_SHARE)
+        if many.size:
+            i = int(many[np.argmax(share[many])])
+            out.append(f"{many.size} node(s) take more than "
+                       f"{100 * REFLECTED_WARNING_SHARE:.0f} % of their absorbed "
+                       f"{src.replace('_', ' ')} after reflections inside the vehicle "
+                       f"({nodes.names[i]!r}: {100 * share[i]:.0f} %), redistributed by "
+                       f"couplings with up to {100 * relative_error:.1f} % error: their loads' "
+                       f"+- leaves that error out; run with more rays (--rays, or [radiation] "
+                       f"target_error) or compare two seeds (--seed)")
+    return out
+
+
 def _check_warnings(attrs) -> list:
     """The warnings the model's checks gave before the run (root attribute
     ``check_warnings``, a JSON list of ``WHERE: WHAT`` lines)."""
@@ -297,6 +330,9 @@ def summarize(results: Results, top: int = 15) -> dict:
                  "nodes": rows}
 
         loads["largest"] = _largest_loads(heat, results.trajectory.time, nodes.names, top)
+        if vf is not None:
+            warnings += _reflection_warnings(heat, nodes,
+                                             accuracy["largest_relative_stderr_significant"])
     hinges = None
     if results.hinges is not None:
         angle = np.asarray(results.hinges["angle_deg"], dtype=np.float64)
