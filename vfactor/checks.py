@@ -399,8 +399,10 @@ REFLECTION_WARNING_SHARE = 0.5
 """Share of a band's incident power a coating reflects above which ``check`` reminds that the
 errors of reflected heat loads leave out the couplings' own error (a threshold of our own)."""
 REFLECTION_COUPLING_ERROR = 0.05
-"""Relative error of a 1 % view factor (as :func:`_check_ray_count` estimates it) above
-which that reminder is given (a threshold of our own)."""
+"""Relative error of a 1 % view factor (as :func:`_check_ray_count` estimates it) that the
+reminder asks for (a target of our own); it is given where the ray count already draws the
+warning of :func:`_check_ray_count` (a convex vehicle reflects nothing back onto itself,
+so below that the run's summary, which sees the reflected shares, says it)."""
 
 
 def _check_reflection_errors(model: Model, report: CheckReport) -> None:
@@ -418,7 +420,7 @@ def _check_reflection_errors(model: Model, report: CheckReport) -> None:
     rays = model.radiation.rays_per_node
     F = RAY_CHECK_VIEW_FACTOR
     rel = ((1.0 - F) / (F * rays)) ** 0.5
-    if rel <= REFLECTION_COUPLING_ERROR:
+    if rel <= RAY_CHECK_RELATIVE_ERROR:
         return
     reflective = []
     for name, c in model.coatings.items():
@@ -433,8 +435,8 @@ def _check_reflection_errors(model: Model, report: CheckReport) -> None:
         "warning", report.path, "[radiation] rays_per_node",
         f"{'coating' if len(reflective) == 1 else 'coatings'} "
         f"{', '.join(reflective[:3])}{' ...' if len(reflective) > 3 else ''} "
-        f"{'reflects' if len(reflective) == 1 else 'reflect'} much of what they receive, and {rays} rays per node leave the couplings "
-        f"that redistribute it uncertain (~{100 * rel:.0f} % on a 1 % view factor): the "
+        f"{'reflects' if len(reflective) == 1 else 'reflect'} much of what they receive, "
+        f"and {rays} rays per node leave the couplings that redistribute it uncertain (~{100 * rel:.0f} % on a 1 % view factor): the "
         f"+- of heat loads leaves that error out; use at least {needed} rays per node or "
         f"set target_error, and compare two seeds (--seed)"))
 
