@@ -436,7 +436,8 @@ def _check_reflection_errors(model: Model, report: CheckReport) -> None:
         f"{'coating' if len(reflective) == 1 else 'coatings'} "
         f"{', '.join(reflective[:3])}{' ...' if len(reflective) > 3 else ''} "
         f"{'reflects' if len(reflective) == 1 else 'reflect'} much of what they receive, "
-        f"and {rays} rays per node leave the couplings that redistribute it uncertain (~{100 * rel:.0f} % on a 1 % view factor): the "
+        f"and {rays} rays per node leave the couplings that redistribute it uncertain "
+        f"(~{100 * rel:.0f} % on a 1 % view factor): the "
         f"+- of heat loads leaves that error out; use at least {needed} rays per node or "
         f"set target_error, and compare two seeds (--seed)"))
 
