@@ -826,3 +826,25 @@ def test_replicate_sums_match_bincount():
     expected = np.stack([np.bincount(node, weights=values[:, r], minlength=9)
                          for r in range(5)])
     np.testing.assert_array_equal(out, expected)
+
+
+def test_target_runs_count_each_sides_targets_like_numpy_unique():
+    # Per side: the distinct first-hit targets and their ray counts are those of
+    # np.unique(row, return_counts=True) (numpy as the reference), in order of first
+    # appearance; escape (-1) and inert (-2) included.
+    from vfactor.tracing import heat_sums
+
+    rng = np.random.default_rng(4)
+    targets = rng.integers(-2, 40, size=(700, 64)).astype(np.int32)
+    targets[5] = -1                                  # a side whose rays all escape
+    start, target, count = heat_sums.target_runs(targets)
+    assert start[-1] == target.size == count.size
+    for s in range(targets.shape[0]):
+        got_t = target[start[s]:start[s + 1]]
+        got_c = count[start[s]:start[s + 1]]
+        values, first, counts = np.unique(targets[s], return_index=True, return_counts=True)
+        order = np.argsort(first)
+        np.testing.assert_array_equal(got_t, values[order])
+        np.testing.assert_array_equal(got_c, counts[order])
+    empty = heat_sums.target_runs(np.zeros((0, 8), np.int32))
+    assert empty[0].tolist() == [0] and empty[1].size == 0

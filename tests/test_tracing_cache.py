@@ -12,7 +12,7 @@ import shutil
 
 import numba
 
-from vfactor.tracing import (albedo_kernels, cache, chain_kernels, heat_kernels, heat_sums,
+from vfactor.tracing import (albedo_kernels, beam, cache, chain_kernels, heat_kernels, heat_sums,
                              motion_kernels, planet_kernels, scene, side_rays, streams,
                              traverse, vf_kernels)
 
@@ -24,7 +24,7 @@ def _dispatchers(module):
 
 
 def test_every_cached_tracing_kernel_uses_the_package_stamp():
-    modules = (traverse, scene, vf_kernels, heat_kernels, planet_kernels, chain_kernels,
+    modules = (traverse, scene, vf_kernels, heat_kernels, planet_kernels, chain_kernels, beam,
                heat_sums, side_rays, motion_kernels, albedo_kernels, streams)
     kernels = [k for m in modules for k in _dispatchers(m)]
     assert kernels

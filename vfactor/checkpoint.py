@@ -34,8 +34,10 @@ __all__ = ["Checkpoint", "PairSection", "StepSection", "checkpoint_path", "CHECK
 CHECKPOINT_SUFFIX = ".partial"
 #: Changes whenever the rays of a stage change for the same model and seed (4: the planet
 #: rays of the heating stage drawn from one sequence per node; view-factor rounds after
-#: the 16th larger), so that a run never resumes from steps or tallies of other rays.
-_CHECKPOINT_KIND = "vfactor-checkpoint-4"
+#: the 16th larger), or the sums of their results (5: the heating stage's own couplings
+#: added per side's first-hit runs), so that a run never resumes from steps or tallies
+#: of other rays or other rounding.
+_CHECKPOINT_KIND = "vfactor-checkpoint-5"
 #: Shortest time between two saves of the checkpoint [s].
 CHECKPOINT_EVERY_S = 5.0
 #: A save may take at most this share of the time between saves [1].

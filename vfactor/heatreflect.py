@@ -23,6 +23,7 @@ import scipy.sparse as sp
 
 from vfactor.sparsetools import as_csr
 from vfactor.tracing import chain_kernels, heat_kernels, heat_sums
+from vfactor.tracing.side_rays import TARGET_ESCAPE, TARGET_INERT
 
 __all__ = ["Bands", "PlanetRays", "band_gebhart", "bands_of", "reflect"]
 
@@ -37,17 +38,23 @@ class PlanetRays(NamedTuple):
 
 
 def _node_view_factors(sides, targets, n_nodes, node_area):
-    """Node-to-node, space and inert view factors from the cached first hits [1]."""
-    rays = targets.shape[1]
-    weight = np.repeat(sides.area / rays, rays)          # each ray carries A_s / N
-    src = np.repeat(sides.node, rays)
-    tgt = targets.ravel().astype(np.int64)
-    hit = tgt >= 0
+    """Node-to-node, space and inert view factors from the cached first hits [1].
+
+    Each ray carries ``A_s / N`` of its side's area (``N`` rays per side); the rays of a
+    side are first counted per target (:func:`vfactor.tracing.heat_sums.target_runs`).
+    """
+    start, target, count = heat_sums.target_runs(targets)
+    side = np.repeat(np.arange(sides.count), np.diff(start))
+    weight = count * (sides.area / targets.shape[1])[side]
+    src = sides.node[side]
     area = np.where(node_area > 0.0, node_area, 1.0)
-    matrix = as_csr(sp.coo_array((weight[hit] / area[src[hit]], (src[hit], tgt[hit])),
+    hit = target >= 0
+    matrix = as_csr(sp.coo_array((weight[hit] / area[src[hit]], (src[hit], target[hit])),
                                  shape=(n_nodes, n_nodes)))
-    space = np.bincount(src[tgt == -1], weights=weight[tgt == -1], minlength=n_nodes)
-    inert = np.bincount(src[tgt == -2], weights=weight[tgt == -2], minlength=n_nodes)
+    escape = target == TARGET_ESCAPE
+    lost = target == TARGET_INERT
+    space = np.bincount(src[escape], weights=weight[escape], minlength=n_nodes)
+    inert = np.bincount(src[lost], weights=weight[lost], minlength=n_nodes)
     return matrix, space / area, inert / area
 
 

@@ -121,6 +121,7 @@ class Model:
     facet_positive: np.ndarray   # facet_area > 0
     n_nodes: int
     extent: float                # largest distance of a vertex from the body origin [m]
+    diagonal: float              # of the vertices' bounding box, a little more [m]
     m: int
     k_planet: int
     k_sun: int
@@ -172,9 +173,18 @@ def prepare(geometry, scene, m, rays_per_facet, sun_samples, seed, max_bounces) 
                   node_area_safe=np.where(node_area > 0.0, node_area, 1.0),
                   facet_area_safe=np.where(facet_area > 0.0, facet_area, 1.0),
                   node_positive=node_area > 0.0, facet_positive=facet_area > 0.0,
-                  n_nodes=geometry.n_nodes, extent=vertex_extent(vertices), m=m,
+                  n_nodes=geometry.n_nodes, extent=vertex_extent(vertices),
+                  diagonal=_diagonal(vertices), m=m,
                   k_planet=-(-rays_per_facet // m), k_sun=-(-sun_samples // m),
                   seed=np.uint64(seed), max_bounces=max_bounces)
+
+
+def _diagonal(vertices) -> float:
+    """Diagonal of the bounding box of the vertices [m] (a little more, for rounding): no
+    ray from a facet meets another facet beyond this distance."""
+    if vertices.shape[0] == 0:
+        return 0.0
+    return float(np.linalg.norm(np.ptp(vertices, axis=0))) * (1.0 + 1e-12)
 
 
 _TRACE_BATCH = 512
@@ -356,7 +366,7 @@ def one_step(model: Model, bands, step: Step, use_cache: bool, k: int, out: dict
     if sunlit:
         heat_kernels.sun_lit_mask(model.arrays, model.vertices, model.triangles, model.normals,
                                   s.facet, s.sign, model.seed, m, model.k_sun, step.sun,
-                                  step.cos_half, lit_mask, lit)
+                                  step.cos_half, model.diagonal, lit_mask, lit)
 
     # planet: hits and albedo cosines per (side, replicate); per ray for specular sides
     blank = np.empty if s.count else np.zeros       # the kernels write every entry

@@ -17,7 +17,8 @@ Kernels
   ones (regenerated, not traced), grouped by (side, replicate).
 - :func:`segment_escapes` : escaping rays per (side, replicate).
 - :func:`mirror_rays` : mirror images of cached rays about their side's normal.
-- :func:`sun_lit_mask` : per step, sample points of each side traced toward the solar disk.
+- :func:`sun_lit_mask` : per step, sample points of each side traced toward the solar disk
+  (not those of sides that :func:`vfactor.tracing.beam.beam_clear` proves unshadowed).
 - :func:`sun_mirror_rays` : the unshadowed Sun samples of given sides, mirrored.
 
 References
@@ -30,6 +31,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
+from .beam import beam_clear
 from .config import JIT_PARALLEL
 from .sampling import cone_direction, rqmc_uniform4, triangle_point
 from .side_rays import PURPOSE_SUN, TARGET_ESCAPE, TARGET_INERT, put_ray, side_ray, side_stream
@@ -156,13 +158,16 @@ def mirror_rays(rows, owner, origin, direction, side_normal, out_origin, out_dir
 
 @njit(**JIT_PARALLEL)
 def sun_lit_mask(arrays, vertices, triangles, normals, side_facet, side_sign, seed,
-                 replicates, per_replicate, sun, cos_half_angle, out_mask, out_count):
+                 replicates, per_replicate, sun, cos_half_angle, beam_length, out_mask,
+                 out_count):
     """Per step: which sample points of each side see the Sun.
 
     Points are uniform on the facet; each is traced toward a point of the solar disk
     (direction uniform in the cone of half-angle ``acos(cos_half_angle)`` about ``sun``),
     so self-shadow edges get the penumbra of the disk. Sides facing away from the Sun
-    (``dot(n, sun) <= 0``) are not traced.
+    (``dot(n, sun) <= 0``) are not traced, nor are sides that nothing can shadow
+    (:func:`vfactor.tracing.beam.beam_clear`, when ``beam_length > 0``): all their
+    samples are lit, as tracing them would find.
 
     Parameters
     ----------
@@ -172,6 +177,8 @@ def sun_lit_mask(arrays, vertices, triangles, normals, side_facet, side_sign, se
     seed : uint64; replicates, per_replicate : int
     sun : (3,) float64 — unit vector toward the centre of the Sun [1]
     cos_half_angle : float — cosine of the Sun's angular radius [1]
+    beam_length : float — diagonal of the bounding box of all facets [m]; 0 traces every
+        sample of the sides facing the Sun
     out_mask : (s, replicates * per_replicate) bool, written — True where unshadowed
     out_count : (s, replicates) float64, written — unshadowed points per replicate
     """
@@ -182,6 +189,14 @@ def sun_lit_mask(arrays, vertices, triangles, normals, side_facet, side_sign, se
         f = side_facet[s]
         sign = side_sign[s]
         cos_t = sign * (normals[f, 0] * sx + normals[f, 1] * sy + normals[f, 2] * sz)
+        if cos_t > 0.0 and beam_length > 0.0 and beam_clear(
+                arrays, vertices, triangles, normals, f, sign, sun, cos_half_angle,
+                beam_length):
+            for j in range(replicates * per_replicate):
+                out_mask[s, j] = True
+            for r in range(replicates):
+                out_count[s, r] = float(per_replicate)
+            continue
         stream = side_stream(PURPOSE_SUN, f, sign)
         for r in range(replicates):
             count = 0.0

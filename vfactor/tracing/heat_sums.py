@@ -8,12 +8,13 @@ compares them with the numpy expressions they replace).
 
 from __future__ import annotations
 
-from numba import njit
+import numpy as np
+from numba import njit, prange
 
-from .config import JIT
+from .config import JIT, JIT_PARALLEL
 
 __all__ = ["replicate_estimates", "side_tallies", "pool_sums", "facet_shares",
-           "replicate_sums"]
+           "replicate_sums", "target_runs"]
 
 
 @njit(**JIT)
@@ -125,3 +126,77 @@ def replicate_sums(node, values, out):
         j = node[i]
         for r in range(out.shape[0]):
             out[r, j] += values[i, r]
+
+
+#: Sides per work item of :func:`target_runs` (each item has its own counting table).
+_RUN_BLOCK = 256
+
+
+@njit(**JIT_PARALLEL)
+def _runs(targets, offset, start, out_target, out_count):
+    """Count (``start`` None-like: empty) or write the runs of every side: the distinct
+    targets of a row in order of first appearance, with their ray counts."""
+    n_sides = targets.shape[0]
+    width = targets.shape[1]
+    blocks = (n_sides + _RUN_BLOCK - 1) // _RUN_BLOCK
+    for b in prange(blocks):
+        table = np.zeros(offset + 1 + _max_target(targets, b), np.int64)
+        order = np.empty(width, np.int64)
+        for s in range(b * _RUN_BLOCK, min(n_sides, (b + 1) * _RUN_BLOCK)):
+            distinct = 0
+            for k in range(width):
+                t = targets[s, k] + offset
+                if table[t] == 0:
+                    order[distinct] = t
+                    distinct += 1
+                table[t] += 1
+            if start.shape[0] == 0:
+                out_count[s] = distinct
+            else:
+                q = start[s]
+                for d in range(distinct):
+                    out_target[q + d] = order[d] - offset
+                    out_count[q + d] = table[order[d]]
+            for d in range(distinct):
+                table[order[d]] = 0
+
+
+@njit(**JIT, inline="always")
+def _max_target(targets, b):
+    top = 0
+    for s in range(b * _RUN_BLOCK, min(targets.shape[0], (b + 1) * _RUN_BLOCK)):
+        for k in range(targets.shape[1]):
+            if targets[s, k] > top:
+                top = targets[s, k]
+    return top
+
+
+def target_runs(targets):
+    """Distinct first-hit targets of each side's rays and how many rays hit each.
+
+    Parameters
+    ----------
+    targets : (s, k) int32 — per side and ray, node hit, ``TARGET_ESCAPE`` or
+        ``TARGET_INERT`` (:func:`vfactor.tracing.heat_kernels.trace_targets`), >= -2
+
+    Returns
+    -------
+    start : (s + 1,) int64 — the runs of side ``i`` are ``start[i]:start[i + 1]``
+    target : (u,) int64 — distinct targets of each side, in order of first appearance
+    count : (u,) int64 — rays of the side with that target
+    """
+    targets = np.ascontiguousarray(targets)
+    if targets.ndim != 2:
+        raise ValueError(f"target_runs: targets must be 2-D, got shape {targets.shape}")
+    if targets.size and int(targets.min()) < -2:
+        raise ValueError("target_runs: targets below TARGET_INERT (-2)")
+    offset = 2
+    distinct = np.zeros(targets.shape[0], np.int64)
+    none = np.zeros(0, np.int64)
+    _runs(targets, offset, none, none, distinct)
+    start = np.zeros(targets.shape[0] + 1, np.int64)
+    np.cumsum(distinct, out=start[1:])
+    target = np.empty(int(start[-1]), np.int64)
+    count = np.empty(int(start[-1]), np.int64)
+    _runs(targets, offset, start[:-1].copy(), target, count)
+    return start, target, count
