@@ -74,6 +74,17 @@ def test_delivered_error_is_the_inverse_variance_combination_and_never_above_raw
     hit = dense(vf.raw_matrix) > 0
     assert np.all(sm_err[hit] <= raw_err[hit])
     assert sm_err[0, 1] < raw_err[0, 1] and sm_err[1, 0] < raw_err[1, 0]
+    # the summary's figure: largest delivered relative error over entries >= 1 %, sparse or
+    # dense records alike (the quotient of the two fields above, by hand)
+    val = np.r_[dense(vf.matrix).ravel(), vf.space]
+    err = np.r_[sm_err.ravel(), vf.smoothed_stderr_space]
+    big = val >= 0.01
+    expect = float(np.max(err[big] / val[big]))
+    assert vf.largest_delivered_relative_error(0.01) == pytest.approx(expect, rel=1e-12)
+    import dataclasses
+
+    as_dense = dataclasses.replace(vf, matrix=dense(vf.matrix), smoothed_stderr=sm_err)
+    assert as_dense.largest_delivered_relative_error(0.01) == pytest.approx(expect, rel=1e-12)
     # space has no reciprocal: its raw error is the delivered one (common practice)
     np.testing.assert_array_equal(vf.smoothed_stderr_space, vf.stderr_space)
     # smoothing off: the raw values are delivered, and so are their errors

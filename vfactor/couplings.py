@@ -83,10 +83,12 @@ class ViewFactors:
         has no ``smoothed_stderr``)."""
         if self.smoothed_stderr is None:
             return self.largest_relative_error(level)
-        m = sp.csr_array(self.matrix)
+        from .sparsetools import as_csr, values_at
+
+        m = as_csr(self.matrix)
         rows, cols = m.nonzero()
-        val = np.asarray(m[rows, cols]).ravel()
-        err = np.asarray(sp.csr_array(self.smoothed_stderr)[rows, cols]).ravel()
+        val = values_at(m, rows, cols)
+        err = values_at(as_csr(self.smoothed_stderr), rows, cols)
         val = np.concatenate([val, np.asarray(self.space, float)])
         err = np.concatenate([err, np.asarray(self.smoothed_stderr_space, float)])
         sig = val >= level
