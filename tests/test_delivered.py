@@ -119,22 +119,23 @@ def test_pair_precision_of_a_direction_never_hit_and_of_an_exact_one():
 
 @pytest.mark.parametrize("shape", [_squares, _perpendicular])
 def test_delivered_error_is_honest_across_seeds(shape):
-    # 32 seeds at fixed rays (8 rounds a row): the smoothed pair value about the [I&D]
+    # 64 seeds at fixed rays (8 rounds a row): the smoothed pair value about the [I&D]
     # Table 13.2 closed form against the reported smoothed error; one estimate per seed
     # (F01 and F10 smoothed are one value g / A); mean square deviation over mean reported
-    # variance inside the [chi2] 0.1 %..99.9 % band of chi2(32)/32. (160 seeds on the
-    # perpendicular plates, our measurement: 1.11, the raw entries 1.07 and 1.02; without
-    # the inflation for estimated weights of vfactor.delivered.pair_precision the reported
-    # variance is ~20 % lower.)
+    # variance inside the [chi2] 0.1 %..99.9 % band of chi2(64)/64. Our measurements: 0.90
+    # (squares), 1.41 (perpendicular plates; 1.11
+    # over 160 other seeds, where the raw entries gave 1.07 and 1.02); without the
+    # inflation for estimated weights of vfactor.delivered.pair_precision the reported
+    # variance is ~20 % lower.
     g, F = shape()
     sc = Scene.build(g.vertices, g.triangles)
     dev, var = [], []
-    for seed in range(32):
+    for seed in range(64):
         vf = radiation.compute_view_factors(g, sc, rays_per_node=16_000, seed=300 + seed)
         dev.append(vf.matrix[0, 1] - F)
         var.append(vf.smoothed_stderr[0, 1] ** 2)
         assert vf.smoothed_stderr[0, 1] < vf.stderr[0, 1]
-    lo, hi = _chi2_band(32)
+    lo, hi = _chi2_band(64)
     ratio = float(np.mean(np.square(dev)) / np.mean(var))
     assert lo <= ratio <= hi, ratio
 
@@ -146,7 +147,9 @@ def test_target_error_applies_to_the_delivered_values_and_is_met_in_the_scatter(
     # Table 13.2 closed form agrees with the reported error (mean square deviation over
     # mean reported variance in the [chi2] band of chi2(40)/40; stopping on an estimate
     # can favour low ones, which this would catch), and its rms relative error meets the
-    # target within the same band.
+    # target within the same band. Our measurements: ratio 1.10 (squares) and 1.11
+    # (perpendicular plates), rms relative error 0.293 % and 0.302 %, rays per run 172 k
+    # and 242 k against 391 k and 459 k under the raw criterion.
     target = 0.003
     g, F = shape()
     sc = Scene.build(g.vertices, g.triangles)
