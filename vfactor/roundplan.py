@@ -39,8 +39,8 @@ def row_error_ratio(stats, target_error, significance):
 
 
 def _own_entries(stats, target_error, significance):
-    """Raw ratio of the significant entries without a reciprocal (space, diagonal), and the
-    significance of every node entry off the diagonal (CSR data order)."""
+    """Largest raw ``stderr / (target F)`` per row over its significant entries that have
+    no reciprocal (space, diagonal)."""
     n = stats.mean.shape[0]
     sig = significant_mask(stats.mean, significance).data
     cols = stats.mean.indices
