@@ -84,7 +84,11 @@ def sample_view_factors(rays=10_000, facet=False) -> ViewFactors:
                        raw_space=space.copy(), raw_inert=np.zeros(2),
                        rays=np.full(2, rays, np.int64), adjustment_sigma=0.25,
                        method="test smoothing", converged=True, target_error=None,
-                       facet_matrix=facet_matrix)
+                       facet_matrix=facet_matrix,
+                       # two equal independent estimates combined: sigma / sqrt(2)
+                       # (inverse-variance weighting, Cochran 1977, sec. 5A.6)
+                       smoothed_stderr=err / np.sqrt(2.0),
+                       smoothed_stderr_space=np.sqrt(space * (1 - space) / rays))
 
 
 def sample_exchange(geometry: Geometry, vf: ViewFactors) -> Exchange:

@@ -87,7 +87,8 @@ def test_round_trip(written):
     np.testing.assert_array_equal(g.back_node, g0.back_node)
     assert g.coatings == g0.coatings
     vf, vf0 = r.view_factors, kw["view_factors"]
-    for name in ("matrix", "space", "inert", "stderr", "raw_matrix", "rays"):
+    for name in ("matrix", "space", "inert", "stderr", "raw_matrix", "rays", "smoothed_stderr",
+                 "smoothed_stderr_space"):
         np.testing.assert_array_equal(dense(getattr(vf, name)), dense(getattr(vf0, name)))
     assert vf.target_error is None and vf.method == vf0.method
     assert (vf.facet_matrix != vf0.facet_matrix).nnz == 0

@@ -39,6 +39,14 @@ class ViewFactors:
     converged : bool — True when ``target_error`` was reached (True when none was asked)
     target_error : float or None — requested one-sigma error of significant entries [1]
     facet_matrix : scipy.sparse.csr_matrix or None — facet-side-to-node-side factors on request
+    smoothed_stderr : (n, n) csr_array or None — one-sigma error of each delivered entry of
+        ``matrix`` [1]: with smoothing, the reciprocity combination of the pair's two raw
+        estimates (:func:`vfactor.delivered.delivered_stderr`; an upper bound, closure left
+        out), never above ``stderr``; the diagonal keeps its raw error; without smoothing
+        ``stderr`` itself. None only on records built by hand or read from files written
+        before it existed
+    smoothed_stderr_space : (n,) float or None — one-sigma error of ``space`` [1]: space
+        has no reciprocal, so it is ``stderr_space``
     """
 
     matrix: sp.csr_array
@@ -55,6 +63,8 @@ class ViewFactors:
     converged: bool
     target_error: float | None = None
     facet_matrix: object = None
+    smoothed_stderr: sp.csr_array | None = None
+    smoothed_stderr_space: np.ndarray | None = None
 
     def largest_relative_error(self, level: float) -> float:
         """Largest ``stderr / F`` over raw node entries ``F >= level`` (NaN when none)."""
@@ -66,6 +76,23 @@ class ViewFactors:
         e = err.data if same else np.asarray(err[raw.nonzero()]).ravel()
         sig = raw.data >= level
         return float((e[sig] / raw.data[sig]).max()) if sig.any() else math.nan
+
+    def largest_delivered_relative_error(self, level: float) -> float:
+        """Largest ``smoothed_stderr / F`` over delivered node and space entries ``F >=
+        level`` (NaN when none; the raw :meth:`largest_relative_error` when the record
+        has no ``smoothed_stderr``)."""
+        if self.smoothed_stderr is None:
+            return self.largest_relative_error(level)
+        from .sparsetools import as_csr, values_at
+
+        m = as_csr(self.matrix)
+        rows, cols = m.nonzero()
+        val = values_at(m, rows, cols)
+        err = values_at(as_csr(self.smoothed_stderr), rows, cols)
+        val = np.concatenate([val, np.asarray(self.space, float)])
+        err = np.concatenate([err, np.asarray(self.smoothed_stderr_space, float)])
+        sig = val >= level
+        return float((err[sig] / val[sig]).max()) if sig.any() else math.nan
 
 
 @dataclass(frozen=True)

@@ -195,6 +195,11 @@ def _write_view_factors(root, vf: ViewFactors):
     _put_csr(g, "raw_matrix", vf.raw_matrix, "1", "view factors straight from the ray tallies")
     _put(g, "raw_space", vf.raw_space, "1", "view factor to space straight from the tallies")
     _put(g, "raw_inert", vf.raw_inert, "1", "share lost on inert sides, from the tallies")
+    if vf.smoothed_stderr is not None:
+        _put_csr(g, "smoothed_stderr", vf.smoothed_stderr, "1",
+                 "one-sigma statistical error of each entry of matrix (the delivered values)")
+        _put(g, "smoothed_stderr_space", vf.smoothed_stderr_space, "1",
+             "one-sigma statistical error of space (the delivered values)")
     _put(g, "rays", np.asarray(vf.rays, dtype=np.int64), "1", "rays emitted per node")
     g.attrs["adjustment_sigma"] = float(vf.adjustment_sigma)
     g.attrs["method"] = str(vf.method)

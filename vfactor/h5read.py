@@ -141,7 +141,11 @@ def _read_view_factors(g) -> ViewFactors:
         raw_inert=g["raw_inert"][()], rays=g["rays"][()],
         adjustment_sigma=float(g.attrs["adjustment_sigma"]), method=attr_value(g.attrs["method"]),
         converged=bool(g.attrs["converged"]),
-        target_error=None if np.isnan(target) else target, facet_matrix=facet)
+        target_error=None if np.isnan(target) else target, facet_matrix=facet,
+        smoothed_stderr=(read_coupling_matrix(g["smoothed_stderr"])
+                         if "smoothed_stderr" in g else None),
+        smoothed_stderr_space=(g["smoothed_stderr_space"][()]
+                               if "smoothed_stderr_space" in g else None))
 
 
 def _read_exchange(g) -> Exchange:
@@ -347,7 +351,9 @@ def read_results(path, *, dense_couplings=False, case=None) -> Results:
 
         if vf is not None:
             vf = dataclasses.replace(vf, matrix=dense(vf.matrix), stderr=dense(vf.stderr),
-                                     raw_matrix=dense(vf.raw_matrix))
+                                     raw_matrix=dense(vf.raw_matrix),
+                                     smoothed_stderr=None if vf.smoothed_stderr is None
+                                     else dense(vf.smoothed_stderr))
         if ex is not None:
             ex = dataclasses.replace(ex, gebhart=dense(ex.gebhart), area=dense(ex.area),
                                      stderr=None if ex.stderr is None else dense(ex.stderr))

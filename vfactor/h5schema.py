@@ -101,6 +101,7 @@ _DATASETS = {  # group -> {dataset: (kind, shape)}; every entry is required in i
 }
 _OPTIONAL = {  # datasets read when present
     "exchange": {"dropped": ("real", ("n",))},
+    "view_factors": {"smoothed_stderr_space": ("real", ("n",))},
     "heating": {**{f"{k}_stderr": ("real", ("t", "n")) for k in SOURCES},
                 **{f"escaped_{k}": ("real", ("t",)) for k in SOURCES},
                 **{f"inert_{k}": ("real", ("t",)) for k in SOURCES}},
@@ -109,7 +110,7 @@ _OPTIONAL = {  # datasets read when present
 #: schema 2 on, dense datasets in schema 1 (still read).
 MATRICES = {"view_factors": ("matrix", "stderr", "raw_matrix"),
             "exchange": ("gebhart", "area", "conductance")}
-OPTIONAL_MATRICES = {"exchange": ("stderr",)}
+OPTIONAL_MATRICES = {"exchange": ("stderr",), "view_factors": ("smoothed_stderr",)}
 _REQUIRED_GROUPS = ("model", "nodes", "facets", "coatings")
 _ATTRS = {  # group ("" = root) -> {attribute: kind}
     "": {"seed": "int", "rays_per_node": "int"},

@@ -115,11 +115,12 @@ class RunResult:
         if vf is not None and vf.raw_matrix.nnz:
             from .summary import SIGNIFICANT_VIEW_FACTOR as sig_level
 
-            rel = vf.largest_relative_error(sig_level)
+            rel = vf.largest_delivered_relative_error(sig_level)
             target = ("" if vf.target_error is None else
                       f"; target {vf.target_error:g} " + ("reached" if vf.converged
                                                          else "NOT reached (budget spent)"))
             lines.append(f"  view factors >= {sig_level:g}: largest one-sigma relative error "
+                         f"(delivered values) "
                          f"{100 * rel:.2f} %{target}" if np.isfinite(rel) else
                          f"  no view factor reaches {sig_level:g}; largest one-sigma error "
                          f"{float(vf.stderr.data.max()) if vf.stderr.nnz else 0.0:.2e}"

@@ -39,11 +39,13 @@ import numpy as np
 import scipy.sparse as sp
 
 from vfactor.couplings import Exchange, ViewFactors
+from vfactor.delivered import delivered_stderr, row_dof
 from vfactor.gebhart import DROP_TOLERANCE, GebhartFactors, exchange_from_gebhart, gebhart_matrix
 from vfactor.smoothing import (NO_SMOOTHING, SMOOTHING_METHOD, SmoothedViewFactors,
                                smooth_view_factors)
 from vfactor.sparsetools import row_ids, values_at
-from vfactor.roundplan import MIN_ROUNDS, plan_rounds, round_sizes, row_error_ratio, run_rounds
+from vfactor.roundplan import (MIN_ROUNDS, error_ratio, plan_rounds, round_sizes,
+                               row_error_ratio, run_rounds)
 from vfactor.tallystats import (SIGNIFICANCE, PairTallies, TallyStatistics, TallySums,
                                 significant_mask, tally_statistics)
 
@@ -321,7 +323,8 @@ def compute_view_factors(geometry, scene, *, rays_per_node, seed, target_error=N
     reporter : vfactor.progress.Reporter or None
     significance : float — share of a row above which an entry is significant [1]
     smooth : bool — enforce reciprocity and closure (``[radiation] smoothing``); when false
-        the returned factors are the raw tallies and ``method`` says so
+        the returned factors are the raw tallies and ``method`` says so; it also chooses
+        what ``target_error`` applies to (below)
 
     Returns
     -------
@@ -344,12 +347,19 @@ def compute_view_factors(geometry, scene, *, rays_per_node, seed, target_error=N
 
     *Significant* entries are the node and space entries of a row with ``F >=
     significance`` (default 1 % of the energy the node emits); the inert column never is.
-    With ``target_error``: after the first rounds, every row whose significant entries do
-    not all have ``stderr <= target_error * F`` gets more rounds, as many as the measured
-    error predicts (:func:`plan_rounds`; later rounds are larger), until all pass or the
-    row reaches ``max_rays_per_node``; ``converged`` says whether all passed.
-    Reciprocity and closure are then enforced by :func:`smooth_view_factors`; the raw
-    tallies are kept.
+    With ``target_error``: after the first rounds, rows get more rounds, as many as the
+    measured error predicts (:func:`plan_rounds`; later rounds are larger), until every
+    significant entry passes or its rows reach ``max_rays_per_node``; ``converged`` says
+    whether all passed. The target applies to the values delivered: with ``smooth`` (the
+    default) to the smoothed ones, whose error ``smoothed_stderr`` combines the two raw
+    estimates of each node pair (``A_i F_ij`` from the rays of ``i``, ``A_j F_ji`` from
+    those of ``j``: :func:`vfactor.delivered.pair_precision`, an upper bound, closure left
+    out), so a pair that misses it gets its rays on the side where they buy precision
+    more cheaply, and a raw entry may stay above the target where its reciprocal is well
+    sampled; space and diagonal entries have no reciprocal and must reach the target on
+    their own. Without ``smooth`` every significant raw entry must have ``stderr <=
+    target_error * F``. Reciprocity and closure are then enforced by
+    :func:`smooth_view_factors`; the raw tallies are kept.
     """
     from .progress import NullReporter
 
@@ -368,13 +378,14 @@ def compute_view_factors(geometry, scene, *, rays_per_node, seed, target_error=N
     seed = int(seed)
     sums = TallySums.empty(n, m)
     acc = _FacetAccumulator(2 * kin.n_facets, n + 2) if facet_factors else None
+    area = np.asarray(geometry.nodes.area, dtype=np.float64) if smooth else None
     with reporter.stage("view factors", total=n * MIN_ROUNDS * m, unit="rays") as bar:
         run_rounds(sums, lambda nodes, rounds: _trace_pairs(scene, kin, nodes, rounds, seed,
                                                             m, bar, acc, sums),
                    target_error=target_error, max_rounds=max_rounds,
-                   significance=significance, bar=bar)
+                   significance=significance, bar=bar, area=area)
     converged = True if target_error is None else bool(
-        np.all(row_error_ratio(tally_statistics(sums), target_error, significance) <= 1))
+        np.all(error_ratio(sums, target_error, significance, area) <= 1))
     facet_matrix = acc.factors() if acc is not None else None
     return view_factors_from_tallies(geometry, sums, target_error=target_error,
                                      converged=converged, facet_matrix=facet_matrix,
@@ -416,7 +427,8 @@ def view_factors_from_tallies(geometry, sums: TallySums, *, target_error=None,
     sums : TallySums — every node with at least one round
     target_error : float or None — recorded; with ``converged=None`` also tested here
     converged : bool or None — whether the convergence target was reached (None: decide
-        from ``target_error``; True when no target)
+        from ``target_error`` on the delivered values, smoothed or raw as ``smooth`` says;
+        True when no target)
     facet_matrix : scipy.sparse matrix or None — passed through
     significance : float — threshold of significant entries [1]
     smooth : bool — enforce reciprocity and closure; when false the factors are the raw
@@ -426,7 +438,9 @@ def view_factors_from_tallies(geometry, sums: TallySums, *, target_error=None,
     -------
     ViewFactors
         ``adjustment_sigma`` is the largest ``|smoothed - raw| / sigma`` over significant
-        entries, with ``sigma^2`` the smoothing variance of :func:`_smoothing_variances`.
+        entries, with ``sigma^2`` the smoothing variance of :func:`_smoothing_variances`;
+        ``smoothed_stderr`` the error of the delivered entries
+        (:func:`vfactor.delivered.delivered_stderr`).
     """
     stats = tally_statistics(sums)
     n = geometry.n_nodes
@@ -435,13 +449,18 @@ def view_factors_from_tallies(geometry, sums: TallySums, *, target_error=None,
                          f"for {n} nodes")
     raw, raw_space, raw_inert = _split_columns(stats.mean, n)
     err, err_space, _ = _split_columns(stats.stderr, n)
+    area = np.asarray(geometry.nodes.area, dtype=np.float64) if smooth else None
     if converged is None:
         converged = True if target_error is None else bool(
-            np.all(row_error_ratio(stats, target_error, significance) <= 1))
+            np.all(error_ratio(sums, target_error, significance, area) <= 1))
+    s_err, s_err_space, _ = _split_columns(
+        delivered_stderr(stats.mean, stats.stderr, geometry.nodes.area, dof=row_dof(sums),
+                         smooth=smooth), n)
     common = dict(stderr=err, stderr_space=err_space, raw_matrix=raw, raw_space=raw_space,
                   raw_inert=raw_inert, rays=stats.rays.astype(np.int64),
                   converged=bool(converged), target_error=target_error,
-                  facet_matrix=facet_matrix)
+                  facet_matrix=facet_matrix, smoothed_stderr=s_err,
+                  smoothed_stderr_space=s_err_space)
     if not smooth:
         return ViewFactors(matrix=raw.copy(), space=raw_space.copy(), inert=raw_inert.copy(),
                            adjustment_sigma=0.0, method=NO_SMOOTHING, **common)

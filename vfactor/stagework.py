@@ -96,7 +96,8 @@ def view_factors_on(runner, geometry, settings, *, rays_per_node, seed, checkpoi
             resumed[0] += run_pairs(runner, task, pair_node, pair_round, sums, section, bar)
 
         # the one round loop of radiation.compute_view_factors: the same pairs
-        radiation.run_rounds(sums, trace, target_error=target, max_rounds=max_rounds, bar=bar)
+        radiation.run_rounds(sums, trace, target_error=target, max_rounds=max_rounds, bar=bar,
+                             area=(geometry.nodes.area if settings.smoothing else None))
     # converged=None: decided from target_error as compute_view_factors decides it
     vf = radiation.view_factors_from_tallies(geometry, sums, target_error=target,
                                              converged=None, smooth=settings.smoothing)

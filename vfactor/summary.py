@@ -285,6 +285,8 @@ def summarize(results: Results, top: int = 15) -> dict:
             "significant_threshold": SIGNIFICANT_VIEW_FACTOR,
             "largest_relative_stderr_significant":
                 vf.largest_relative_error(SIGNIFICANT_VIEW_FACTOR),
+            "largest_delivered_relative_stderr_significant":
+                vf.largest_delivered_relative_error(SIGNIFICANT_VIEW_FACTOR),
             "gebhart_drop_tolerance": None if ex is None else ex.drop_tolerance,
             "largest_gebhart_dropped": float(dropped.max()) if n else 0.0,
             "smoothing_method": vf.method,
