@@ -127,3 +127,49 @@ def test_sun_samples_are_the_same_with_and_without_the_beam_test(vehicle):
         assert np.array_equal(out[0][0], out[1][0])
         assert np.array_equal(out[0][1], out[1][1])
         assert 0 < out[0][0].sum() < out[0][0].size
+
+
+def test_mirror_chains_of_clear_sun_samples_are_the_same_without_tracing(vehicle):
+    """Mirror rays of the lit Sun samples that the beam test marks clear escape without
+    tracing: the chain tallies are bit for bit those of tracing every ray, and the test
+    marks a good share of them (sides whose mirror beam leaves the vehicle)."""
+    from vfactor.tracing import chain_kernels
+
+    scene, diagonal = vehicle
+    v, t, n = scene.vertices, scene.triangles, scene.normals
+    f = t.shape[0]
+    facet = np.concatenate([np.arange(f), np.arange(f)]).astype(np.int64)
+    sign = np.concatenate([np.ones(f), -np.ones(f)]).astype(np.int64)
+    facet_node = np.stack([np.arange(f) % 5, (np.arange(f) + 2) % 5], axis=1).astype(np.int64)
+    absorb = np.full((f, 2), 0.3)
+    specular = np.full((f, 2), 0.8)
+    reps, per = 4, 4
+    cos_half = np.cos(SUN_HALF_ANGLE)
+    marked = total = 0
+    for sun in _suns(6, 3):
+        mask = np.empty((2 * f, reps * per), np.bool_)
+        count = np.empty((2 * f, reps))
+        heat_kernels.sun_lit_mask(scene.arrays, v, t, n, facet, sign, np.uint64(5), reps, per,
+                                  sun, cos_half, diagonal, mask, count)
+        first = np.zeros(2 * f + 1, np.int64)
+        np.cumsum(mask.sum(axis=1), out=first[1:])
+        u = int(first[-1])
+        tallies = []
+        for length in (0.0, diagonal):
+            rays = [np.empty((u, 3)), np.empty((u, 3)), np.empty(u, np.int64), np.empty(u),
+                    np.empty(u, np.int64), np.empty(u, np.bool_)]
+            heat_kernels.sun_mirror_rays(scene.arrays, v, t, n, facet, sign, np.uint64(5),
+                                         reps, per, sun, cos_half, length, mask, first,
+                                         np.linspace(1.0, 2.0, 2 * f), *rays)
+            chunks = -(-u // 64)
+            out = (np.empty((chunks, reps, 5)), np.empty((chunks, reps, 5)), np.empty(chunks),
+                   np.empty(chunks))
+            chain_kernels.specular_chains(scene.arrays, n, facet_node, absorb, specular,
+                                          *rays[:5], rays[5], 64, 100, *out)
+            tallies.append(out)
+            if length:
+                marked += int(rays[5].sum())
+                total += u
+        for a, b in zip(*tallies):
+            assert np.array_equal(a, b)
+    assert marked > 0.3 * total

@@ -249,7 +249,7 @@ def _chain_sums(absorbed, diffuse, esc, lost, chunks):
             float(esc[:chunks].sum()), float(lost[:chunks].sum()))
 
 
-def _run_chains(model, band, origin, direction, exclude, weight, replicate):
+def _run_chains(model, band, origin, direction, exclude, weight, replicate, clear):
     """Specular chains of a batch of rays.
 
     Returns (absorbed (m, n), diffuse (m, n), escaped, inert) [W]: the sums over the rays
@@ -266,7 +266,8 @@ def _run_chains(model, band, origin, direction, exclude, weight, replicate):
     if count:
         chain_kernels.specular_chains(model.arrays, model.normals, model.facet_node, band["f_abs"],
                                       band["f_spec"], origin, direction, exclude, weight,
-                                      replicate, chain_kernels.CHAIN_CHUNK, model.max_bounces,
+                                      replicate, clear, chain_kernels.CHAIN_CHUNK,
+                                      model.max_bounces,
                                       absorbed, diffuse, esc, lost)
     return _chain_sums(absorbed, diffuse, esc, lost, chunks)
 
@@ -321,7 +322,7 @@ def reflect(model, bands: Bands, src, band, step, rep, lit_mask, lit, cos_t,
 
 def _sun_mirror(model, band, step, lit_mask, lit, cos_t):
     """Mirror rays of the unshadowed Sun samples of the specular sides, with their power,
-    facet left and replicate."""
+    facet left, replicate and whether nothing can meet them (no tracing needed)."""
     s = model.sides
     spec = band["spec_sides"]
     n = model.m * model.k_sun
@@ -336,14 +337,15 @@ def _sun_mirror(model, band, step, lit_mask, lit, cos_t):
     exclude = np.empty(total, dtype=np.int64)
     weight = np.empty(total)
     replicate = np.empty(total, dtype=np.int64)
+    clear = np.empty(total, dtype=np.bool_)
     if total:
-        heat_kernels.sun_mirror_rays(model.vertices, model.triangles, model.normals,
-                                     np.ascontiguousarray(s.facet[spec]),
+        heat_kernels.sun_mirror_rays(model.arrays, model.vertices, model.triangles,
+                                     model.normals, np.ascontiguousarray(s.facet[spec]),
                                      np.ascontiguousarray(s.sign[spec]), model.seed, model.m,
-                                     model.k_sun, step.sun, step.cos_half,
+                                     model.k_sun, step.sun, step.cos_half, model.diagonal,
                                      np.ascontiguousarray(lit_mask[spec]), first, per_sample,
-                                     origin, direction, exclude, weight, replicate)
-    return origin, direction, exclude, weight, replicate
+                                     origin, direction, exclude, weight, replicate, clear)
+    return origin, direction, exclude, weight, replicate, clear
 
 
 def _planet_mirror(model, bands: Bands, src, band, step, rep,

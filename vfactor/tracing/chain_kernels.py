@@ -113,7 +113,7 @@ def _chain(arrays, normals, facet_node, facet_absorptivity, facet_specular, ox, 
 
 @njit(**JIT_PARALLEL)
 def specular_chains(arrays, normals, facet_node, facet_absorptivity, facet_specular,
-                    origin, direction, exclude, weight, replicate, chunk, max_bounces,
+                    origin, direction, exclude, weight, replicate, clear, chunk, max_bounces,
                     out_absorbed, out_diffuse, out_escaped, out_inert):
     """Specular reflection chains of a batch of rays, tallied per fixed chunk of rays.
 
@@ -127,6 +127,8 @@ def specular_chains(arrays, normals, facet_node, facet_absorptivity, facet_specu
     exclude : (m,) int64 — facet the ray leaves
     weight : (m,) float64 — power carried [W]
     replicate : (m,) int64 — replicate the ray belongs to (tally column)
+    clear : (m,) bool — rays known to meet no facet (:mod:`vfactor.tracing.beam`): they
+        escape without tracing, with the same sums as tracing them
     chunk : int — rays per tally row (fixed, so sums do not depend on the thread count)
     max_bounces : int
     out_absorbed, out_diffuse : (c, replicates, n) float64, written — per chunk,
@@ -143,10 +145,13 @@ def specular_chains(arrays, normals, facet_node, facet_absorptivity, facet_specu
         ine = 0.0
         for i in range(c * chunk, min(m, (c + 1) * chunk)):
             r = replicate[i]
-            e, q = _chain(arrays, normals, facet_node, facet_absorptivity, facet_specular,
-                          origin[i, 0], origin[i, 1], origin[i, 2], direction[i, 0],
-                          direction[i, 1], direction[i, 2], exclude[i], weight[i],
-                          max_bounces, out_absorbed[c, r], out_diffuse[c, r])
+            if clear[i]:
+                e, q = weight[i], 0.0       # what _chain returns for a first miss
+            else:
+                e, q = _chain(arrays, normals, facet_node, facet_absorptivity,
+                              facet_specular, origin[i, 0], origin[i, 1], origin[i, 2],
+                              direction[i, 0], direction[i, 1], direction[i, 2], exclude[i],
+                              weight[i], max_bounces, out_absorbed[c, r], out_diffuse[c, r])
             esc += e
             ine += q
         out_escaped[c] = esc

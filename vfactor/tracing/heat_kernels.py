@@ -19,7 +19,8 @@ Kernels
 - :func:`mirror_rays` : mirror images of cached rays about their side's normal.
 - :func:`sun_lit_mask` : per step, sample points of each side traced toward the solar disk
   (not those of sides that :func:`vfactor.tracing.beam.beam_clear` proves unshadowed).
-- :func:`sun_mirror_rays` : the unshadowed Sun samples of given sides, mirrored.
+- :func:`sun_mirror_rays` : the unshadowed Sun samples of given sides, mirrored (marked
+  where the mirror beam provably meets nothing, so their chains need no tracing).
 
 References
 ----------
@@ -216,9 +217,10 @@ def sun_lit_mask(arrays, vertices, triangles, normals, side_facet, side_sign, se
 
 
 @njit(**JIT_PARALLEL)
-def sun_mirror_rays(vertices, triangles, normals, side_facet, side_sign, seed, replicates,
-                    per_replicate, sun, cos_half_angle, lit_mask, first, per_sample,
-                    out_origin, out_direction, out_exclude, out_weight, out_replicate):
+def sun_mirror_rays(arrays, vertices, triangles, normals, side_facet, side_sign, seed,
+                    replicates, per_replicate, sun, cos_half_angle, beam_length, lit_mask,
+                    first, per_sample, out_origin, out_direction, out_exclude, out_weight,
+                    out_replicate, out_clear):
     """Regenerate the unshadowed sun sample rays of the given sides and mirror them about
     the side, packed side by side (the order of ``lit_mask[sides][lit]``).
 
@@ -226,13 +228,20 @@ def sun_mirror_rays(vertices, triangles, normals, side_facet, side_sign, seed, r
     ----------
     side_facet, side_sign : (q,) int64 — the sides
     lit_mask : (q, replicates * per_replicate) bool — which samples are unshadowed
-    first : (q,) int64 — row of each side's first unshadowed sample in the outputs
+    first : (q + 1,) int64 — row of each side's first unshadowed sample in the outputs
+        (and the end of the last side's)
     per_sample : (q,) float64 — power each sample of the side carries [W]
     out_origin, out_direction : (u, 3) float64, written — sample point [m], mirror
         direction [1]
     out_exclude : (u,) int64, written — the side's facet
     out_weight : (u,) float64, written — ``per_sample`` of the side [W]
     out_replicate : (u,) int64, written — replicate of the sample
+    arrays : tuple — ``Scene.arrays``; beam_length : float — diagonal of the bounding box
+        of all facets [m] (0: no beam test)
+    out_clear : (u,) bool, written — True where no facet can meet the mirror ray (the
+        mirror images of the solar cone about the side's normal form a cone of the same
+        half-angle about the mirror image of ``sun``:
+        :func:`vfactor.tracing.beam.beam_clear` of that axis)
     """
     sx = sun[0]
     sy = sun[1]
@@ -245,6 +254,15 @@ def sun_mirror_rays(vertices, triangles, normals, side_facet, side_sign, seed, r
         nz = sign * normals[f, 2]
         stream = side_stream(PURPOSE_SUN, f, sign)
         row = first[s]
+        clear = False
+        if beam_length > 0.0 and first[s + 1] > row:
+            sn = sx * nx + sy * ny + sz * nz
+            axis = np.empty(3)
+            axis[0] = -sx + 2.0 * sn * nx
+            axis[1] = -sy + 2.0 * sn * ny
+            axis[2] = -sz + 2.0 * sn * nz
+            clear = beam_clear(arrays, vertices, triangles, normals, f, sign, axis,
+                               cos_half_angle, beam_length)
         for r in range(replicates):
             for k in range(per_replicate):
                 j = r * per_replicate + k
@@ -264,4 +282,5 @@ def sun_mirror_rays(vertices, triangles, normals, side_facet, side_sign, seed, r
                 out_exclude[row] = f
                 out_weight[row] = per_sample[s]
                 out_replicate[row] = r
+                out_clear[row] = clear
                 row += 1
