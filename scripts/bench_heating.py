@@ -7,7 +7,8 @@
 2. How the time grows with the number of facets (the demo's max_edge divided by 1, 1.5, 2)
    and with the number of steps (18, 36, 72, 144), with the cache.
 3. The statistical error of the demo's per-node planet loads (albedo, planet IR) at equal
-   rays, with the control variates of :mod:`vfactor.heatplanet` and with the plain Monte
+   rays (of the estimator: the couplings' error in reflected power, common to all, left
+   out, then printed with it), with the control variates of :mod:`vfactor.heatplanet` and with the plain Monte
    Carlo estimates from the very same rays (``heatstep.plain_estimates``); then against
    the previous estimator, the plain estimates from one ray sequence per side instead of
    one per node (``heatstep.side_sequences``, :mod:`vfactor.tracing.side_rays`), with the
@@ -119,14 +120,23 @@ def main(argv=None):
     if worst != 0.0:
         print("  WARNING: cache and re-trace differ")
 
-    print("planet loads at equal rays: node one-sigma errors with the control variates / "
-          "plain estimates (same rays)")
+    ours = plain_estimates(geometry, scene, trajectory, environment, plain=False, **kw)
+    print("planet loads at equal rays: node one-sigma errors of the estimator (the "
+          "couplings' error in reflected power left out, the same for all) with the control "
+          "variates / plain estimates (same rays)")
     plain = plain_estimates(geometry, scene, trajectory, environment, **kw)
-    _error_ratios(with_cache, plain)
+    _error_ratios(ours, plain)
     print("planet loads at equal rays: node one-sigma errors of this estimator / the plain "
           "estimates with one ray sequence per side (the previous estimator)")
     previous = plain_estimates(geometry, scene, trajectory, environment, per_side=True, **kw)
-    _error_ratios(with_cache, previous)
+    _error_ratios(ours, previous)
+    print("with the couplings' error in reflected power (the stage's own 256 rays per side "
+          "here; the radiation stage's couplings in a run):")
+    for src in ("albedo", "planet_ir"):
+        total = getattr(with_cache, f"node_{src}_stderr")
+        alone = getattr(ours, f"node_{src}_stderr")
+        print(f"  {src:9s}: largest {total.max():.4f} W (estimator {alone.max():.4f}); "
+              f"mean {total.mean():.5f} W (estimator {alone.mean():.5f})")
 
     print("time with the cache against facets (72 steps):")
     divisors = (1.0, 2.0) if args.quick else (1.0, 1.5, 2.0)
@@ -186,17 +196,24 @@ class _Quiet:
         pass
 
 
-def plain_estimates(geometry, scene, trajectory, environment, per_side=False, **kw):
+def plain_estimates(geometry, scene, trajectory, environment, per_side=False, plain=True,
+                    **kw):
     """The heating of :func:`timed` (seed 1) with the plain Monte Carlo estimates of planet
-    IR and albedo on every side: the same rays, no control variates; ``per_side``: the
-    same number of rays from one sequence per side (``heatstep.side_sequences``)."""
+    IR and albedo on every side: the same rays, no control variates (``plain=False``:
+    with them, as :func:`timed`); ``per_side``: the same number of rays from one sequence
+    per side (``heatstep.side_sequences``). The reported errors are those of the
+    estimator alone: the error of the couplings in the reflected power
+    (:mod:`vfactor.reflecterror`), the same for every estimator, is left out."""
     task = HeatingSteps.of(geometry, scene, trajectory, environment, seed=1, **kw)
     model, _ = task.prepare(geometry, scene)
     if per_side:
         model = heatstep.side_sequences(model, _Quiet())
-    plain = heatstep.plain_estimates(model)
-    bands = heatreflect.bands_of(plain, geometry, None)
-    return task.assemble(task.run((plain, bands), np.arange(task.n_steps)))
+    if plain:
+        model = heatstep.plain_estimates(model)
+    gebhart = {band: None if geb is None else geb._replace(errors=None)
+               for band, geb in heatreflect.band_gebhart(model, geometry, None).items()}
+    bands = heatreflect.bands_of(model, geometry, None, gebhart)
+    return task.assemble(task.run((model, bands), np.arange(task.n_steps)))
 
 
 def _first(trajectory, stop, start=0):

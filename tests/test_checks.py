@@ -374,16 +374,17 @@ def test_altitude_that_looks_like_metres_is_a_warning(write_model):
     (20_000, 0.3, 0.1, False),    # 7 %: no ray-count warning, the summary sees the shares
     (200_000, 0.3, 0.1, False),   # 2.2 % on a 1 % view factor
 ])
-def test_reflective_coatings_with_few_rays_warn_that_load_errors_leave_couplings_out(
+def test_reflective_coatings_with_few_rays_warn_that_loads_carry_the_couplings_error(
         write_model, rays, alpha, eps, warns):
-    # The heat loads' +- is the spread of the heating replicates; the couplings that
-    # redistribute reflected power are the same in each, so their error is not in it. The
+    # The couplings that redistribute reflected power are the same in every heating
+    # replicate; their error enters the loads' +- to first order only. The
     # 1 % view factor's error is the binomial sqrt((1 - F) / (F N)) (Howell, Menguc & Siegel,
     # Thermal Radiation Heat Transfer, 6th ed., ch. 7): 15.7 % at N = 4000.
     path = write_model(f'[coatings.al]\nsolar_absorptivity = {alpha}\n'
                        f'ir_emissivity = {eps}\n[radiation]\nrays_per_node = {rays}\n' + BOX
                        .replace('coating = "w"', 'coating = "al"'), coatings=False)
-    lines = [p.line() for p in check_model(path).warnings if "leaves that error out" in p.line()]
+    lines = [p.line() for p in check_model(path).warnings
+             if "heat loads after reflection carry" in p.line()]
     assert bool(lines) == warns, lines
     if warns:
         assert "'al' (90 % of the infrared band)" in lines[0] and "16 %" in lines[0]

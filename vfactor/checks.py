@@ -396,8 +396,9 @@ def _check_ray_count(model: Model, report: CheckReport) -> None:
 
 
 REFLECTION_WARNING_SHARE = 0.5
-"""Share of a band's incident power a coating reflects above which ``check`` reminds that the
-errors of reflected heat loads leave out the couplings' own error (a threshold of our own)."""
+"""Share of a band's incident power a coating reflects above which ``check`` reminds that
+heat loads after reflection carry the couplings' error, propagated to first order only (a
+threshold of our own)."""
 REFLECTION_COUPLING_ERROR = 0.05
 """Relative error of a 1 % view factor (as :func:`_check_ray_count` estimates it) that the
 reminder asks for (a target of our own); it is given where the ray count already draws the
@@ -408,14 +409,15 @@ so below that the run's summary, which sees the reflected shares, says it)."""
 def _check_reflection_errors(model: Model, report: CheckReport) -> None:
     """Warn when reflective coatings meet couplings from few rays.
 
-    The heating stage's one-sigma errors (``/heating/*_stderr``) come from the spread of
-    its replicates; the diffuse couplings that redistribute reflected power are the same in
-    every replicate, so their own Monte Carlo error is not in that spread. Where coatings
-    reflect much and the couplings come from few rays, the true error of the loads of the
-    nodes that receive reflections can be many times the reported one (measured on a
-    public CubeSat frame, aluminium at alpha 0.3 and eps 0.1, 4000 rays per node: scatter
-    over seeds a median 3.8 and up to ~1000 times the reported error; with black coatings
-    1.0).
+    The diffuse couplings that redistribute reflected power are the same in every heating
+    replicate; their error enters the loads' one-sigma errors (``/heating/*_stderr``) by
+    first-order propagation (:mod:`vfactor.reflecterror`), which is good for small errors
+    of the couplings and rough for large ones. Where coatings reflect much and the couplings
+    come from few rays, the loads of the nodes that receive reflections are then uncertain
+    (measured on a public CubeSat frame, aluminium at alpha 0.3 and eps 0.1, 4000 rays per
+    node: before the couplings' error was propagated, the scatter over seeds was a median
+    3.8 and up to ~1000 times the reported error; with it, a median 0.9 and at most 2.9
+    over 6 seeds).
     """
     rays = model.radiation.rays_per_node
     F = RAY_CHECK_VIEW_FACTOR
@@ -437,9 +439,9 @@ def _check_reflection_errors(model: Model, report: CheckReport) -> None:
         f"{', '.join(reflective[:3])}{' ...' if len(reflective) > 3 else ''} "
         f"{'reflects' if len(reflective) == 1 else 'reflect'} much of what they receive, "
         f"and {rays} rays per node leave the couplings that redistribute it uncertain "
-        f"(~{100 * rel:.0f} % on a 1 % view factor): the "
-        f"+- of heat loads leaves that error out; use at least {needed} rays per node or "
-        f"set target_error, and compare two seeds (--seed)"))
+        f"(~{100 * rel:.0f} % on a 1 % view factor): heat loads after reflection carry "
+        f"that error (in their +-, to first order only); use at least {needed} rays per "
+        f"node or set target_error, and compare two seeds (--seed)"))
 
 
 ALTITUDE_WARNING_KM = 100_000.0

@@ -319,7 +319,8 @@ def _write_heating(root, heat: Heating, time):
         value = getattr(heat, f"node_{src}_stderr", None)
         if value is not None:
             _put(g, f"{src}_stderr", value, "W",
-                 f"one-sigma Monte Carlo error of the directly absorbed {names[src]} per node")
+                 f"one-sigma Monte Carlo error of the absorbed {names[src]} per node (heating "
+                 f"rays; couplings' error in reflected power to first order)")
         value = getattr(heat, f"escaped_{src}", None)
         if value is not None:
             _put(g, f"escaped_{src}", value, "W",

@@ -62,9 +62,10 @@ Each side's rays (and its Sun sample points) form ``replicates`` independently r
 quasi-Monte Carlo sequences; the per-node one-sigma error is the spread of the replicate
 estimates (``std(ddof=1) / sqrt(M)``; Owen 2013, "Monte Carlo theory, methods and
 examples", ch. 17). Specular chains and diffuse pools are tallied per replicate too, so the
-reported error covers the reflected part as well; it does not include the error of the node
-view factors used in the diffuse redistribution (see :class:`vfactor.radiation.ViewFactors`
-``stderr``), which is the same for every replicate.
+spread covers the reflected part as well. The node view factors of the diffuse
+redistribution are the same in every replicate, so their error is added apart, in
+quadrature (independent rays): its first-order propagation through the Gebhart factors
+(:func:`vfactor.heatreflect.coupling_variance`).
 
 Approximations (documented, common practice): the Sun is a uniform disk at the Sun
 distance of the step, and its direction is the same at the vehicle and over the planet;
@@ -401,16 +402,28 @@ ROWS = {**{f"{kind}_{src}": "node" for kind in ("node", "incident") for src in S
 
 
 class _View(NamedTuple):
-    """The node view factors the diffuse redistribution uses (fields of ViewFactors)."""
+    """The node view factors the diffuse redistribution uses (fields of ViewFactors), and
+    the variances of their node entries with the factor that makes each a bound
+    (:func:`vfactor.heatreflect.coupling_variance`)."""
 
     matrix: object
     space: np.ndarray
     inert: np.ndarray
+    variances: tuple = ()
 
 
 def _view_of(view_factors) -> _View:
+    from vfactor.sparsetools import as_csr
+
+    variances = []
+    for name, bound in (("stderr", 1.0), ("smoothed_stderr", 2.0)):
+        err = getattr(view_factors, name, None)
+        if err is not None:
+            var = as_csr(err).copy()
+            var.data = var.data ** 2
+            variances.append((var, bound))
     return _View(view_factors.matrix, np.asarray(view_factors.space, dtype=np.float64),
-                 np.asarray(view_factors.inert, dtype=np.float64))
+                 np.asarray(view_factors.inert, dtype=np.float64), tuple(variances))
 
 
 @dataclass(frozen=True, eq=False)

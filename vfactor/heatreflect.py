@@ -21,11 +21,12 @@ from typing import NamedTuple
 import numpy as np
 import scipy.sparse as sp
 
+from vfactor.reflecterror import band_errors, binomial_variance, coupling_variance
 from vfactor.sparsetools import as_csr
 from vfactor.tracing import chain_kernels, heat_kernels, heat_sums
 from vfactor.tracing.side_rays import TARGET_ESCAPE, TARGET_INERT
 
-__all__ = ["Bands", "PlanetRays", "band_gebhart", "bands_of", "reflect"]
+__all__ = ["Bands", "BandCouplings", "PlanetRays", "band_gebhart", "bands_of", "reflect"]
 
 
 class PlanetRays(NamedTuple):
@@ -38,7 +39,8 @@ class PlanetRays(NamedTuple):
 
 
 def _node_view_factors(sides, targets, n_nodes, node_area):
-    """Node-to-node, space and inert view factors from the cached first hits [1].
+    """Node-to-node, space and inert view factors from the cached first hits [1], and the
+    variances of the node entries (:func:`vfactor.reflecterror.binomial_variance`).
 
     Each ray carries ``A_s / N`` of its side's area (``N`` rays per side); the rays of a
     side are first counted per target (:func:`vfactor.tracing.heat_sums.target_runs`).
@@ -55,28 +57,45 @@ def _node_view_factors(sides, targets, n_nodes, node_area):
     lost = target == TARGET_INERT
     space = np.bincount(src[escape], weights=weight[escape], minlength=n_nodes)
     inert = np.bincount(src[lost], weights=weight[lost], minlength=n_nodes)
-    return matrix, space / area, inert / area
+    variance = binomial_variance(sides.node, sides.area, start, target, count,
+                                 targets.shape[1], n_nodes, node_area)
+    return matrix, space / area, inert / area, ((variance, 1.0),)
 
 
-def _gebhart(view, absorptivity):
-    """(B, B_space, B_inert) of one band from node view factors (matrix, space, inert)."""
+class BandCouplings(NamedTuple):
+    """The diffuse redistribution of one band (internal): Gebhart factors ``B`` (n, n),
+    to space, lost (inert and dropped), and what the error of the view factors behind
+    them needs (:class:`vfactor.reflecterror.BandErrors` or None)."""
+
+    gebhart: object
+    space: np.ndarray
+    inert: np.ndarray
+    errors: object
+
+
+def _gebhart(view, absorptivity) -> BandCouplings:
+    """The :class:`BandCouplings` of one band from node view factors (matrix, space, inert,
+    variances)."""
     from vfactor.radiation import gebhart_matrix
 
-    matrix, space, inert = view
+    matrix, space, inert, variances = view
     geb = gebhart_matrix(matrix, space, inert, absorptivity)
     # the dropped share is redistributed nowhere: count it with the inert (lost) power
-    return geb.gebhart, geb.space, geb.inert + geb.dropped
+    return BandCouplings(geb.gebhart, geb.space, geb.inert + geb.dropped,
+                         band_errors(geb.gebhart, geb.operator, absorptivity, variances))
 
 
 def band_gebhart(model, geometry, view_factors) -> dict:
-    """Per band ("solar", "ir"): (B, B_space, B_inert) of the node view factors
-    ``view_factors`` (an object with matrix, space, inert), or of the cached rays when it is
-    None; None for a band in which every node is black."""
+    """Per band ("solar", "ir"): the :class:`BandCouplings` of the node view factors
+    ``view_factors`` (an object with matrix, space, inert and optionally ``variances``,
+    as :class:`vfactor.heating._View`), or of the cached rays when it is None; None for a
+    band in which every node is black."""
     n = model.n_nodes
     if view_factors is not None:
         view = (as_csr(view_factors.matrix),
                 np.asarray(view_factors.space, dtype=np.float64),
-                np.asarray(view_factors.inert, dtype=np.float64))
+                np.asarray(view_factors.inert, dtype=np.float64),
+                tuple(getattr(view_factors, "variances", ())))
         if view[0].shape != (n, n):
             raise ValueError(f"compute_heating: view_factors.matrix must have shape ({n}, {n}),"
                              f" got {view[0].shape}")
@@ -126,7 +145,7 @@ def bands_of(model, geometry, view_factors, gebhart=None) -> "Bands":
         spec_share = (1.0 - s_abs) * s_spec
         geb = gebhart[band]
         per_band[band] = dict(
-            gebhart=geb, gebhart_t=None if geb is None else geb[0].T,
+            gebhart=geb, gebhart_t=None if geb is None else geb.gebhart.T,
             f_abs=f_abs, f_spec=f_spec, s_abs=s_abs, s_spec=s_spec,
             reflected_share=1.0 - s_abs, diffuse_share=1.0 - s_spec, spec_share=spec_share,
             albedo_coefficient=s.area / (m * model.k_planet) * spec_share,
@@ -282,8 +301,11 @@ def reflect(model, bands: Bands, src, band, step, rep, lit_mask, lit, cos_t,
 
     Returns
     -------
-    (absorbed (m, n) [W], escaped [W], inert [W]); ``absorbed[r]`` is replicate ``r``'s
-    estimate, the estimate itself is the mean over the replicates.
+    (absorbed (m, n) [W], escaped [W], inert [W], variance (n,) [W^2]); ``absorbed[r]``
+    is replicate ``r``'s estimate, the estimate itself is the mean over the replicates;
+    ``variance`` is that of the absorbed power from the error of the view factors behind
+    the Gebhart factors (:func:`vfactor.reflecterror.coupling_variance`; zero without
+    diffuse reflection), which the replicates do not see.
     """
     s = model.sides
     m = model.m
@@ -310,14 +332,16 @@ def reflect(model, bands: Bands, src, band, step, rep, lit_mask, lit, cos_t,
         pool += m * d
         escaped += e
         lost += q
-    if band["gebhart"] is not None:
-        _, b_space, b_inert = band["gebhart"]
+    variance = np.zeros(model.n_nodes)
+    geb = band["gebhart"]
+    if geb is not None:
         absorbed += (band["gebhart_t"] @ pool.T).T       # B^T once per band (bands_of)
-        escaped += float((pool @ b_space).mean())
-        lost += float((pool @ b_inert).mean())
+        escaped += float((pool @ geb.space).mean())
+        lost += float((pool @ geb.inert).mean())
+        variance = coupling_variance(geb.errors, pool.mean(axis=0))
     else:
         escaped += float(pool.sum(axis=1).mean())
-    return absorbed, escaped, lost
+    return absorbed, escaped, lost, variance
 
 
 def _sun_mirror(model, band, step, lit_mask, lit, cos_t):

@@ -426,10 +426,11 @@ def one_step(model: Model, bands, step: Step, use_cache: bool, k: int, out: dict
                                facet_power, node_rep)
         out[f"incident_{src}"][k] = node_sums[0]
         absorbed_node = node_sums[1]
+        coupling_var = None
         if bands is not None and s.count:
             band = bands.ir if src == "planet_ir" else bands.solar
-            extra_rep, escaped, lost = reflect(model, bands, src, band, step, rep,
-                                                lit_mask, lit, cos_t, planet_rays)
+            extra_rep, escaped, lost, coupling_var = reflect(
+                model, bands, src, band, step, rep, lit_mask, lit, cos_t, planet_rays)
             node_rep = node_rep + extra_rep
             extra = extra_rep.mean(axis=0)
             absorbed_node = absorbed_node + extra
@@ -439,7 +440,10 @@ def one_step(model: Model, bands, step: Step, use_cache: bool, k: int, out: dict
             facet_power = facet_power + spread
             out[f"escaped_{src}"][k] = escaped
             out[f"inert_{src}"][k] = lost
-        out[f"node_{src}_stderr"][k] = node_rep.std(axis=0, ddof=1) / math.sqrt(m)
+        # the replicates' spread and, apart, the couplings' error (independent rays)
+        spread_error = node_rep.std(axis=0, ddof=1) / math.sqrt(m)
+        out[f"node_{src}_stderr"][k] = (spread_error if coupling_var is None else
+                                        np.hypot(spread_error, np.sqrt(coupling_var)))
         out[f"node_{src}"][k] = absorbed_node
         out[f"facet_{src}"][k] = np.where(model.facet_positive,
                                           facet_power / model.facet_area_safe, 0.0)

@@ -83,10 +83,11 @@ are uncertain (:data:`RELATIVE_ERROR_WARNING`) [1] (a threshold of our own)."""
 
 
 def _reflection_warnings(heat, nodes, relative_error) -> list:
-    """The heat loads' one-sigma errors are the spread of the heating replicates; the diffuse
-    couplings that redistribute reflected power are the same in every replicate, so their
-    own error is not in it (see ``vfactor check``). Warn where reflected power is a large
-    share of what is absorbed and the couplings are uncertain."""
+    """The diffuse couplings that redistribute reflected power are the same in every heating
+    replicate; their error enters the loads' one-sigma errors to first order only
+    (:mod:`vfactor.reflecterror`), which is rough where they are uncertain (see ``vfactor
+    check``). Warn where reflected power is a large share of what is absorbed and the
+    couplings are uncertain."""
     if not relative_error > RELATIVE_ERROR_WARNING:
         return []
     out = []
@@ -104,8 +105,8 @@ def _reflection_warnings(heat, nodes, relative_error) -> list:
                        f"{src.replace('_', ' ')} after reflections inside the vehicle "
                        f"({nodes.names[i]!r}: {100 * share[i]:.0f} %), redistributed by "
                        f"couplings with up to {100 * relative_error:.1f} % error: their loads' "
-                       f"+- leaves that error out; run with more rays (--rays, or [radiation] "
-                       f"target_error) or compare two seeds (--seed)")
+                       f"+- carries that error to first order only; run with more rays "
+                       f"(--rays, or [radiation] target_error) or compare two seeds (--seed)")
     return out
 
 

@@ -219,8 +219,8 @@ def summary_text(results: Results, top: int = 15, all_nodes: bool = False,
         lines.append("  avg = time average over the steps; reflections inside the vehicle included")
         w = h.get("largest_stderr")
         if w is not None:
-            lines.append(f"  largest one-sigma Monte Carlo error of a load (its rays, not the "
-                         f"couplings' error in reflected power): "
+            lines.append(f"  largest one-sigma Monte Carlo error of a load (its rays, and the "
+                         f"couplings' error in reflected power to first order): "
                          f"{_g(w['stderr_W'])} W ({w['node']}, {_SOURCE_LABEL[w['source']]}, "
                          f"step {w['step']})")
 
