@@ -422,8 +422,7 @@ def one_step(model: Model, bands, step: Step, use_cache: bool, k: int, out: dict
         node_sums = np.empty((2, n_nodes))
         facet_power = np.empty(n_facets)
         node_rep = np.empty((m, n_nodes))
-        heat_sums.side_tallies(s.node, s.facet, absorb, rep, rep.mean(axis=1), node_sums,
-                               facet_power, node_rep)
+        heat_sums.side_tallies(s.node, s.facet, absorb, rep, node_sums, facet_power, node_rep)
         out[f"incident_{src}"][k] = node_sums[0]
         absorbed_node = node_sums[1]
         coupling_var = None

@@ -63,7 +63,7 @@ def replicate_estimates(sides, counts, unblocked, factors, out):
 
 
 @njit(**JIT)
-def side_tallies(node, facet, absorb, rep, incident, out_node, out_facet, out_replicates):
+def side_tallies(node, facet, absorb, rep, out_node, out_facet, out_replicates):
     """Per node and facet sums of one source's per-side values, each added in side order
     (what ``np.bincount`` gives: the sums do not depend on anything but the side order).
 
@@ -71,8 +71,8 @@ def side_tallies(node, facet, absorb, rep, incident, out_node, out_facet, out_re
     ----------
     node, facet : (s,) int64 — node and facet of each side
     absorb : (s,) float64 — absorptivity of the side in the source's band [1]
-    rep : (s, m) float64 — replicate estimates of the power incident on the side [W]
-    incident : (s,) float64 — their mean over the replicates [W]
+    rep : (s, m) float64 — replicate estimates of the power incident on the side [W]; the
+        side's estimate is their mean (summed in replicate order, divided by ``m``)
     out_node : (2, n) float64, written — incident and absorbed power per node [W]
     out_facet : (f,) float64, written — absorbed power per facet [W]
     out_replicates : (m, n) float64, written — absorbed power per replicate and node [W]
@@ -80,11 +80,16 @@ def side_tallies(node, facet, absorb, rep, incident, out_node, out_facet, out_re
     out_node[:] = 0.0
     out_facet[:] = 0.0
     out_replicates[:] = 0.0
+    m = rep.shape[1]
     for i in range(node.shape[0]):
         j = node[i]
         a = absorb[i]
-        absorbed = a * incident[i]
-        out_node[0, j] += incident[i]
+        total = 0.0
+        for r in range(m):
+            total += rep[i, r]
+        incident = total / m
+        absorbed = a * incident
+        out_node[0, j] += incident
         out_node[1, j] += absorbed
         out_facet[facet[i]] += absorbed
         for r in range(out_replicates.shape[0]):
