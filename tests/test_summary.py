@@ -31,6 +31,10 @@ def test_summary_numbers_match_the_file(results):
     assert pair["conductance_W_K4"] == STEFAN_BOLTZMANN * kw["exchange"].area[0, 1]
     # Exchange.stderr is given: area error = eps_i A_i sigma(B_ij)
     assert pair["exchange_area_stderr_m2"] == pytest.approx(0.85 * 1.0 * 1e-3, rel=1e-12)
+    # the error shown beside the delivered (smoothed) value is the delivered one
+    vf = kw["view_factors"]
+    assert pair["view_factor_stderr"] == vf.smoothed_stderr[0, 1]
+    assert s["space"][1]["view_factor_stderr"] == vf.smoothed_stderr_space[1]
     assert s["space"][1]["view_factor"] == kw["view_factors"].space[1]
     # the view factor of a node to itself (a concave node sees itself) is listed too
     assert s["space"][1]["self_view_factor"] == kw["view_factors"].matrix[1, 1]
@@ -53,7 +57,8 @@ def test_text_and_json(results):
     r, _ = results
     text = summary.format_summary(r)
     for needle in ("Strongest couplings", "Couplings to deep space", "Orbit", "heat loads",
-                   "Cautions", "licensed engineering practice", "bottom -> top"):
+                   "Cautions", "licensed engineering practice", "bottom -> top",
+                   "error of raw view factors", "error of delivered (smoothed) view factors"):
         assert needle in text, needle
     back = json.loads(summary.to_json(summary.summarize(r)))
     assert back["cautions"] == list(summary.CAUTIONS)

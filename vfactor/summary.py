@@ -219,7 +219,10 @@ def summarize(results: Results, top: int = 15) -> dict:
         eps_area = nodes.ir_emissivity * nodes.area
         # pair keys over the stored upper-triangle entries: cost grows with the non-zeros
         F = as_csr(vf.matrix)
-        E = as_csr(vf.stderr)
+        # the errors of the values shown: the delivered (smoothed) ones where recorded
+        delivered = vf.smoothed_stderr is not None
+        E = as_csr(vf.smoothed_stderr if delivered else vf.stderr)
+        E_space = np.asarray(vf.smoothed_stderr_space if delivered else vf.stderr_space)
         X = None if ex is None else as_csr(ex.area)
         both = F + F.T if X is None else F + F.T + X + X.T     # every stored pair
         upper = sp.triu(both, k=1).tocoo()
@@ -272,7 +275,7 @@ def summarize(results: Results, top: int = 15) -> dict:
                    else np.asarray(ex.dropped, dtype=np.float64))
         for i in range(n):
             row = {"node": nodes.names[i], "view_factor": float(vf.space[i]),
-                   "view_factor_stderr": float(vf.stderr_space[i]),
+                   "view_factor_stderr": float(E_space[i]),
                    "self_view_factor": float(self_view[i]),
                    "inert": float(vf.inert[i]), "rays": int(vf.rays[i])}
             if ex is not None:
@@ -334,7 +337,8 @@ def summarize(results: Results, top: int = 15) -> dict:
 
         loads["largest"] = _largest_loads(heat, results.trajectory.time, nodes.names, top)
         if vf is not None:
-            warnings += _reflection_warnings(heat, nodes,
+            rel = accuracy["largest_delivered_relative_stderr_significant"]
+            warnings += _reflection_warnings(heat, nodes, rel if np.isfinite(rel) else
                                              accuracy["largest_relative_stderr_significant"])
     hinges = None
     if results.hinges is not None:

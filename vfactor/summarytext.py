@@ -155,11 +155,18 @@ def summary_text(results: Results, top: int = 15, all_nodes: bool = False,
         acc = s["accuracy"]
         lines += ["", "Accuracy"]
         lines.append(f"  largest one-sigma error of any view factor: {acc['largest_stderr']:.2e}")
-        rel = acc["largest_relative_stderr_significant"]
-        lines.append(f"  largest relative one-sigma error of view factors >= "
-                     f"{acc['significant_threshold']}: " +
-                     (f"{100 * rel:.2f} %" if np.isfinite(rel) else
-                      "none reaches that level (small nodes: judge the absolute error above)"))
+        smoothed = not acc["smoothing_method"].startswith("none")
+        rows = [("raw view factors" if smoothed else "view factors",
+                 acc["largest_relative_stderr_significant"])]
+        if smoothed and acc.get("largest_delivered_relative_stderr_significant") is not None:
+            rows.append(("delivered (smoothed) view factors",
+                         acc["largest_delivered_relative_stderr_significant"]))
+        for label, rel in rows:
+            lines.append(f"  largest relative one-sigma error of {label} >= "
+                         f"{acc['significant_threshold']}: " +
+                         (f"{100 * rel:.2f} %" if np.isfinite(rel) else
+                          "none reaches that level (small nodes: judge the absolute error "
+                          "above)"))
         lines += textwrap.wrap(f"reciprocity/closure smoothing: {acc['smoothing_method']}; "
                                f"largest adjustment {acc['largest_adjustment_sigma']:.2f} sigma",
                                width=92, initial_indent="  ", subsequent_indent="    ")
