@@ -109,7 +109,7 @@ def test_a_side_under_a_panel_is_not_clear(vehicle):
 
 def test_sun_samples_are_the_same_with_and_without_the_beam_test(vehicle):
     """The beam test only skips tracing: mask and counts are bit for bit those of tracing
-    every sample."""
+    every sample (and do not depend on the order the sides are handed to the threads)."""
     scene, diagonal = vehicle
     f = scene.triangles.shape[0]
     facet = np.concatenate([np.arange(f), np.arange(f)]).astype(np.int64)
@@ -117,12 +117,14 @@ def test_sun_samples_are_the_same_with_and_without_the_beam_test(vehicle):
     reps, per = 4, 8
     for sun in _suns(12, 2):
         out = []
-        for length in (0.0, diagonal):
+        # without and with the beam test, the sides handed to the threads in two orders
+        for length, order in ((0.0, np.arange(2 * f)), (diagonal, np.arange(2 * f)[::-1])):
             mask = np.empty((2 * f, reps * per), np.bool_)
             count = np.empty((2 * f, reps))
             heat_kernels.sun_lit_mask(scene.arrays, scene.vertices, scene.triangles,
-                                      scene.normals, facet, sign, np.uint64(5), reps, per,
-                                      sun, np.cos(SUN_HALF_ANGLE), length, mask, count)
+                                      scene.normals, facet, sign, order.copy(), np.uint64(5),
+                                      reps, per, sun, np.cos(SUN_HALF_ANGLE), length, mask,
+                                      count)
             out.append((mask, count))
         assert np.array_equal(out[0][0], out[1][0])
         assert np.array_equal(out[0][1], out[1][1])
@@ -149,8 +151,8 @@ def test_mirror_chains_of_clear_sun_samples_are_the_same_without_tracing(vehicle
     for sun in _suns(6, 3):
         mask = np.empty((2 * f, reps * per), np.bool_)
         count = np.empty((2 * f, reps))
-        heat_kernels.sun_lit_mask(scene.arrays, v, t, n, facet, sign, np.uint64(5), reps, per,
-                                  sun, cos_half, diagonal, mask, count)
+        heat_kernels.sun_lit_mask(scene.arrays, v, t, n, facet, sign, np.arange(2 * f),
+                                  np.uint64(5), reps, per, sun, cos_half, diagonal, mask, count)
         first = np.zeros(2 * f + 1, np.int64)
         np.cumsum(mask.sum(axis=1), out=first[1:])
         u = int(first[-1])

@@ -365,8 +365,8 @@ def one_step(model: Model, bands, step: Step, use_cache: bool, k: int, out: dict
     lit = blank((s.count, m))
     if sunlit:
         heat_kernels.sun_lit_mask(model.arrays, model.vertices, model.triangles, model.normals,
-                                  s.facet, s.sign, model.seed, m, model.k_sun, step.sun,
-                                  step.cos_half, model.diagonal, lit_mask, lit)
+                                  s.facet, s.sign, model.order, model.seed, m, model.k_sun,
+                                  step.sun, step.cos_half, model.diagonal, lit_mask, lit)
 
     # planet: hits and albedo cosines per (side, replicate); per ray for specular sides
     blank = np.empty if s.count else np.zeros       # the kernels write every entry

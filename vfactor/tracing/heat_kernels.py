@@ -158,7 +158,7 @@ def mirror_rays(rows, owner, origin, direction, side_normal, out_origin, out_dir
 
 
 @njit(**JIT_PARALLEL)
-def sun_lit_mask(arrays, vertices, triangles, normals, side_facet, side_sign, seed,
+def sun_lit_mask(arrays, vertices, triangles, normals, side_facet, side_sign, order, seed,
                  replicates, per_replicate, sun, cos_half_angle, beam_length, out_mask,
                  out_count):
     """Per step: which sample points of each side see the Sun.
@@ -175,6 +175,9 @@ def sun_lit_mask(arrays, vertices, triangles, normals, side_facet, side_sign, se
     arrays : tuple — ``Scene.arrays``
     vertices (v, 3) [m], triangles (f, 3) int64, normals (f, 3) [1]
     side_facet (s,) int64, side_sign (s,) int64
+    order : (s,) int64 — the sides in the order handed to the threads (any permutation:
+        the outputs do not depend on it; one that mixes sides of every part balances the
+        threads, whose shares are contiguous)
     seed : uint64; replicates, per_replicate : int
     sun : (3,) float64 — unit vector toward the centre of the Sun [1]
     cos_half_angle : float — cosine of the Sun's angular radius [1]
@@ -186,7 +189,8 @@ def sun_lit_mask(arrays, vertices, triangles, normals, side_facet, side_sign, se
     sx = sun[0]
     sy = sun[1]
     sz = sun[2]
-    for s in prange(side_facet.shape[0]):
+    for q in prange(order.shape[0]):
+        s = order[q]
         f = side_facet[s]
         sign = side_sign[s]
         cos_t = sign * (normals[f, 0] * sx + normals[f, 1] * sy + normals[f, 2] * sz)
