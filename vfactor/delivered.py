@@ -16,7 +16,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from vfactor.arrays import finite_array
-from vfactor.sparsetools import as_csr, values_at
+from vfactor.sparsetools import as_csr, hit_pairs, values_at
 
 __all__ = ["PairPrecision", "pair_precision", "delivered_stderr", "row_dof"]
 
@@ -98,13 +98,7 @@ def pair_precision(mean, stderr, area, dof=None) -> PairPrecision:
     if nu.shape != (n,) or np.any(np.isnan(nu)) or np.any(nu <= 0):
         raise ValueError(f"pair_precision: dof must be (n,) = ({n},) positive, got "
                          f"{nu.shape}")
-    node = F[:, :n] if F.shape[1] > n else F
-    hit = sp.csr_array((node.data > 0, node.indices, node.indptr), shape=(n, n))
-    hit.eliminate_zeros()
-    pattern = sp.triu(hit + hit.T, k=1).tocoo()
-    order = np.lexsort((pattern.col, pattern.row))
-    iu = pattern.row[order].astype(np.int64)
-    ju = pattern.col[order].astype(np.int64)
+    iu, ju = hit_pairs(as_csr(F[:, :n]) if F.shape[1] > n else F)
     fij, fji = values_at(F, iu, ju), values_at(F, ju, iu)
     eij, eji = values_at(E, iu, ju), values_at(E, ju, iu)
     var_i = np.where(fij > 0, (A[iu] * eij) ** 2, np.inf)

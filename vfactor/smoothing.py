@@ -13,7 +13,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from vfactor.arrays import finite_array
-from vfactor.sparsetools import as_csr, values_at
+from vfactor.sparsetools import as_csr, hit_pairs, values_at
 
 __all__ = ["SmoothedViewFactors", "smooth_view_factors", "SMOOTHING_METHOD", "NO_SMOOTHING"]
 
@@ -124,12 +124,7 @@ def smooth_view_factors(raw_matrix, raw_space, raw_inert, variance, variance_spa
 
     # Unknowns: one g = A_i F_ij = A_j F_ji per pair i < j hit in at least one direction
     # (others are structural zeros), the diagonal, space and inert entries of each row.
-    hit = sp.csr_array((F.data > 0, F.indices, F.indptr), shape=F.shape)
-    hit.eliminate_zeros()
-    pattern = sp.triu(hit + hit.T, k=1).tocoo()
-    order = np.lexsort((pattern.col, pattern.row))
-    iu = pattern.row[order].astype(np.int64)
-    ju = pattern.col[order].astype(np.int64)
+    iu, ju = hit_pairs(F)
     fij, fji = values_at(F, iu, ju), values_at(F, ju, iu)
     vij, vji = values_at(V, iu, ju) + floor[iu], values_at(V, ju, iu) + floor[ju]
     if np.any((vij <= 0) & (fij > 0)) or np.any((vji <= 0) & (fji > 0)) or \

@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 import scipy.sparse as sp
 
-__all__ = ["as_csr", "values_at", "row_max", "row_ids", "dense"]
+__all__ = ["as_csr", "values_at", "row_max", "row_ids", "hit_pairs", "dense"]
 
 
 def as_csr(matrix, shape=None) -> sp.csr_array:
@@ -54,6 +54,17 @@ def row_max(matrix, values=None) -> np.ndarray:
     if data.size:
         np.maximum.at(out, row_ids(matrix), data)
     return out
+
+
+def hit_pairs(matrix):
+    """The pairs ``i < j`` of a square CSR matrix with a positive entry in at least one
+    direction, in row order: ``(iu, ju)`` int64 (the unknowns of reciprocity)."""
+    n = matrix.shape[0]
+    hit = sp.csr_array((matrix.data > 0, matrix.indices, matrix.indptr), shape=(n, n))
+    hit.eliminate_zeros()
+    pattern = sp.triu(hit + hit.T, k=1).tocoo()
+    order = np.lexsort((pattern.col, pattern.row))
+    return pattern.row[order].astype(np.int64), pattern.col[order].astype(np.int64)
 
 
 def dense(matrix) -> np.ndarray:
