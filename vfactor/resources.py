@@ -36,11 +36,14 @@ threshold: the rest is the system's and other programs')."""
 TIME_WARNING_S = 3600.0
 """Estimated run time [s] above which ``check`` warns (our own threshold)."""
 
-COUPLING_COPIES = 24
+COUPLING_COPIES = 30
 """Bytes per stored coupling entry / 8 at the run's peak, counted from the code (our own
 count): sparse tally sums and squares (keys, values), their mean and error, raw and
 smoothed view factors and their error, smoothing variances and pair arrays, the Gebhart
-reflection series and its partial sums, Gebhart factors, exchange areas and their error."""
+reflection series and its partial sums, Gebhart factors, exchange areas and their error;
+and for the heating stage's error of the couplings, per band the transposed reflection
+operator, the squared Gebhart factors and the entry variances (:mod:`vfactor.reflecterror`;
+measured at 9870 nodes: peak 1.0 GB before it, 1.25 GB with it)."""
 
 COUPLED_PER_ROW = 1000
 """Stored entries assumed per node row when the node count is larger (our own upper
