@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from vfactor.gebhart import gebhart_matrix
-from vfactor.reflecterror import band_errors, coupling_variance
+from vfactor.reflecterror import band_errors, coupling_variance, transposed_variance
 
 
 def _enclosure(n, seed):
@@ -42,7 +42,7 @@ def test_first_order_variance_matches_sampling_the_gebhart_solve():
     pool = np.random.default_rng(4).uniform(1.0, 10.0, n)
     base, g = _absorbed(F, space, eps, pool)
     S = (0.01 * F) ** 2
-    errors = band_errors(g.gebhart, g.operator, eps, ((S, 1.0),))
+    errors = band_errors(g.gebhart, g.operator, eps, ((transposed_variance(0.01 * F), 1.0),))
     predicted = coupling_variance(errors, pool)
     rng = np.random.default_rng(5)
     draws = []
@@ -59,10 +59,12 @@ def test_bounds_take_the_smallest_and_no_variance_gives_zero():
     F, space, eps = _enclosure(n, 7)
     pool = np.ones(n)
     _, g = _absorbed(F, space, eps, pool)
-    S = (0.02 * F) ** 2
-    one = coupling_variance(band_errors(g.gebhart, g.operator, eps, ((S, 1.0),)), pool)
+    err = 0.02 * F
+    one = coupling_variance(band_errors(g.gebhart, g.operator, eps,
+                                        ((transposed_variance(err), 1.0),)), pool)
     both = coupling_variance(band_errors(g.gebhart, g.operator, eps,
-                                         ((4.0 * S, 1.0), (S, 2.0))), pool)
+                                         ((transposed_variance(2.0 * err), 1.0),
+                                          (transposed_variance(err), 2.0))), pool)
     np.testing.assert_allclose(both, 2.0 * one, rtol=1e-12)
     assert band_errors(g.gebhart, g.operator, eps, ()) is None
     assert np.all(coupling_variance(None, pool) == 0.0)

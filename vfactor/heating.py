@@ -403,8 +403,8 @@ ROWS = {**{f"{kind}_{src}": "node" for kind in ("node", "incident") for src in S
 
 class _View(NamedTuple):
     """The node view factors the diffuse redistribution uses (fields of ViewFactors), and
-    the variances of their node entries with the factor that makes each a bound
-    (:func:`vfactor.heatreflect.coupling_variance`)."""
+    the variances of their node entries (transposed) with the factor that makes each a
+    bound (:func:`vfactor.reflecterror.coupling_variance`)."""
 
     matrix: object
     space: np.ndarray
@@ -413,15 +413,13 @@ class _View(NamedTuple):
 
 
 def _view_of(view_factors) -> _View:
-    from vfactor.sparsetools import as_csr
+    from vfactor.reflecterror import transposed_variance
 
     variances = []
     for name, bound in (("stderr", 1.0), ("smoothed_stderr", 2.0)):
         err = getattr(view_factors, name, None)
         if err is not None:
-            var = as_csr(err).copy()
-            var.data = var.data ** 2
-            variances.append((var, bound))
+            variances.append((transposed_variance(err), bound))
     return _View(view_factors.matrix, np.asarray(view_factors.space, dtype=np.float64),
                  np.asarray(view_factors.inert, dtype=np.float64), tuple(variances))
 

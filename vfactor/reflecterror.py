@@ -38,7 +38,8 @@ import scipy.sparse as sp
 
 from vfactor.sparsetools import as_csr
 
-__all__ = ["BandErrors", "band_errors", "coupling_variance", "binomial_variance"]
+__all__ = ["BandErrors", "band_errors", "coupling_variance", "binomial_variance",
+           "transposed_variance"]
 
 
 class BandErrors:
@@ -46,7 +47,8 @@ class BandErrors:
 
     ``operator_t``: ``G^T``; ``square_t``: ``(B o B)^T`` (elementwise square); ``keep``:
     ``(1 - eps)^2``; ``own``: ``eps^2 + 2 eps B_jj (1 - eps)`` (the diagonal of ``M`` met
-    twice); ``variances``: tuples ``(S^T, bound)`` of entry variances and their factor.
+    twice); ``variances``: tuples ``(S^T, bound)`` of the entries' variances, transposed
+    (CSR), and their factor, shared by the bands (not copied).
     """
 
     def __init__(self, gebhart, operator, node_abs, variances):
@@ -58,11 +60,13 @@ class BandErrors:
         self.square_t = as_csr(square.T)
         self.keep = (1.0 - eps) ** 2
         self.own = eps * eps + 2.0 * eps * B.diagonal() * (1.0 - eps)
-        self.variances = tuple((as_csr(as_csr(v).T), float(bound)) for v, bound in variances)
+        self.variances = tuple((v, float(bound)) for v, bound in variances)
 
 
 def band_errors(gebhart, operator, node_abs, variances):
-    """:class:`BandErrors` of a band, or None when no variance of the couplings is known."""
+    """:class:`BandErrors` of a band, or None when no variance of the couplings is known.
+    ``variances``: tuples ``(S^T, bound)``, ``S^T`` the transposed (CSR) variances of the
+    node entries (:func:`transposed_variance`)."""
     if not variances:
         return None
     return BandErrors(gebhart, operator, node_abs, variances)
@@ -90,6 +94,14 @@ def coupling_variance(errors: BandErrors, pool) -> np.ndarray:
     return best
 
 
+def transposed_variance(stderr):
+    """``S^T`` (CSR) of the one-sigma errors ``stderr`` (n, n) of node view factors: the
+    form :class:`BandErrors` takes, made once for both bands."""
+    var = as_csr(as_csr(stderr).T)
+    var.data = var.data ** 2
+    return var
+
+
 def binomial_variance(side_node, side_area, start, target, count, rays, n_nodes, node_area):
     """Variances of the node-to-node view factors counted from a stage's own rays, as for
     independent rays: ``sum_s (A_s / A_i)^2 p (1 - p) / N`` over the sides ``s`` of node
@@ -99,7 +111,7 @@ def binomial_variance(side_node, side_area, start, target, count, rays, n_nodes,
 
     Returns
     -------
-    (n, n) csr_array [1]
+    (n, n) csr_array [1] — transposed, ``S^T``, as :class:`BandErrors` takes it
     """
     side = np.repeat(np.arange(side_node.shape[0]), np.diff(start))
     hit = target >= 0
@@ -108,4 +120,4 @@ def binomial_variance(side_node, side_area, start, target, count, rays, n_nodes,
     area = np.where(node_area > 0.0, node_area, 1.0)
     share = side_area[side][hit] / area[src]
     var = share * share * p * (1.0 - p) / float(rays)
-    return as_csr(sp.coo_array((var, (src, target[hit])), shape=(n_nodes, n_nodes)))
+    return as_csr(sp.coo_array((var, (target[hit], src)), shape=(n_nodes, n_nodes)))
