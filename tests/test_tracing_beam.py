@@ -75,8 +75,8 @@ def test_a_clear_side_has_no_shadowed_ray_and_the_test_clears_many(vehicle):
     for sun in _suns(10, 1):
         sides = [(f, sign) for f in range(t.shape[0]) for sign in (1, -1)
                  if sign * n[f] @ sun > 0]
-        clear = np.array([beam_clear(scene.arrays, v, t, n, f, sign, sun, cos_half, diagonal)
-                          for f, sign in sides])
+        clear = np.array([beam_clear(scene.arrays, v, t, n, f, sign, *sun, cos_half,
+                                     diagonal) for f, sign in sides])
         facet = np.repeat([f for f, _ in sides], k)
         a, b, c = (v[t[facet, q]] for q in range(3))
         r1, r2 = rng.random(facet.size), rng.random(facet.size)
@@ -104,7 +104,8 @@ def test_a_side_under_a_panel_is_not_clear(vehicle):
     assert under
     up = np.array([0.0, 0.0, 1.0])
     for f in under:
-        assert not beam_clear(scene.arrays, v, t, n, f, 1, up, np.cos(SUN_HALF_ANGLE), diagonal)
+        assert not beam_clear(scene.arrays, v, t, n, f, 1, *up, np.cos(SUN_HALF_ANGLE),
+                              diagonal)
 
 
 def test_sun_samples_are_the_same_with_and_without_the_beam_test(vehicle):

@@ -125,6 +125,14 @@ def _arc(a, rho):
 
 
 @njit(**JIT, inline="always")
+def _arc_ends(alpha, ca, sa, half, ch, sh):
+    """The ends ``alpha -+ half`` of an arc with their cosines and sines (angle addition,
+    from ``ca, sa`` of ``alpha`` and ``ch, sh`` of ``half``)."""
+    return (alpha - half, ca * ch + sa * sh, sa * ch - ca * sh,
+            alpha + half, ca * ch - sa * sh, sa * ch + ca * sh)
+
+
+@njit(**JIT, inline="always")
 def _primitive(a1, b1, c1, a2, b2, c2, x, c, s):
     """Antiderivative of (a1 + b1 cos x + c1 sin x)(a2 + b2 cos x + c2 sin x) at ``x``,
     with ``c = cos x`` and ``s = sin x``."""
@@ -152,18 +160,8 @@ def _ring_integral(a1, rho1, alpha1, ca1, sa1, a2, rho2, alpha2, ca2, sa2):
     if k1 == 2 and k2 == 2:
         return two_pi * (a1 * a2 + 0.5 * (b1 * b2 + c1 * c2))
     # ends (angle, cos, sin) of arc 1 (when partial) and arc 2
-    x10 = alpha1 - h1
-    c10 = ca1 * ch1 + sa1 * sh1
-    s10 = sa1 * ch1 - ca1 * sh1
-    x11 = alpha1 + h1
-    c11 = ca1 * ch1 - sa1 * sh1
-    s11 = sa1 * ch1 + ca1 * sh1
-    x20 = alpha2 - h2
-    c20 = ca2 * ch2 + sa2 * sh2
-    s20 = sa2 * ch2 - ca2 * sh2
-    x21 = alpha2 + h2
-    c21 = ca2 * ch2 - sa2 * sh2
-    s21 = sa2 * ch2 + ca2 * sh2
+    x10, c10, s10, x11, c11, s11 = _arc_ends(alpha1, ca1, sa1, h1, ch1, sh1)
+    x20, c20, s20, x21, c21, s21 = _arc_ends(alpha2, ca2, sa2, h2, ch2, sh2)
     if k1 == 2:
         return (_primitive(a1, b1, c1, a2, b2, c2, x21, c21, s21)
                 - _primitive(a1, b1, c1, a2, b2, c2, x20, c20, s20))

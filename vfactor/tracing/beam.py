@@ -97,8 +97,8 @@ def _sweep_meets(fl, fh, lo, hi, slopes, span, pad):
 
 
 @njit(**JIT)
-def beam_clear(arrays, vertices, triangles, normals, facet, sign, sun, cos_half_angle,
-               length):
+def beam_clear(arrays, vertices, triangles, normals, facet, sign, sx, sy, sz,
+               cos_half_angle, length):
     """True when no facet can shadow any point of side (``facet``, ``sign``) from any
     point of the solar disk (see the module notes); False when it may.
 
@@ -108,7 +108,7 @@ def beam_clear(arrays, vertices, triangles, normals, facet, sign, sun, cos_half_
     vertices (v, 3) [m], triangles (f, 3) int64, normals (f, 3) [1]
     facet : int — the side's facet (never counts as a shadow of itself)
     sign : int — +1 front side, -1 back side
-    sun : (3,) float64 — unit vector toward the centre of the Sun [1]
+    sx, sy, sz : float — unit vector toward the centre of the Sun (the cone's axis) [1]
     cos_half_angle : float — cosine of the Sun's angular radius [1]
     length : float — diagonal of the bounding box of all facets [m]
     """
@@ -117,9 +117,6 @@ def beam_clear(arrays, vertices, triangles, normals, facet, sign, sun, cos_half_
     tri = arrays[2]
     tri_i = arrays[3]
     n = (sign * normals[facet, 0], sign * normals[facet, 1], sign * normals[facet, 2])
-    sx = sun[0]
-    sy = sun[1]
-    sz = sun[2]
     spread = beam_spread(cos_half_angle)
     if n[0] * sx + n[1] * sy + n[2] * sz <= spread + 1e-9:
         return False                     # some ray of the cone may run along the plane

@@ -195,7 +195,7 @@ def sun_lit_mask(arrays, vertices, triangles, normals, side_facet, side_sign, or
         sign = side_sign[s]
         cos_t = sign * (normals[f, 0] * sx + normals[f, 1] * sy + normals[f, 2] * sz)
         if cos_t > 0.0 and beam_length > 0.0 and beam_clear(
-                arrays, vertices, triangles, normals, f, sign, sun, cos_half_angle,
+                arrays, vertices, triangles, normals, f, sign, sx, sy, sz, cos_half_angle,
                 beam_length):
             for j in range(replicates * per_replicate):
                 out_mask[s, j] = True
@@ -261,12 +261,9 @@ def sun_mirror_rays(arrays, vertices, triangles, normals, side_facet, side_sign,
         clear = False
         if beam_length > 0.0 and first[s + 1] > row:
             sn = sx * nx + sy * ny + sz * nz
-            axis = np.empty(3)
-            axis[0] = -sx + 2.0 * sn * nx
-            axis[1] = -sy + 2.0 * sn * ny
-            axis[2] = -sz + 2.0 * sn * nz
-            clear = beam_clear(arrays, vertices, triangles, normals, f, sign, axis,
-                               cos_half_angle, beam_length)
+            clear = beam_clear(arrays, vertices, triangles, normals, f, sign,
+                               -sx + 2.0 * sn * nx, -sy + 2.0 * sn * ny,
+                               -sz + 2.0 * sn * nz, cos_half_angle, beam_length)
         for r in range(replicates):
             for k in range(per_replicate):
                 j = r * per_replicate + k
