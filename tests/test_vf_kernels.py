@@ -1,7 +1,8 @@
 """Tests of vfactor.tracing.vf_kernels against slow, obviously correct re-implementations.
 
-The oracles rebuild every ray in plain Python from the documented design (R_5 point from
-exact integer arithmetic, side by area, point and direction by the sampling functions) and
+The oracles rebuild every ray in plain Python from the documented design (scrambled Sobol'
+point from scipy's unscrambled points and Python integers, side by area, point and
+direction by the sampling functions) and
 trace it by brute force (tests/oracles.py, Moller & Trumbore 1997); the fused kernels must
 give the same tallies bit for bit.
 """
@@ -17,56 +18,65 @@ from vfactor.tracing import vf_kernels as K
 from vfactor.tracing.rng import STREAM_STRIDE, philox4x32_10
 from vfactor.tracing.sampling import cosine_direction, triangle_point
 from vfactor.tracing.scene import Scene
+from vfactor.tracing.sobol import draw_scramble
 
 
-def r5_alphas_exact():
-    # phi_5: real root of x**6 = x + 1 (Roberts 2018), alpha_i = phi**-(i+1) in 0.64 fixed
-    # point; bisection in exact rationals is overkill: double precision then the same
-    # rounding as the module.
-    lo, hi = 1.0, 2.0
-    for _ in range(200):
-        mid = 0.5 * (lo + hi)
-        if mid ** 6 - mid - 1 > 0:
-            hi = mid
-        else:
-            lo = mid
-    return lo
+_SCIPY_POINTS = {}
 
 
-def r5_point_python(seed, stream, replicate, j):
-    """Point j of the shifted R_5 sequence with Python integers."""
+def sobol_word_scipy(j, d):
+    """Unscrambled 32-bit word of point ``j``, dimension ``d``, from scipy's Sobol' points
+    (Joe & Kuo direction numbers; scipy lists the points in Gray-code order: its ``i``-th
+    point is point ``i ^ (i >> 1)`` of the sequence)."""
+    from scipy.stats import qmc
+
+    if "x" not in _SCIPY_POINTS:
+        x = qmc.Sobol(5, scramble=False, bits=32).random(1 << 14)
+        _SCIPY_POINTS["x"] = (x * 2.0 ** 32).astype(np.uint64)
+    i, g = 0, j          # inverse Gray code: i with i ^ (i >> 1) == j
+    while g:
+        i ^= g
+        g >>= 1
+    return int(_SCIPY_POINTS["x"][i, d])
+
+
+def scrambled_point_python(seed, stream, replicate, j):
+    """Point j of the Owen-scrambled Sobol' sequence (design of vfactor.tracing.sobol) with
+    Python integers: scramble words from Philox at counters 4 replicate + t, bits
+    reversed, mixed (add, odd multiply, xor-multiplies by even constants), reversed back."""
     words = []
     for t in range(3):
         c = replicate * 4 + t
         w = philox4x32_10(c & 0xFFFFFFFF, c >> 32, stream & 0xFFFFFFFF, stream >> 32,
                           seed & 0xFFFFFFFF, seed >> 32)
         words += [int(x) for x in w]
-    shift = [(words[2 * i] << 32) | words[2 * i + 1] for i in range(5)]
-    alpha = [int(a) for a in K._ALPHA5]
-    return [float(((shift[i] + j * alpha[i]) % 2 ** 64) >> 11) * 2.0 ** -53 for i in range(5)]
+    rev = lambda x: int(f"{x:032b}"[::-1], 2)
+    m32 = 0xFFFFFFFF
+    out = []
+    for d in range(5):
+        add, mul = words[2 * d], words[2 * d + 1] | 1
+        x = rev(sobol_word_scipy(j, d))
+        x ^= (x * 0x3D20ADEA) & m32
+        x = (x + add) & m32
+        x = (x * mul) & m32
+        x ^= (x * 0x05526C56) & m32
+        x ^= (x * 0x53A22864) & m32
+        out.append((rev(x) + 0.5) * 2.0 ** -32)
+    return out
 
 
-def test_r5_increments_and_points():
-    phi = r5_alphas_exact()
-    assert abs(phi ** 6 - phi - 1) < 1e-12
-    for i, a in enumerate(K._ALPHA5):
-        assert abs(int(a) / 2 ** 64 - phi ** -(i + 1)) < 1e-15
-    shift = np.empty(5, np.uint64)
-    K.r5_shift(np.uint64(7), np.uint64(STREAM_STRIDE + 3), np.uint64(2), shift)
-    for j in (0, 1, 5, 123456, 2 ** 31 + 17):
-        ours = [K.r5_point(shift, j, i) for i in range(5)]
-        assert ours == r5_point_python(7, STREAM_STRIDE + 3, 2, j)
-
-
-def test_chunk_order_is_increasing_first_coordinate():
-    shift = np.empty(5, np.uint64)
-    K.r5_shift(np.uint64(1), np.uint64(5), np.uint64(0), shift)
-    for j0 in (0, K.CHUNK, 7 * K.CHUNK):
-        p0 = K._chunk_start(K._SORTED_X, shift[0], j0)
-        order = [int(K._PERM[(p0 + q) % K.CHUNK]) for q in range(K.CHUNK)]
-        u0 = [K.r5_point(shift, j0 + k, 0) for k in order]
-        assert sorted(order) == list(range(K.CHUNK))
-        assert all(a <= b for a, b in zip(u0, u0[1:]))
+def test_block_order_is_increasing_first_coordinate():
+    scramble = np.empty(10, np.uint64)
+    draw_scramble(np.uint64(1), np.uint64(5), np.uint64(0), scramble)
+    for blk, k_lo, k_hi in ((0, 0, K.CHUNK), (K.CHUNK, 0, 3000), (3 * K.CHUNK, 700, 4000)):
+        base = np.empty(5, np.uint64)
+        K._block_words(blk, base)
+        order = np.empty(K.CHUNK, np.int64)
+        K._order_block(K._TABLE, scramble, base, k_lo, k_hi, order)
+        ks = [int(k) for k in order if k >= 0]
+        assert sorted(ks) == list(range(k_lo, k_hi))
+        u0 = [scrambled_point_python(1, 5, 0, blk + k)[0] for k in ks]
+        assert all(a < b for a, b in zip(u0, u0[1:]))
 
 
 def _scene_with_sides():
@@ -93,7 +103,7 @@ def _oracle_pairs(g, pairs, seed, m, purpose, lengths=None):
         O, D, E, S = [], [], [], []
         size = m if lengths is None else int(lengths[p])
         for j in range(size):
-            u = r5_point_python(seed, purpose * STREAM_STRIDE + node, rnd, j)
+            u = scrambled_point_python(seed, purpose * STREAM_STRIDE + node, rnd, j)
             s = ptr[node] + int(np.searchsorted(cum[ptr[node]:ptr[node + 1]], u[0],
                                                 side="right"))
             s = min(s, ptr[node + 1] - 1)
@@ -169,16 +179,17 @@ def test_round_sizes_grow_after_the_first_rounds():
 
 def test_vf_pairs_with_grown_rounds_and_windows_equals_oracle():
     # Rounds past the first ones have more rays; a window (j_lo, j_hi) ends at each round's
-    # own length; full chunks (traced in sorted order) and small ones both appear.
+    # own length; items of many rays (traced in increasing u0) and of few both appear, and
+    # a round crosses a block of CHUNK rays.
     g = _scene_with_sides()
     sc = Scene.build(g.vertices, g.triangles)
     emit = K.emitter_table(g.front_node, g.back_node, g.areas, g.n_nodes)
     geo = (g.vertices, g.triangles, g.normals, g.front_node.astype(np.int64),
            g.back_node.astype(np.int64))
     m = 300
-    pairs = [(0, 2), (1, 17), (2, 41)]
+    pairs = [(0, 2), (1, 17), (2, 41), (1, 130)]
     lengths = K.round_rays([p[1] for p in pairs], m)
-    assert list(lengths) == [300, 600, 1500]
+    assert list(lengths) == [300, 600, 1500, 4800]      # the last crosses a block of CHUNK
     nodes, rounds = [p[0] for p in pairs], [p[1] for p in pairs]
     counts, ray_side, ray_col = K.vf_pairs(sc.arrays, emit, geo, nodes, rounds, 5, m,
                                            record=True)

@@ -35,9 +35,10 @@ CHECKPOINT_SUFFIX = ".partial"
 #: Changes whenever the rays of a stage change for the same model and seed (4: the planet
 #: rays of the heating stage drawn from one sequence per node; view-factor rounds after
 #: the 16th larger), or the sums of their results (5: the heating stage's own couplings
-#: added per side's first-hit runs; load errors with the couplings' error), so that a run
-#: never resumes from steps or tallies of other rays, rounding or error model.
-_CHECKPOINT_KIND = "vfactor-checkpoint-5"
+#: added per side's first-hit runs; load errors with the couplings' error; 6: coupling
+#: rays from Owen-scrambled Sobol' points), so that a run never resumes from steps or
+#: tallies of other rays, rounding or error model.
+_CHECKPOINT_KIND = "vfactor-checkpoint-6"
 #: Shortest time between two saves of the checkpoint [s].
 CHECKPOINT_EVERY_S = 5.0
 #: A save may take at most this share of the time between saves [1].

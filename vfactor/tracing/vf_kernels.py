@@ -3,9 +3,8 @@
 Emission design of one round (one randomised replicate)
 -------------------------------------------------------
 Node ``i`` emits ``m`` rays in round ``r``. Ray ``j = 0 .. m-1`` takes point ``j`` of the
-5-D R_5 low-discrepancy sequence (Roberts 2018, the additive recurrence with increments
-``phi_5**-(k+1)``, ``phi_5`` the real root of ``x**6 = x + 1``), shifted modulo one by a
-random vector drawn once per (node, round) (Cranley & Patterson 1976):
+first five dimensions of the Sobol' sequence, Owen-scrambled afresh for every (node,
+round) (:mod:`vfactor.tracing.sobol`):
 
 1. ``u0`` picks the facet side: the node's sides are laid end to end on [0, 1) in
    proportion to their areas (``side_cum``), so every side receives its area share of
@@ -16,15 +15,14 @@ random vector drawn once per (node, round) (Cranley & Patterson 1976):
 
 The whole node is thus one 5-D randomised quasi-Monte Carlo point set over (side,
 position, direction): positions are stratified across and within facets jointly with the
-directions. (We first used a systematic side choice with a 4-D sequence run on across the
-sides; the errors of the sides then added coherently, and on a 32-facet plate the scatter
-exceeded that of plain Monte Carlo. Independent 4-D shifts per side cured that but lost
-most of the gain on many-facet nodes.) The 5-D sequence is written here because
-:func:`vfactor.tracing.sampling.rqmc_uniform4` has four coordinates.
+directions. (A systematic side choice with a 4-D sequence run on across the sides made the
+errors of the sides add coherently; a randomly shifted 5-D lattice, used until this
+version, gave replicate values near two levels on two facing plates and errors estimated
+from 8 rounds up to 3 times too small, see the notes of :mod:`vfactor.tracing.sobol`.)
 
 Marginally every ray is uniform in (area x projected solid angle) of the node, so each
-round is an unbiased estimate; rounds are independent (independent shifts). The error is
-estimated from the spread between rounds (:func:`vfactor.tallystats.tally_statistics`).
+round is an unbiased estimate; rounds are independent (independent scrambles). The error
+is estimated from the spread between rounds (:func:`vfactor.tallystats.tally_statistics`).
 
 Round sizes
 -----------
@@ -32,27 +30,28 @@ Round ``r`` has :func:`round_rays` ``(r, m)`` rays: ``m`` in the first 16 rounds
 every node gets and 8 more), then ``m`` more every :data:`GROWTH_STEP` rounds up to ``GROWTH_CAP m`` (fewer
 where that would pass :data:`GROWTH_LIMIT` rays: :func:`growth_cap`). The
 variance of a randomised QMC replicate falls faster than 1 / rays (measured on the demo's
-hardest couplings, per ray: rounds of 50 000 rays had about half the variance of rounds of
-12 500), so a row that needs many rays is better served by larger replicates, while the
+38 significant couplings over 16 seeds: rounds of 50 000 rays had a median 0.6 times the
+variance per ray of rounds of 12 500; about half with the earlier lattice design), so a row that needs many rays is better served by larger replicates, while the
 number of replicates, which sets how well the error itself is known, still grows (about
 ``sqrt(16 N / m)`` rounds for ``N`` rays). Rounds of different sizes are combined by the
 ratio estimator in :func:`vfactor.tallystats.tally_statistics`.
 
-Within a full chunk the rays are traced in increasing ``u0``, so each ray's side is found
-by stepping on from the previous ray's (:func:`_side_after`; the same index as bisection).
+Work items never straddle an aligned block of :data:`CHUNK` points; within an item of many
+rays the rays are traced in increasing ``u0`` (one ray in every ``1 / CHUNK`` of the first
+coordinate: the net property of the scrambled sequence, no sort needed), so each ray's side
+is found by stepping on from the previous ray's (:func:`_side_after`; the same index as
+bisection).
 
 Tally columns: nodes ``0 .. n-1``, ``n`` = space (no hit), ``n + 1`` = inert (the side hit
 has no node, or, for reflection tracing, the ray was cut after :data:`MAX_BOUNCES`).
 
 Random streams (``stream = purpose * STREAM_STRIDE + node``): purpose 1 view-factor
-emission, 3 reflection-tracing emission (shift of round r: Philox counters ``4 r + t``),
+emission, 3 reflection-tracing emission (scramble of round r: Philox counters ``4 r + t``),
 5 reflections (counter ``(round << 48) | (j << 16) | bounce``, via
 :func:`vfactor.tracing.rng.uniform4`).
 
 References
 ----------
-- M. Roberts (2018), "The unreasonable effectiveness of quasirandom sequences" (R_d).
-- R. Cranley, T. N. L. Patterson (1976), SIAM J. Numer. Anal. 13(6), 904-914.
 - A. B. Owen (2013), "Monte Carlo theory, methods and examples", ch. 17 (randomised QMC,
   error from independent replicates).
 """
@@ -65,16 +64,16 @@ import numpy as np
 from numba import njit, prange
 
 from .config import JIT, JIT_PARALLEL
-from .rng import STREAM_STRIDE, philox4x32_10, uniform4
+from .rng import STREAM_STRIDE, uniform4
 from .sampling import cosine_direction, triangle_point
+from .sobol import (DIMENSIONS, _V_REV, chunk_table, draw_scramble, scrambled_point,
+                    scrambled_word, sobol_reversed)
 from .traverse import closest_hit
 
 __all__ = [
     "vf_pairs",
     "gebhart_pairs",
     "emitter_table",
-    "r5_shift",
-    "r5_point",
     "round_rays",
     "growth_cap",
     "rays_through",
@@ -101,18 +100,26 @@ MAX_RAYS_PER_ROUND = 1 << 32
 #: adaptive rounds (target 0.5 % on the demo, 20 seeds; 0.3 % on the catalog squares, 320
 #: estimates): a step of 4 rounds took 6.6 M rays on the demo, but its errors, known from
 #: fewer rounds, came out too small on the squares (mean z^2 1.26); a step of 8 rounds took
-#: 6.8 M with mean z^2 0.99; rounds all of one size took 9.9 M.
+#: 6.8 M with mean z^2 0.99; rounds all of one size took 9.9 M (measured with the earlier
+#: lattice design; with scrambled Sobol' points the demo takes 3.9 M rays on average for
+#: the delivered values, 20 seeds, scatter 0.96 times the reported variance).
 GROWTH_STEP = 8
 GROWTH_CAP = 32
 #: Rounds grow to at most this many rays (or stay at ``m`` when ``m`` is larger), which
 #: keeps the int64 sums of squared tallies as far from overflow as rounds of one size.
 GROWTH_LIMIT = 1 << 24
-#: Rays per parallel work item; within an item the rays are traced in increasing order of
-#: their side coordinate u0, so that consecutive rays start close together (rays in
-#: sequence order jump across the node; measured on the demo model, shared 2-core machine:
-#: 2.8 -> 3.5 M rays/s for the fused kernel; the tracer's batch query ran 3x slower on
-#: shuffled rays than on facet-ordered ones).
+#: Rays per parallel work item (a power of two: items are aligned blocks of the sequence);
+#: within an item the rays are traced in increasing order of their side coordinate u0, so
+#: that consecutive rays start close together (rays in sequence order jump across the node;
+#: measured on the demo model, shared 2-core machine: 2.8 -> 3.5 M rays/s for the fused
+#: kernel; the tracer's batch query ran 3x slower on shuffled rays than on facet-ordered
+#: ones).
 CHUNK = 4096
+_CHUNK_BITS = CHUNK.bit_length() - 1
+#: Unscrambled points 0 .. CHUNK - 1 (bit-reversed words, uint32): point ``B + k`` of an
+#: aligned block ``B`` is ``point(B) ^ _TABLE[k]``.
+_TABLE = chunk_table(CHUNK).astype(np.uint32)
+_ORDER_SHIFT = np.uint64(32 - _CHUNK_BITS)
 
 _STRIDE = np.uint64(STREAM_STRIDE)
 
@@ -179,7 +186,7 @@ def _first_side(side_cum, lo, hi, u):
 def _side_after(side_cum, lo, hi, u, s):
     """As :func:`_first_side`, given that the answer is at least ``s`` (``lo <= s``): a few
     steps forward, then bisection of the rest. The rays of a full chunk are traced in
-    increasing ``u0`` (see :func:`_chunk_start`: the rotated order never wraps), so each
+    increasing ``u0`` (see the module notes on work items), so each
     finds its side in O(1) from the previous ray's; the index found is the same as by
     bisection from ``lo`` (the binary search over ~500 sides cost ~20 % of the fused
     kernel's time on the demo)."""
@@ -203,117 +210,43 @@ def _first_side_from(side_cum, lo, hi, u):
     return a
 
 
-def _r5_alphas():
-    """R_5 increments alpha_i = phi_5**-(i+1), phi_5 the real root of x**6 = x + 1, as
-    64-bit fixed-point fractions (Roberts 2018)."""
-    from fractions import Fraction
-
-    phi = 1.0
-    for _ in range(200):               # Newton on x**6 - x - 1
-        phi -= (phi ** 6 - phi - 1.0) / (6.0 * phi ** 5 - 1.0)
-    return tuple(int(Fraction(1.0 / phi ** i) * 2 ** 64) % 2 ** 64 for i in range(1, 6))
-
-
-_ALPHA5 = np.array(_r5_alphas(), dtype=np.uint64)
-_S11 = np.uint64(11)
-_S32 = np.uint64(32)
-_MASK32 = np.uint64(0xFFFFFFFF)
-_INV53 = 2.0 ** -53
+@njit(**JIT, inline="always")
+def _block_words(blk, base):
+    """``base`` (DIMENSIONS,) gets the unscrambled reversed words of point ``blk``."""
+    for d in range(DIMENSIONS):
+        base[d] = sobol_reversed(_V_REV, d, blk)
 
 
 @njit(**JIT)
-def r5_shift(seed, stream, replicate, out):
-    """Random shift of the R_5 sequence for one (stream, replicate), as 5 uint64 fractions.
-
-    Drawn from Philox-4x32-10 keyed by ``seed`` with counters ``(4 replicate + t, stream)``,
-    ``t = 0, 1, 2`` (Cranley & Patterson 1976 random shift).
-    """
-    s = np.uint64(seed)
-    st = np.uint64(stream)
-    w = np.empty(12, np.uint64)
-    for t in range(3):
-        c = np.uint64(replicate) * np.uint64(4) + np.uint64(t)
-        w0, w1, w2, w3 = philox4x32_10(c & _MASK32, c >> _S32, st & _MASK32, st >> _S32,
-                                       s & _MASK32, s >> _S32)
-        w[4 * t] = w0
-        w[4 * t + 1] = w1
-        w[4 * t + 2] = w2
-        w[4 * t + 3] = w3
-    for i in range(5):
-        out[i] = (w[2 * i] << _S32) | w[2 * i + 1]
+def _order_block(table, scramble, base, k_lo, k_hi, order):
+    """``order[q]`` = the point ``k`` of the aligned block (``k_lo <= k < k_hi``) whose
+    scrambled ``u0`` lies in ``[q / CHUNK, (q + 1) / CHUNK)``, -1 where none: increasing
+    ``u0`` in one pass (each such interval holds at most one point of a block)."""
+    for q in range(CHUNK):
+        order[q] = -1
+    for k in range(k_lo, k_hi):
+        w = scrambled_word(scramble, 0, base[0] ^ np.uint64(table[k, 0]))
+        order[w >> _ORDER_SHIFT] = k
 
 
 @njit(**JIT, inline="always")
-def r5_point(shift, j, i):
-    """Coordinate ``i`` (0..4) of point ``j`` of the shifted R_5 sequence, in [0, 1)."""
-    x = shift[i] + np.uint64(j) * _ALPHA5[i]          # wrapping 64-bit fixed point
-    return np.float64(x >> _S11) * _INV53
-
-
-def _chunk_tables():
-    """Sort order of the first coordinate ``k alpha_0 mod 1`` of the unshifted R_5 points
-    ``k = 0 .. CHUNK-1`` (as uint64 fixed point): ``(sorted values, permutation)``."""
-    a0 = int(_ALPHA5[0])
-    x = np.array([(k * a0) % 2 ** 64 for k in range(CHUNK)], dtype=np.uint64)
-    perm = np.argsort(x, kind="stable")
-    return np.ascontiguousarray(x[perm]), np.ascontiguousarray(perm.astype(np.int64))
-
-
-_SORTED_X, _PERM = _chunk_tables()
-
-
-@njit(**JIT)
-def _chunk_start(sorted_x, shift0, j0):
-    """Where the points ``j0 .. j0 + CHUNK - 1`` start in increasing ``u0``.
-
-    Their first coordinates are ``c + k alpha_0`` (mod 2**64) with ``c = shift0 + j0
-    alpha_0``: a rotation of the circle, so their order is the order of ``k alpha_0``
-    rotated to begin at the first ``k alpha_0 >= 2**64 - c``.
-    """
-    c = shift0 + np.uint64(j0) * _ALPHA5[0]
-    thr = np.uint64(0) - c
-    a = 0
-    b = sorted_x.shape[0]
-    if c == np.uint64(0):
-        return 0
-    while a < b:
-        mid = (a + b) // 2
-        if sorted_x[mid] < thr:
-            a = mid + 1
-        else:
-            b = mid
-    return a % sorted_x.shape[0]
-
-
-@njit(**JIT, inline="always")
-def _ray_in_chunk(q, small, perm, p0, size):
-    """Index within its chunk of the q-th ray to trace, or -1 to skip.
-
-    Small chunks go in plain order; full chunks in increasing first coordinate of the
-    sequence (``perm`` rotated to the chunk's start ``p0``), so neighbouring rays start
-    from neighbouring points; the order changes speed only, never the tallies.
-    """
-    if small:
-        return q
-    kk = perm[(p0 + q) % CHUNK]
-    return kk if kk < size else -1
-
-
-@njit(**JIT, inline="always")
-def _emit(emit, geo, node, shift, j, s_low):
-    """Origin, direction and side index of ray ``j`` of ``node``; ``s_low`` is a side index
-    known not to exceed the ray's (the node's first side if nothing is known)."""
+def _emit(emit, geo, node, scramble, table, base, k, s_low):
+    """Origin, direction and side index of ray ``B + k`` of ``node`` (``base``: the words of
+    the ray's aligned block ``B``); ``s_low`` is a side index known not to exceed the ray's
+    (the node's first side if nothing is known)."""
     side_ptr, side_facet, side_sign, side_cum = emit[0], emit[1], emit[2], emit[3]
     vertices, triangles, normals = geo[0], geo[1], geo[2]
-    s = _side_after(side_cum, side_ptr[node], side_ptr[node + 1], r5_point(shift, j, 0),
-                    s_low)
+    u0 = scrambled_point(scramble, 0, base[0] ^ np.uint64(table[k, 0]))
+    u1 = scrambled_point(scramble, 1, base[1] ^ np.uint64(table[k, 1]))
+    u2 = scrambled_point(scramble, 2, base[2] ^ np.uint64(table[k, 2]))
+    u3 = scrambled_point(scramble, 3, base[3] ^ np.uint64(table[k, 3]))
+    u4 = scrambled_point(scramble, 4, base[4] ^ np.uint64(table[k, 4]))
+    s = _side_after(side_cum, side_ptr[node], side_ptr[node + 1], u0, s_low)
     fct = side_facet[s]
     sg = side_sign[s]
-    x, y, z = triangle_point(vertices, triangles, fct, r5_point(shift, j, 1),
-                             r5_point(shift, j, 2))
+    x, y, z = triangle_point(vertices, triangles, fct, u1, u2)
     dx, dy, dz = cosine_direction(sg * normals[fct, 0], sg * normals[fct, 1],
-                                  sg * normals[fct, 2], r5_point(shift, j, 3),
-                                  r5_point(shift, j, 4))
+                                  sg * normals[fct, 2], u3, u4)
     return s, fct, x, y, z, dx, dy, dz
 
 
@@ -345,8 +278,8 @@ def round_rays(round_index, rays_per_round):
     and 8 more) have ``m`` rays; later rounds, which only rows that need many rays reach,
     grow by ``m`` every ``GROWTH_STEP`` rounds up to :func:`growth_cap` ``(m) m``.
     A randomised quasi-Monte Carlo replicate of more rays has a smaller variance per ray
-    (measured on the demo's hardest couplings: rounds of 50 000 rays had about half the
-    variance per ray of rounds of 12 500), while the number of replicates, which sets how
+    (measured on the demo's significant couplings: rounds of 50 000 rays had a median 0.6
+    times the variance per ray of rounds of 12 500), while the number of replicates, which sets how
     well the error itself is known, still grows with the rays (about ``sqrt(16 N / m)``
     rounds for ``N`` rays). A pure function of ``(r, m)``, so rounds stay units of work.
     """
@@ -369,7 +302,7 @@ def _round_units(cap):
 
 @njit(**JIT_PARALLEL)
 def _vf_kernel(arrays, emit, geo, pair_node, pair_round, seed, item_pair, item_j0,
-               item_end, rec_off, j_lo, record, sorted_x, perm, counts, ray_side, ray_col):
+               item_end, rec_off, j_lo, record, table, counts, ray_side, ray_col):
     ncol = counts.shape[1]
     n = ncol - 2
     n_items = item_pair.shape[0]
@@ -377,23 +310,30 @@ def _vf_kernel(arrays, emit, geo, pair_node, pair_round, seed, item_pair, item_j
     for item in prange(n_items):
         a = item_pair[item]
         node = pair_node[a]
-        shift = np.empty(5, np.uint64)
-        r5_shift(seed, np.uint64(PURPOSE_VF) * _STRIDE + np.uint64(node),
-                 np.uint64(pair_round[a]), shift)
+        scramble = np.empty(2 * DIMENSIONS, np.uint64)
+        draw_scramble(seed, np.uint64(PURPOSE_VF) * _STRIDE + np.uint64(node),
+                      np.uint64(pair_round[a]), scramble)
         j0 = item_j0[item]
-        size = item_end[item] - j0
-        p0 = _chunk_start(sorted_x, shift[0], j0)
-        small = size < CHUNK // 8       # few rays: plain order (sorting would not pay)
+        blk = j0 - j0 % CHUNK           # items lie within one aligned block
+        k_lo = j0 - blk
+        k_hi = item_end[item] - blk
+        base = np.empty(DIMENSIONS, np.uint64)
+        _block_words(blk, base)
+        ordered = k_hi - k_lo >= CHUNK // 8   # few rays: plain order (ordering would not pay)
+        order = np.empty(CHUNK if ordered else 0, np.int64)
+        if ordered:
+            _order_block(table, scramble, base, k_lo, k_hi, order)
         lo = emit[0][node]
         s_low = lo
-        for q in range(size if small else CHUNK):
-            kk = _ray_in_chunk(q, small, perm, p0, size)
+        for q in range(CHUNK if ordered else k_hi - k_lo):
+            kk = order[q] if ordered else k_lo + q
             if kk < 0:
                 continue
-            j = j0 + kk
-            s, fct, x, y, z, dx, dy, dz = _emit(emit, geo, node, shift, j, s_low)
-            if not small:
-                s_low = s               # u0 increases through a sorted chunk
+            j = blk + kk
+            s, fct, x, y, z, dx, dy, dz = _emit(emit, geo, node, scramble, table, base, kk,
+                                                s_low)
+            if ordered:
+                s_low = s               # u0 increases through an ordered block
             g, t, front = closest_hit(arrays, x, y, z, dx, dy, dz, np.inf, fct)
             col = _column(geo, g, front, n)
             partial[item, col] += 1
@@ -446,21 +386,23 @@ def vf_pairs(scene_arrays, emit, geo, pair_node, pair_round, seed, rays_per_roun
     size = int(rec_off[-1]) if record else 0
     ray_side = np.empty(size, np.int64)
     ray_col = np.empty(size, np.int64)
-    chunks = -(-span // CHUNK)
+    first_block = j_lo // CHUNK         # items are cut at the aligned blocks of CHUNK rays
+    chunks = np.where(span > 0, -(-end // CHUNK) - first_block, 0)
     if k and chunks.sum():
         item_pair = np.repeat(np.arange(k, dtype=np.int64), chunks)
         first = np.repeat(np.cumsum(chunks) - chunks, chunks)
-        item_j0 = j_lo + (np.arange(item_pair.size, dtype=np.int64) - first) * CHUNK
-        item_end = np.minimum(item_j0 + CHUNK, end[item_pair])
+        blk = (first_block + np.arange(item_pair.size, dtype=np.int64) - first) * CHUNK
+        item_j0 = np.maximum(blk, j_lo)
+        item_end = np.minimum(blk + CHUNK, end[item_pair])
         _vf_kernel(scene_arrays, emit, geo, pair_node, pair_round, np.uint64(seed),
                    item_pair, item_j0, item_end, rec_off, np.int64(j_lo), bool(record),
-                   _SORTED_X, _PERM, counts, ray_side, ray_col)
+                   _TABLE, counts, ray_side, ray_col)
     return counts, ray_side, ray_col
 
 
 @njit(**JIT_PARALLEL)
 def _gebhart_kernel(arrays, emit, geo, absorb, specular, pair_node, pair_round, seed, m,
-                    sorted_x, perm, counts):
+                    table, counts):
     k = pair_node.shape[0]
     ncol = counts.shape[1]
     n = ncol - 2
@@ -473,24 +415,30 @@ def _gebhart_kernel(arrays, emit, geo, absorb, specular, pair_node, pair_round, 
         node = pair_node[a]
         rnd = np.uint64(pair_round[a])
         rshift = rnd << np.uint64(48)
-        shift = np.empty(5, np.uint64)
-        r5_shift(seed, np.uint64(PURPOSE_GEBHART) * _STRIDE + np.uint64(node), rnd, shift)
+        scramble = np.empty(2 * DIMENSIONS, np.uint64)
+        draw_scramble(seed, np.uint64(PURPOSE_GEBHART) * _STRIDE + np.uint64(node), rnd,
+                      scramble)
         bounce_stream = np.uint64(PURPOSE_BOUNCE) * _STRIDE + np.uint64(node)
         j0 = c * CHUNK
         size = min(m, j0 + CHUNK) - j0
-        p0 = _chunk_start(sorted_x, shift[0], j0)
-        small = size < CHUNK // 8       # few rays: plain order (sorting would not pay)
+        base = np.empty(DIMENSIONS, np.uint64)
+        _block_words(j0, base)
+        ordered = size >= CHUNK // 8    # few rays: plain order (ordering would not pay)
+        order = np.empty(CHUNK if ordered else 0, np.int64)
+        if ordered:
+            _order_block(table, scramble, base, 0, size, order)
         lo = emit[0][node]
         s_low = lo
-        for q in range(size if small else CHUNK):
-            kk = _ray_in_chunk(q, small, perm, p0, size)
+        for q in range(CHUNK if ordered else size):
+            kk = order[q] if ordered else q
             if kk < 0:
                 continue
             j = j0 + kk
-            s, fct, x, y, z, dx, dy, dz = _emit(emit, geo, node, shift, j, s_low)
-            if not small:
-                s_low = s               # u0 increases through a sorted chunk
-            base = rshift | (np.uint64(j) << np.uint64(16))
+            s, fct, x, y, z, dx, dy, dz = _emit(emit, geo, node, scramble, table, base, kk,
+                                                s_low)
+            if ordered:
+                s_low = s               # u0 increases through an ordered block
+            ctr = rshift | (np.uint64(j) << np.uint64(16))
             exclude = fct
             col = n + 1
             for b in range(MAX_BOUNCES + 1):
@@ -500,7 +448,7 @@ def _gebhart_kernel(arrays, emit, geo, absorb, specular, pair_node, pair_round, 
                     if col < n:
                         col = n + 1          # cut after MAX_BOUNCES: lost
                     break
-                v0, v1, v2, v3 = uniform4(seed, bounce_stream, base | np.uint64(b))
+                v0, v1, v2, v3 = uniform4(seed, bounce_stream, ctr | np.uint64(b))
                 if v0 < absorb[col]:
                     break
                 x = x + t * dx
@@ -558,5 +506,5 @@ def gebhart_pairs(scene_arrays, emit, geo, absorb, specular, pair_node, pair_rou
     if pair_node.shape[0] and m > 0:
         _gebhart_kernel(scene_arrays, emit, geo, np.ascontiguousarray(absorb, np.float64),
                         np.ascontiguousarray(specular, np.float64), pair_node, pair_round,
-                        np.uint64(seed), np.int64(m), _SORTED_X, _PERM, counts)
+                        np.uint64(seed), np.int64(m), _TABLE, counts)
     return counts
