@@ -13,6 +13,14 @@ Used for the 4 numbers of one ray (2 for the point on the facet, 2 for the direc
 the N rays of a facet fill the 4-D unit cube far more evenly than independent numbers,
 which lowers the error of smooth integrands such as view factors.
 
+Used by the heating stage (planet rays and Sun samples). The coupling rays use
+Owen-scrambled Sobol' points instead (:mod:`vfactor.tracing.sobol`): a shifted lattice gave
+them bimodal replicates on facing plates. The heating rays were checked on their own
+(40 seeds, 8 replicates each, mean squared ratio of true to reported error, 1.4 expected):
+planet IR and albedo of a nadir plate of 2, 32 and 128 triangles partly hidden by a panel,
+64 to 4096 rays per side, 1.1 to 1.8; scrambled Sobol' points there were no better (1.0 to
+1.3 where both were measured) and cost more per ray, so the lattice stays.
+
 The spread of the hits of ONE randomised sequence is not an error estimate (the rays are
 correlated). An honest one comes from ``M`` independent replicates (``replicate = 0 ..
 M-1``, each N/M rays): the estimates ``F_1..F_M`` are independent and unbiased, and the
