@@ -26,7 +26,8 @@ from vfactor.sparsetools import as_csr
 from vfactor.tracing import chain_kernels, heat_kernels, heat_sums
 from vfactor.tracing.side_rays import TARGET_ESCAPE, TARGET_INERT
 
-__all__ = ["Bands", "BandCouplings", "PlanetRays", "band_gebhart", "bands_of", "reflect"]
+__all__ = ["Bands", "BandCouplings", "PlanetRays", "band_gebhart", "bands_of", "record_chains",
+           "reflect"]
 
 
 class PlanetRays(NamedTuple):
@@ -224,6 +225,15 @@ def _chains_of(model, bands: Bands, name: str):
             entries = np.concatenate(parts) if parts else np.zeros(0, dtype=np.int32)
             bands.chains[name] = (True, start, np.ascontiguousarray(entries))
         return bands.chains[name]
+
+
+def record_chains(model, bands: Bands, names) -> None:
+    """Record now the mirror chains of the bands ``names`` ("solar", "ir") that have rows,
+    as the first step that needs them would (:func:`_chains_of`: the same records, so the
+    same bits), e.g. before steps run on threads (:mod:`vfactor.heatthreads`)."""
+    for name in names:
+        if bands.band(name)["rows"].size:
+            _chains_of(model, bands, name)
 
 
 _RECORD_BATCH = 1 << 16
