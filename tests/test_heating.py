@@ -848,3 +848,103 @@ def test_target_runs_count_each_sides_targets_like_numpy_unique():
         np.testing.assert_array_equal(got_c, counts[order])
     empty = heat_sums.target_runs(np.zeros((0, 8), np.int32))
     assert empty[0].tolist() == [0] and empty[1].size == 0
+
+
+def test_segment_rows_and_packed_chains_match_numpy():
+    # The cache rows of given sides, side by side and segment by segment, are those of
+    # np.repeat / np.arange over the segments (numpy as the reference); the packed mirror
+    # chains are the records' entries before CHAIN_UNUSED, as a boolean mask picks them.
+    from vfactor.tracing import chain_kernels, heat_kernels
+
+    rng = np.random.default_rng(6)
+    m = 4
+    lengths = rng.integers(0, 5, size=30 * m)
+    start = np.zeros(lengths.size + 1, np.int64)
+    np.cumsum(lengths, out=start[1:])
+    sides = np.array([0, 3, 4, 11, 29], np.int64)
+    segments = (sides[:, None] * m + np.arange(m)[None, :]).ravel()
+    rows_ref = np.concatenate([np.arange(start[g], start[g + 1]) for g in segments])
+    owner_ref = np.repeat(sides, m)[np.repeat(np.arange(segments.size), lengths[segments])]
+    rep_ref = (segments % m)[np.repeat(np.arange(segments.size), lengths[segments])]
+    out = [np.empty(rows_ref.size, np.int64) for _ in range(3)]
+    heat_kernels.segment_rows(sides, start, m, *out)
+    for got, ref in zip(out, (rows_ref, owner_ref, rep_ref)):
+        np.testing.assert_array_equal(got, ref)
+
+    entry = np.full((50, 6), chain_kernels.CHAIN_UNUSED, np.int32)
+    for i, n in enumerate(rng.integers(0, 7, size=50)):
+        entry[i, :n] = rng.integers(-1, 99, size=n)
+    length = np.empty(50, np.int64)
+    count = chain_kernels.pack_chains(entry, length, np.zeros(0, np.int32))
+    packed = np.empty(count, np.int32)
+    chain_kernels.pack_chains(entry, length, packed)
+    used = entry != chain_kernels.CHAIN_UNUSED
+    np.testing.assert_array_equal(length, used.sum(axis=1))
+    np.testing.assert_array_equal(packed, entry[used])
+
+
+@pytest.mark.parametrize("carry", [0, 1, 2])
+def test_planet_mirror_weights_match_a_row_by_row_oracle(carry):
+    # The weights of the rows that carry specular power, and which rows carry it, are
+    # those of visiting every row (the kernel skips the (side, replicate) segments without
+    # a ray that meets the planet, or without a positive mu): plain Python as the
+    # reference, with the formulas of the kernel's notes (CARRY_MU, CARRY_EVEN,
+    # CARRY_BY_MU).
+    from vfactor.tracing import chain_kernels
+
+    rng = np.random.default_rng(10 + carry)
+    m, n_sides = 3, 12
+    spec = np.array([1, 4, 5, 9, 11], np.int64)
+    per_segment = rng.integers(0, 5, size=spec.size * m)
+    first = np.zeros(per_segment.size + 1, np.int64)
+    np.cumsum(per_segment, out=first[1:])
+    u = int(first[-1])
+    replicate = np.concatenate([np.full(k, q % m) for q, k in enumerate(per_segment)])
+    owner = np.concatenate([np.full(k, spec[q // m]) for q, k in enumerate(per_segment)])
+    hit = rng.random(u) < 0.6
+    mu = np.where(hit & (rng.random(u) < 0.7), rng.random(u), 0.0)
+    seen = np.zeros((2, n_sides * m))
+    for i in range(u):
+        g = owner[i] * m + replicate[i]
+        seen[0, g] += hit[i]
+        seen[1, g] += mu[i] if hit[i] else 0.0
+    rep = rng.random((n_sides, m))
+    share = rng.random(n_sides)
+    coefficient = rng.random(n_sides)
+    carry_of = np.full(n_sides, carry, np.int64)
+    expected = {}
+    for j, s in enumerate(spec):
+        for r in range(m):
+            g = s * m + r
+            for i in range(first[j * m + r], first[j * m + r + 1]):
+                if not hit[i]:
+                    continue
+                wanted = share[s] * rep[s, r] / m
+                if carry == chain_kernels.CARRY_MU:
+                    w = coefficient[s] * 0.3 * 1361.0 * mu[i]
+                elif carry == chain_kernels.CARRY_EVEN:
+                    w = wanted / seen[0, g] if seen[0, g] > 0 else 0.0
+                else:
+                    w = wanted * mu[i] / seen[1, g] if seen[1, g] > 0 else 0.0
+                if w != 0.0:
+                    expected[i] = w
+    # every row's chain escapes at once (CHAIN_ESCAPE): the tallies need no geometry
+    chains = (True, np.arange(u + 1, dtype=np.int64), np.full(u, chain_kernels.CHAIN_ESCAPE,
+                                                               np.int32))
+    geo = _cavity_geometry()
+    scene = Scene.build(geo.vertices, geo.triangles)
+    f = geo.n_facets
+    work = (np.zeros(u), np.zeros(u, np.int64))
+    chunks = max(1, -(-u // chain_kernels.CHAIN_CHUNK))
+    kept = chain_kernels.planet_mirror_tallies(
+        (scene.arrays, scene.normals, np.zeros((f, 2), np.int64), np.zeros((f, 2)),
+         np.zeros((f, 2)), 4),
+        (spec, first, owner, replicate.astype(np.int64), np.zeros((u, 3)), np.zeros((u, 3)),
+         np.zeros(n_sides, np.int64), share, coefficient),
+        (hit, mu, seen, rep, carry_of, 0.3, 1361.0), chains, work, np.zeros((n_sides, m)),
+        np.empty((chunks, m, 1)), np.empty((chunks, m, 1)), np.empty(chunks),
+        np.empty(chunks))
+    assert kept == len(expected) > 0
+    np.testing.assert_array_equal(work[1][:kept], sorted(expected))
+    np.testing.assert_array_equal(work[0][work[1][:kept]],
+                                  [expected[i] for i in sorted(expected)])

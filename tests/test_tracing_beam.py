@@ -158,6 +158,7 @@ def test_mirror_chains_of_clear_sun_samples_are_the_same_without_tracing(vehicle
         np.cumsum(mask.sum(axis=1), out=first[1:])
         u = int(first[-1])
         tallies = []
+        drawn = []
         for length in (0.0, diagonal):
             rays = [np.empty((u, 3)), np.empty((u, 3)), np.empty(u, np.int64), np.empty(u),
                     np.empty(u, np.int64), np.empty(u, np.bool_)]
@@ -170,9 +171,19 @@ def test_mirror_chains_of_clear_sun_samples_are_the_same_without_tracing(vehicle
             chain_kernels.specular_chains(scene.arrays, n, facet_node, absorb, specular,
                                           *rays[:5], rays[5], 64, 100, *out)
             tallies.append(out)
+            drawn.append(rays)
             if length:
                 marked += int(rays[5].sum())
                 total += u
         for a, b in zip(*tallies):
             assert np.array_equal(a, b)
+        # the rays marked clear are not drawn (zeros); the others, and every weight,
+        # facet and replicate, are those drawn without the test
+        clear = drawn[1][5]
+        assert not drawn[0][5].any()
+        for q in (0, 1):
+            assert np.array_equal(drawn[1][q][~clear], drawn[0][q][~clear])
+            assert not drawn[1][q][clear].any()
+        for q in (2, 3, 4):
+            assert np.array_equal(drawn[1][q], drawn[0][q])
     assert marked > 0.3 * total

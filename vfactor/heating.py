@@ -88,7 +88,8 @@ import numpy as np
 from vfactor.constants import SUN_RADIUS_M
 from vfactor.heatmotion import placed_step, rigid_part
 from vfactor.heatreflect import bands_of
-from vfactor.heatstep import Step, one_step, prepare, reuse_trace, trace_once, unit
+from vfactor.heatstep import Step, prepare, reuse_trace, trace_once, unit
+from vfactor.heatthreads import run_steps
 
 __all__ = ["Heating", "HeatingExtremes", "HeatingSteps", "compute_heating", "heating_extremes",
            "step_weights", "SOURCES", "ROWS"]
@@ -528,16 +529,16 @@ class HeatingSteps:
     def run(self, state, job, bar=None) -> dict:
         """Rows of every output at the steps ``job`` (row ``p`` is step ``job[p]``)."""
         model, held = state    # rigid: (model, bands); turning parts: (None, (geometry, rigid))
-        ks = np.asarray(job, dtype=np.int64).reshape(-1)
-        out = self.empty_rows(ks.size)
-        for p, k in enumerate(ks.tolist()):
-            sun, centre, solar, fraction, cos_half = self.steps[k]
-            step = Step(sun=sun, centre=centre, solar=solar, fraction=fraction,
-                        cos_half=cos_half, **self.env)
-            if model is None:
-                placed_step(self, *held, k, step, p, out)
-            else:
-                one_step(model, held, step, self.use_cache, p, out)
+        ks = np.asarray(job, dtype=np.int64).reshape(-1).tolist()
+        out = self.empty_rows(len(ks))
+        steps = [Step(sun=sun, centre=centre, solar=solar, fraction=fraction,
+                      cos_half=cos_half, **self.env)
+                 for sun, centre, solar, fraction, cos_half in (self.steps[k] for k in ks)]
+        if model is not None:      # rigid: the steps on threads (vfactor.heatthreads)
+            run_steps(model, held, steps, self.use_cache, out, bar)
+            return out
+        for p, (k, step) in enumerate(zip(ks, steps)):
+            placed_step(self, *held, k, step, p, out)
             if bar is not None:
                 bar.advance(1)
         return out

@@ -26,7 +26,8 @@ from vfactor.sparsetools import as_csr
 from vfactor.tracing import chain_kernels, heat_kernels, heat_sums
 from vfactor.tracing.side_rays import TARGET_ESCAPE, TARGET_INERT
 
-__all__ = ["Bands", "BandCouplings", "PlanetRays", "band_gebhart", "bands_of", "reflect"]
+__all__ = ["Bands", "BandCouplings", "PlanetRays", "band_gebhart", "bands_of", "record_chains",
+           "reflect"]
 
 
 class PlanetRays(NamedTuple):
@@ -142,6 +143,7 @@ def bands_of(model, geometry, view_factors, gebhart=None) -> "Bands":
         seg_first = (model.segment_start[segments] - np.repeat(
             model.segment_start[spec_sides * m], m) + np.repeat(side_first[:-1], m))
         row_slot[b, segments] = offset + seg_first
+        segment_first = np.append(seg_first, side_first[-1]).astype(np.int64)
         spec_share = (1.0 - s_abs) * s_spec
         geb = gebhart[band]
         per_band[band] = dict(
@@ -150,7 +152,8 @@ def bands_of(model, geometry, view_factors, gebhart=None) -> "Bands":
             reflected_share=1.0 - s_abs, diffuse_share=1.0 - s_spec, spec_share=spec_share,
             albedo_coefficient=s.area / (m * model.k_planet) * spec_share,
             spec_sides=spec_sides, rows=rows, owner=owner, replicate=replicate,
-            side_first=side_first, mirror=mirror, mirror_origin=mirror_origin,
+            side_first=side_first, segment_first=segment_first, mirror=mirror,
+            mirror_origin=mirror_origin,
             row_offset=offset)
         offset += int(rows.size)
     specular = np.zeros(s.count, dtype=np.bool_)
@@ -216,14 +219,24 @@ def _chains_of(model, bands: Bands, name: str):
                 entry = np.empty((b - a, model.max_bounces), dtype=np.int32)
                 chain_kernels.record_chains(scene, band["mirror_origin"][a:b], band["mirror"][a:b],
                                             exclude[a:b], entry)
-                used = entry != chain_kernels.CHAIN_UNUSED
-                lengths[a:b] = used.sum(axis=1)
-                parts.append(entry[used])
+                count = chain_kernels.pack_chains(entry, lengths[a:b], np.zeros(0, np.int32))
+                packed = np.empty(count, dtype=np.int32)
+                chain_kernels.pack_chains(entry, lengths[a:b], packed)
+                parts.append(packed)
             start = np.zeros(rows + 1, dtype=np.int64)
             np.cumsum(lengths, out=start[1:])
             entries = np.concatenate(parts) if parts else np.zeros(0, dtype=np.int32)
             bands.chains[name] = (True, start, np.ascontiguousarray(entries))
         return bands.chains[name]
+
+
+def record_chains(model, bands: Bands, names) -> None:
+    """Record now the mirror chains of the bands ``names`` ("solar", "ir") that have rows,
+    as the first step that needs them would (:func:`_chains_of`: the same records, so the
+    same bits), e.g. before steps run on threads (:mod:`vfactor.heatthreads`)."""
+    for name in names:
+        if bands.band(name)["rows"].size:
+            _chains_of(model, bands, name)
 
 
 _RECORD_BATCH = 1 << 16
@@ -239,21 +252,16 @@ def _per_replicate(node, values, n_nodes):
 
 def _rows_of_sides(side_list, segment_start, m):
     """Rows of the escaping-ray cache that belong to the given sides: (rows, owning side,
-    replicate of each row)."""
-    side_list = np.asarray(side_list, dtype=np.int64)
-    segments = (side_list[:, None] * m + np.arange(m)[None, :]).ravel()
-    first = segment_start[segments]
-    length = segment_start[segments + 1] - first
-    total = int(length.sum())
-    if total == 0:
-        empty = np.zeros(0, dtype=np.int64)
-        return empty, empty.copy(), empty.copy()
-    # rows of segment g are first[g] .. first[g] + length[g] - 1, segments in order
-    seg_of_row = np.repeat(np.arange(segments.size), length)
-    offset = np.arange(total) - np.repeat(np.cumsum(length) - length, length)
-    rows = first[seg_of_row] + offset
-    return (rows.astype(np.int64), np.repeat(side_list, m)[seg_of_row],
-            (segments % m)[seg_of_row].astype(np.int64))
+    replicate of each row), side by side, segment by segment
+    (:func:`vfactor.tracing.heat_kernels.segment_rows`)."""
+    side_list = np.ascontiguousarray(side_list, dtype=np.int64)
+    total = int((segment_start[(side_list + 1) * m] - segment_start[side_list * m]).sum())
+    rows = np.empty(total, dtype=np.int64)
+    owner = np.empty(total, dtype=np.int64)
+    replicate = np.empty(total, dtype=np.int64)
+    if total:
+        heat_kernels.segment_rows(side_list, segment_start, m, rows, owner, replicate)
+    return rows, owner, replicate
 
 
 def _chain_scene(model, band):
@@ -406,7 +414,7 @@ def _planet_mirror(model, bands: Bands, src, band, step, rep,
                              chain_kernels.CARRY_MU).astype(np.int64)
         kept = chain_kernels.planet_mirror_tallies(
             _chain_scene(model, band),
-            (band["spec_sides"], band["side_first"], band["owner"], band["replicate"],
+            (band["spec_sides"], band["segment_first"], band["owner"], band["replicate"],
              band["mirror_origin"], band["mirror"], s.facet, band["spec_share"],
              band["albedo_coefficient"]),
             (planet_rays.row_hit[a:a + rows], planet_rays.row_mu[a:a + rows],

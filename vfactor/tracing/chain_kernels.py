@@ -9,7 +9,8 @@ Kernels
 -------
 - :func:`specular_chains` : the chains of given rays, traced, tallied per fixed chunk.
 - :func:`record_chains` : the sides met by the chains of given rays, once (rigid
-  geometry), so that a step replays them instead of tracing.
+  geometry), so that a step replays them instead of tracing; :func:`pack_chains` packs
+  the records end to end.
 - :func:`planet_mirror_tallies` : per step, the specular shares of the cached planet rays
   of a band: weights, then the chains replayed or traced, tallied per chunk.
 
@@ -33,6 +34,7 @@ from .traverse import closest_hit
 __all__ = [
     "specular_chains",
     "record_chains",
+    "pack_chains",
     "planet_mirror_tallies",
     "CHAIN_ESCAPE",
     "CHAIN_UNUSED",
@@ -206,6 +208,25 @@ def record_chains(scene, origin, direction, exclude, out_entry):
 
 
 @njit(**JIT)
+def pack_chains(entry, out_length, out_entry):
+    """The records of :func:`record_chains` end to end: ``out_length[i]`` (int64, written)
+    the entries of row ``i`` before the first :data:`CHAIN_UNUSED`, and those entries in
+    row order in ``out_entry`` (int32, length ``out_length.sum()``; an empty array: the
+    lengths only). Returns the number of entries."""
+    q = 0
+    for i in range(entry.shape[0]):
+        length = 0
+        while length < entry.shape[1] and entry[i, length] != CHAIN_UNUSED:
+            length += 1
+        out_length[i] = length
+        if out_entry.shape[0]:
+            for b in range(length):
+                out_entry[q + b] = entry[i, b]
+        q += length
+    return q
+
+
+@njit(**JIT)
 def _replay(entry, first, last, facet_node, facet_absorptivity, facet_specular, weight,
             absorbed, diffuse):
     """:func:`_chain` of a ray whose chain :func:`record_chains` recorded in
@@ -246,12 +267,13 @@ def planet_mirror_tallies(scene, band, step, chains, out_work, out_uncarried, ou
     ----------
     scene : tuple — as :func:`specular_chains` (``arrays, normals, facet_node,
         facet_absorptivity, facet_specular, max_bounces``)
-    band : tuple (spec_sides (q,) int64, side_first (q + 1,) int64, owner (u,) int64,
+    band : tuple (spec_sides (q,) int64, segment_first (q m + 1,) int64, owner (u,) int64,
         replicate (u,) int64, mirror_origin (u, 3), mirror_direction (u, 3),
         side_facet (s,) int64, spec_share (s,) float64, coefficient (s,) float64) — the
-        band's rows (cached escaping rays of its specular sides, side by side: rows of
-        ``spec_sides[j]`` are ``side_first[j]:[j+1]``), the mirror ray of each row, each
-        side's facet, specular share ``(1 - a) s`` and the coefficient of ``CARRY_MU``
+        band's rows (cached escaping rays of its specular sides, side by side, segment by
+        segment: rows of replicate ``r`` of ``spec_sides[j]`` are ``segment_first[j m +
+        r]:[j m + r + 1]``), the mirror ray of each row, each side's facet, specular share
+        ``(1 - a) s`` and the coefficient of ``CARRY_MU``
     step : tuple (row_hit (u,) bool, row_mu (u,) float64, seen (2, s * m) float64,
         rep (s, m) float64, carry (s,) int64, albedo float, solar float) — per row: meets
         the planet, max(0, cos solar zenith) there; per segment: rays that meet the planet
@@ -279,10 +301,12 @@ def planet_mirror_tallies(scene, band, step, chains, out_work, out_uncarried, ou
     over replicates split evenly over its ``seen`` rays; ``CARRY_BY_MU``: split in
     proportion to their mu. A row carries power when it meets the planet with a non-zero
     weight; chunks follow the row order, so the tallies are those of
-    :func:`specular_chains` on the kept rows.
+    :func:`specular_chains` on the kept rows. The rows of a (side, replicate) with no
+    ray that meets the planet (``seen`` 0), or none with a positive mu (albedo), are not
+    visited: none of them would carry power.
     """
     arrays, normals, facet_node, f_abs, f_spec, max_bounces = scene
-    spec_sides, side_first, owner, replicate, m_origin, m_direction, side_facet, \
+    spec_sides, segment_first, owner, replicate, m_origin, m_direction, side_facet, \
         spec_share, coefficient = band
     row_hit, row_mu, seen, rep, carry, albedo, solar = step
     replay, chain_start, chain_entry = chains
@@ -299,23 +323,21 @@ def planet_mirror_tallies(scene, band, step, chains, out_work, out_uncarried, ou
             wanted = spec_share[s] * rep[s, r] / m
             carried = seen[0, g] > 0.0 if mode == CARRY_EVEN else seen[1, g] > 0.0
             out_uncarried[s, r] = 0.0 if carried or mode == CARRY_MU else m * wanted
-        for i in range(side_first[j], side_first[j + 1]):
-            if not row_hit[i]:
+            if not carried:     # no row hits (or, by mu, none with mu > 0): w = 0 for all
                 continue
-            r = replicate[i]
-            g = s * m + r
-            if mode == CARRY_MU:
-                w = coefficient[s] * albedo * solar * row_mu[i]
-            else:
-                wanted = spec_share[s] * rep[s, r] / m
-                if mode == CARRY_EVEN:
-                    w = wanted / seen[0, g] if seen[0, g] > 0.0 else 0.0
+            for i in range(segment_first[j * m + r], segment_first[j * m + r + 1]):
+                if not row_hit[i]:
+                    continue
+                if mode == CARRY_MU:
+                    w = coefficient[s] * albedo * solar * row_mu[i]
+                elif mode == CARRY_EVEN:
+                    w = wanted / seen[0, g]
                 else:
-                    w = wanted * row_mu[i] / seen[1, g] if seen[1, g] > 0.0 else 0.0
-            if w != 0.0:
-                weight[i] = w
-                kept_rows[kept] = i
-                kept += 1
+                    w = wanted * row_mu[i] / seen[1, g]
+                if w != 0.0:
+                    weight[i] = w
+                    kept_rows[kept] = i
+                    kept += 1
     chunks = (kept + CHAIN_CHUNK - 1) // CHAIN_CHUNK
     for c in prange(chunks):
         for r in range(out_absorbed.shape[1]):

@@ -16,6 +16,7 @@ Kernels
 - :func:`fill_cache` : origins and directions of the escaping rays and of the blocked
   ones (regenerated, not traced), grouped by (side, replicate).
 - :func:`segment_escapes` : escaping rays per (side, replicate).
+- :func:`segment_rows` : the rows of the escaping-ray cache that belong to given sides.
 - :func:`mirror_rays` : mirror images of cached rays about their side's normal.
 - :func:`sun_lit_mask` : per step, sample points of each side traced toward the solar disk
   (not those of sides that :func:`vfactor.tracing.beam.beam_clear` proves unshadowed).
@@ -33,7 +34,7 @@ import numpy as np
 from numba import njit, prange
 
 from .beam import beam_clear
-from .config import JIT_PARALLEL
+from .config import JIT, JIT_PARALLEL
 from .sampling import cone_direction, rqmc_uniform4, triangle_point
 from .side_rays import PURPOSE_SUN, TARGET_ESCAPE, TARGET_INERT, put_ray, side_ray, side_stream
 from .traverse import any_hit, closest_hit
@@ -42,6 +43,7 @@ __all__ = [
     "trace_targets",
     "fill_cache",
     "segment_escapes",
+    "segment_rows",
     "mirror_rays",
     "sun_lit_mask",
     "sun_mirror_rays",
@@ -142,6 +144,23 @@ def segment_escapes(target, replicates, per_replicate, out):
             out[s * replicates + r] = count
 
 
+@njit(**JIT)
+def segment_rows(sides, segment_start, replicates, out_row, out_owner, out_replicate):
+    """Rows of the escaping-ray cache that belong to ``sides`` (int64), side by side, each
+    side's segments in replicate order: rows ``segment_start[g] .. segment_start[g + 1] -
+    1`` of segment ``g = side * replicates + r``; with the owning side and the replicate of
+    each row (int64 outputs of length ``sum`` of those segments' lengths, written)."""
+    q = 0
+    for side in sides:
+        for r in range(replicates):
+            g = side * replicates + r
+            for row in range(segment_start[g], segment_start[g + 1]):
+                out_row[q] = row
+                out_owner[q] = side
+                out_replicate[q] = r
+                q += 1
+
+
 @njit(**JIT_PARALLEL)
 def mirror_rays(rows, owner, origin, direction, side_normal, out_origin, out_direction):
     """Mirror images of cached rays: ``out_direction[i] = -d + 2 (d.n) n`` for ``d =
@@ -236,7 +255,8 @@ def sun_mirror_rays(arrays, vertices, triangles, normals, side_facet, side_sign,
         (and the end of the last side's)
     per_sample : (q,) float64 — power each sample of the side carries [W]
     out_origin, out_direction : (u, 3) float64, written — sample point [m], mirror
-        direction [1]
+        direction [1]; zeros where ``out_clear`` (the ray is not traced, so it is not
+        drawn)
     out_exclude : (u,) int64, written — the side's facet
     out_weight : (u,) float64, written — ``per_sample`` of the side [W]
     out_replicate : (u,) int64, written — replicate of the sample
@@ -269,6 +289,16 @@ def sun_mirror_rays(arrays, vertices, triangles, normals, side_facet, side_sign,
                 j = r * per_replicate + k
                 if not lit_mask[s, j]:
                     continue
+                out_exclude[row] = f
+                out_weight[row] = per_sample[s]
+                out_replicate[row] = r
+                out_clear[row] = clear
+                if clear:      # escapes untraced: its ray is not needed (zeros)
+                    for c in range(3):
+                        out_origin[row, c] = 0.0
+                        out_direction[row, c] = 0.0
+                    row += 1
+                    continue
                 u0, u1, u2, u3 = rqmc_uniform4(seed, stream, r, k)
                 x, y, z = triangle_point(vertices, triangles, f, u0, u1)
                 dx, dy, dz = cone_direction(sx, sy, sz, cos_half_angle, u2, u3)
@@ -280,8 +310,4 @@ def sun_mirror_rays(arrays, vertices, triangles, normals, side_facet, side_sign,
                 out_direction[row, 0] = -dx + 2.0 * dn * nx
                 out_direction[row, 1] = -dy + 2.0 * dn * ny
                 out_direction[row, 2] = -dz + 2.0 * dn * nz
-                out_exclude[row] = f
-                out_weight[row] = per_sample[s]
-                out_replicate[row] = r
-                out_clear[row] = clear
                 row += 1
