@@ -44,6 +44,16 @@ def _task(geometry, use_cache, steps=7):
     return task, scene
 
 
+def _threaded(use_cache):
+    """(task, scene, prepared state) of the box with a mirror; skipped with one numba
+    thread (the steps then always run one after another)."""
+    if numba.get_num_threads() < 2:
+        pytest.skip("one numba thread: the steps always run one after another")
+    geometry = _box_with_mirror()
+    task, scene = _task(geometry, use_cache)
+    return task, scene, task.prepare(geometry, scene)
+
+
 class _Bar:
     def __init__(self):
         self.count = 0
@@ -56,12 +66,9 @@ class _Bar:
 def test_threads_give_the_rows_of_one_step_at_a_time(use_cache, monkeypatch):
     # the kernels' sums follow side or chunk order, never the thread (module notes): the
     # rows of the threaded job equal those of the steps run one after another, to the bit
+    task, scene, state = _threaded(use_cache)
     geometry = _box_with_mirror()
-    task, scene = _task(geometry, use_cache)
     threads = numba.get_num_threads()
-    if threads < 2:
-        pytest.skip("one numba thread: the steps always run one after another")
-    state = task.prepare(geometry, scene)
     bar = _Bar()
     threaded = task.run(state, np.arange(task.n_steps), bar)
     assert bar.count == task.n_steps
@@ -79,11 +86,7 @@ def test_threads_give_the_rows_of_one_step_at_a_time(use_cache, monkeypatch):
 
 
 def test_a_failing_step_fails_the_job(monkeypatch):
-    geometry = _box_with_mirror()
-    task, scene = _task(geometry, True)
-    if numba.get_num_threads() < 2:
-        pytest.skip("one numba thread: the steps always run one after another")
-    state = task.prepare(geometry, scene)
+    task, _, state = _threaded(True)
     real = heatthreads.one_step
 
     def one_step(model, bands, step, use_cache, p, out):
@@ -99,12 +102,8 @@ def test_a_failing_step_fails_the_job(monkeypatch):
 def test_worker_threads_run_numba_kernels_on_one_thread(monkeypatch):
     # numba.set_num_threads is per thread: the workers use one numba thread each, the
     # calling thread keeps its own count
-    geometry = _box_with_mirror()
-    task, scene = _task(geometry, True)
+    task, _, state = _threaded(True)
     threads = numba.get_num_threads()
-    if threads < 2:
-        pytest.skip("one numba thread: the steps always run one after another")
-    state = task.prepare(geometry, scene)
     seen = []
     real = heatthreads.one_step
 
