@@ -198,6 +198,38 @@ def test_partly_hidden_plate_keeps_an_honest_error():
     assert ref.node_planet_ir[0, i] < unhidden      # the panel hides some planet
 
 
+def test_an_obstruction_no_ray_meets_still_carries_an_error():
+    # A 4 m nadir plate of two triangles with a 0.4 m panel 0.3 m in front of it: the
+    # panel hides about 25 W of 2580 W of planet IR, about one ray's worth at 64 rays per
+    # side, so in a third of the seeds no ray meets it and the control variate gives the
+    # unobstructed value with no spread between replicates (measured: 8 of 40 seeds before
+    # the error of what the rays cannot resolve was added). Every seed must now report an
+    # error, and the errors must cover the scatter about a reference from 256 times the
+    # rays: mean z^2 below 3.2 (1.4 expected for errors from 8 replicates, 40 seeds;
+    # common practice). A plate with nothing in front keeps its exact value and no error.
+    coats = {"c": Coating("c", 0.5, 0.8), "k": Coating("k", 0.9, 0.9)}
+    plate = dict(mesh=rectangle((0, 0, 0), (1, 0, 0), (0, 1, 0), 4.0, 4.0),
+                 front=("c", "top"), back=("c", "bottom"))
+    panel = dict(mesh=rectangle((0.2, 0, -0.3), (1, 0, 0), (0, 1, 0), 0.4, 0.4),
+                 front=("k", "panel"), back=None)
+    geo = make_geometry([plate, panel], coats)
+    tr = make_trajectory([[1, 0, 0]], [0, 0, -1], EARTH_R + 500e3)
+    env = Environment("custom", S0, 0.0, 237.0)
+    i = geo.nodes.index("bottom")
+    ref = run(geo, tr, env, rays_per_facet=16384, seed=999, reflections=False)
+    truth = ref.node_planet_ir[0, i]
+    z2 = []
+    for s in range(1, 41):
+        h = run(geo, tr, env, rays_per_facet=64, seed=s, reflections=False)
+        sigma = h.node_planet_ir_stderr[0, i]
+        assert sigma > 0.0, s
+        z2.append(((h.node_planet_ir[0, i] - truth) / sigma) ** 2)
+    assert np.mean(z2) < 3.2
+    alone = make_geometry([plate], coats)
+    h = run(alone, tr, env, rays_per_facet=64, seed=1, reflections=False)
+    assert h.node_planet_ir_stderr[0, alone.nodes.index("bottom")] == 0.0
+
+
 def test_one_ray_sequence_per_node_lowers_the_error_of_a_many_facet_plate():
     # The planet rays of all the sides of a node are blocks of one randomised QMC sequence
     # (vfactor.tracing.side_rays): where the sides see nearly the same silhouette (a

@@ -187,3 +187,38 @@ def test_mirror_chains_of_clear_sun_samples_are_the_same_without_tracing(vehicle
         for q in (2, 3, 4):
             assert np.array_equal(drawn[1][q], drawn[0][q])
     assert marked > 0.3 * total
+
+
+def test_open_sides_are_those_with_no_vertex_in_front(vehicle):
+    """open_sides (a tree walk) equals the brute-force definition: no vertex of any other
+    facet lies above the side's plane by more than PLANE_MARGIN of the side's size; and a
+    side of which nothing lies in front has no blocked ray (brute-force oracle: Moller &
+    Trumbore rays over its hemisphere). Convex faces of the box are open, faces under the
+    panel or in the cavity are not."""
+    from vfactor.tracing.beam import PLANE_MARGIN, open_sides
+
+    scene, _ = vehicle
+    v, t, n = scene.vertices, scene.triangles, scene.normals
+    f = np.repeat(np.arange(t.shape[0]), 2)
+    sign = np.tile([1.0, -1.0], t.shape[0])
+    got = open_sides(scene.arrays, v, t, n, f, sign)
+    want = np.empty_like(got)
+    for q, (fct, sg) in enumerate(zip(f, sign)):
+        corners = v[t[fct]]
+        size = np.ptp(corners, axis=0).max()
+        height = (v[t] - corners[0]) @ (sg * n[fct])            # (faces, 3)
+        height[fct] = 0.0
+        want[q] = not np.any(height > PLANE_MARGIN * size)
+    np.testing.assert_array_equal(got, want)
+    assert 0.1 * got.size < got.sum() < 0.9 * got.size
+    rng = np.random.default_rng(3)
+    for q in np.flatnonzero(got)[:40]:
+        fct, sg = f[q], sign[q]
+        d = rng.normal(size=(64, 3))
+        d *= np.sign(d @ (sg * n[fct]))[:, None]
+        d /= np.linalg.norm(d, axis=1, keepdims=True)
+        o = np.repeat(v[t[fct]].mean(axis=0)[None, :], 64, axis=0)
+        hit = moller_trumbore(o, d, v, t, exclude=np.full(64, fct))[0]
+        assert np.all(hit < 0)
+    with pytest.raises(ValueError, match="signs"):
+        open_sides(scene.arrays, v, t, n, f, sign[:-1])

@@ -36,7 +36,8 @@ CHECKPOINT_SUFFIX = ".partial"
 #: rays of the heating stage drawn from one sequence per node; view-factor rounds after
 #: the 16th larger), or the sums of their results (5: the heating stage's own couplings
 #: added per side's first-hit runs; load errors with the couplings' error; 6: coupling
-#: rays from Owen-scrambled Sobol' points), so that a run never resumes from steps or
+#: rays from Owen-scrambled Sobol' points, load errors with what the planet rays cannot
+#: resolve), so that a run never resumes from steps or
 #: tallies of other rays, rounding or error model.
 _CHECKPOINT_KIND = "vfactor-checkpoint-6"
 #: Shortest time between two saves of the checkpoint [s].

@@ -24,7 +24,7 @@ import numpy as np
 from vfactor.heatplanet import (CONTROL_BLOCKED_SHARE, albedo_groups, albedo_view, dark_cap,
                                 planet_view, vertex_extent)
 from vfactor.heatreflect import PlanetRays, reflect
-from vfactor.tracing import heat_kernels, heat_sums, planet_kernels, side_rays
+from vfactor.tracing import beam, heat_kernels, heat_sums, planet_kernels, side_rays
 
 __all__ = ["Model", "Step", "prepare", "trace_once", "cache_targets", "reuse_trace",
            "plain_estimates", "side_sequences", "one_step", "unit"]
@@ -141,6 +141,8 @@ class Model:
     albedo_normal: np.ndarray = None     # (q, 3) normal of each group's sides
     albedo_position: np.ndarray = None   # (q, 3) area-weighted centre of its sides [m]
     blk_start: np.ndarray = None         # (s m + 1,) int64, blocked rays of control sides
+    unseen: np.ndarray = None            # (s,) bool: control side no ray of which is blocked,
+    #                                      though something rises in front of it
     blk_origin: np.ndarray = None        # (b, 3)
     blk_dir: np.ndarray = None           # (b, 3)
 
@@ -207,7 +209,7 @@ def trace_once(model: Model, bar, need_rays: bool, all_escaping: bool = False) -
 
 _TRACED = ("targets", "segment_start", "stored", "esc_origin", "esc_dir", "position", "reach",
            "order", "rigid", "control", "albedo_group", "albedo_normal", "albedo_position",
-           "blk_start", "blk_origin", "blk_dir")
+           "blk_start", "blk_origin", "blk_dir", "unseen")
 
 
 def reuse_trace(model: Model, traced: Model) -> bool:
@@ -259,6 +261,14 @@ def cache_targets(model: Model, targets, need_rays: bool, fill=None,
         if s.count else np.zeros(0, bool)
     model.stored = (np.ones(s.count, dtype=np.bool_) if fill is not None or all_escaping
                     else _needs_escaping(model, model.control))
+    # control sides whose rays met nothing though the vehicle rises in front of them: what
+    # hides a part of their planet too small for their rays is not seen (see unseen_variance)
+    model.unseen = model.control & (blocked_per_segment.sum(axis=1) == 0) \
+        if s.count else np.zeros(0, bool)
+    if model.unseen.any():
+        pick = np.flatnonzero(model.unseen)
+        model.unseen[pick] = ~beam.open_sides(model.arrays, model.vertices, model.triangles,
+                                              model.normals, s.facet[pick], s.sign[pick])
     segment_start = np.zeros(s.count * m + 1, dtype=np.int64)
     np.cumsum(np.where(np.repeat(model.stored, m), escapes, 0), out=segment_start[1:])
     n_esc = int(segment_start[-1]) if need_rays else 0
@@ -308,6 +318,37 @@ def _thread_order(count, block=64):
     return np.ascontiguousarray(order[order < count], dtype=np.int64)
 
 
+def unseen_variance(model: Model, step: Step, views):
+    """Per node, the variance of what the planet rays of the control-variate sides cannot
+    resolve: {"planet_ir": (n,), "albedo": (n,)} [W2], or None when no side needs it.
+
+    A control side none of whose ``N`` rays the vehicle blocks gets its unblocked value,
+    with no spread between replicates; yet where something rises in front of it
+    (:func:`vfactor.tracing.beam.open_sides`), a part of its planet too small for ``N``
+    rays may be hidden. With none of ``N`` directions blocked, the hidden share of the
+    (cosine-weighted) hemisphere has a posterior standard deviation of about ``1 / N``
+    (uniform prior: a Beta(1, N + 1) law; Laplace's rule of succession, common practice),
+    so its error is one ray's worth: ``eps E A / N`` for planet IR and ``alpha a S A mu /
+    N`` for albedo, ``mu`` the mean cosine of the solar zenith over the directions that
+    meet the planet (the albedo factor over the view factor), on sides that see the planet
+    (or its sunlit part) at all; added in quadrature per node.
+    """
+    if model.unseen is None or not model.unseen.any():
+        return None
+    s = model.sides
+    n_rays = model.m * model.k_planet
+    pick = np.flatnonzero(model.unseen)
+    view, albedo = views
+    out = {}
+    sees = view[pick] > 0.0
+    mu = np.where(sees, albedo[pick] / np.where(sees, view[pick], 1.0), 0.0)
+    for src, flux, absorb in (("planet_ir", step.olr * sees, s.emissivity),
+                              ("albedo", step.albedo * step.solar * mu, s.absorptivity)):
+        ray = absorb[pick] * flux * s.area[pick] / n_rays
+        out[src] = np.bincount(s.node[pick], weights=ray * ray, minlength=model.n_nodes)
+    return out
+
+
 def plain_estimates(model: Model) -> Model:
     """A copy of a traced ``model`` that uses the plain Monte Carlo estimates of planet IR
     and albedo on every side (no control variates), from the same rays: for comparisons
@@ -320,7 +361,7 @@ def plain_estimates(model: Model) -> Model:
     cache_targets(plain, model.targets, need_rays=True, all_escaping=True)
     count = plain.sides.count
     return dataclasses.replace(
-        plain, control=np.zeros(count, dtype=np.bool_),
+        plain, control=np.zeros(count, dtype=np.bool_), unseen=np.zeros(count, dtype=np.bool_),
         albedo_group=np.full(count, -1, dtype=np.int64), albedo_normal=np.zeros((0, 3)),
         albedo_position=np.zeros((0, 3)),
         blk_start=np.zeros(count * model.m + 1, dtype=np.int64),
@@ -403,16 +444,18 @@ def one_step(model: Model, bands, step: Step, use_cache: bool, k: int, out: dict
                                                       step.sun, row_hit[a:b], row_mu[a:b])
     # control variates (CONTROL_BLOCKED_SHARE): the unblocked value of the side, minus
     # the Monte Carlo estimate of what the vehicle hides from the same cached directions
+    views = (planet_view(model, step), albedo_view(model, step, dark))
     solar_rep = np.empty((s.count, m))
     ir_rep = np.empty((s.count, m))
     alb_rep = np.empty((s.count, m))
     heat_sums.replicate_estimates(
         (s.area, cos_t, model.control), (lit, seen, blocked),
-        (planet_view(model, step), albedo_view(model, step, dark)),
+        views,
         (step.solar * step.fraction, step.olr, step.albedo * step.solar, model.k_sun,
          model.k_planet), (solar_rep, ir_rep, alb_rep))
 
     planet_rays = PlanetRays(seen, row_hit, row_mu, use_cache)
+    unseen = unseen_variance(model, step, views)
     n_facets = model.facet_area.shape[0]
     for src, rep, absorb in (("solar", solar_rep, s.absorptivity),
                              ("albedo", alb_rep, s.absorptivity),
@@ -439,8 +482,11 @@ def one_step(model: Model, bands, step: Step, use_cache: bool, k: int, out: dict
             facet_power = facet_power + spread
             out[f"escaped_{src}"][k] = escaped
             out[f"inert_{src}"][k] = lost
-        # the replicates' spread and, apart, the couplings' error (independent rays)
+        # the replicates' spread and, apart, the couplings' error (independent rays) and
+        # what the rays cannot resolve (unseen_variance)
         spread_error = node_rep.std(axis=0, ddof=1) / math.sqrt(m)
+        if src != "solar" and unseen is not None:
+            spread_error = np.hypot(spread_error, np.sqrt(unseen[src]))
         out[f"node_{src}_stderr"][k] = (spread_error if coupling_var is None else
                                         np.hypot(spread_error, np.sqrt(coupling_var)))
         out[f"node_{src}"][k] = absorbed_node

@@ -1,4 +1,5 @@
-"""Conservative test that nothing can shadow a facet side from the whole solar disk.
+"""Conservative tests that nothing can shadow a facet side: from the whole solar disk
+(:func:`beam_clear`), or from anything in its hemisphere (:func:`nothing_in_front`).
 
 The Sun's sample rays of a side (:func:`vfactor.tracing.heat_kernels.sun_lit_mask`) start
 on the facet and go toward the disk: every ray is ``o + t d`` with ``o`` on the facet,
@@ -34,13 +35,14 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numba import njit
+from numba import njit, prange
 
 from .bvh import LANES, PAD_ID, STACK_SIZE, TRI_LANES
-from .config import JIT
+from .config import JIT, JIT_PARALLEL
 from .traverse import _stack_alloca
 
-__all__ = ["beam_clear", "beam_spread", "PLANE_MARGIN", "BOX_MARGIN"]
+__all__ = ["beam_clear", "beam_spread", "nothing_in_front", "open_sides", "PLANE_MARGIN",
+           "BOX_MARGIN"]
 
 #: Height above the side's plane, relative to the side's size ``R``, up to which a facet
 #: counts as behind it (coplanar neighbours compute heights of the order of 1e-16 R).
@@ -116,23 +118,10 @@ def beam_clear(arrays, vertices, triangles, normals, facet, sign, sx, sy, sz,
     nodes_i = arrays[1]
     tri = arrays[2]
     tri_i = arrays[3]
-    n = (sign * normals[facet, 0], sign * normals[facet, 1], sign * normals[facet, 2])
+    n, fl, fh, size, base, plane = _side_plane(vertices, triangles, normals, facet, sign)
     spread = beam_spread(cos_half_angle)
     if n[0] * sx + n[1] * sy + n[2] * sz <= spread + 1e-9:
         return False                     # some ray of the cone may run along the plane
-    v0 = triangles[facet, 0]
-    v1 = triangles[facet, 1]
-    v2 = triangles[facet, 2]
-    fl = (min(vertices[v0, 0], min(vertices[v1, 0], vertices[v2, 0])),
-          min(vertices[v0, 1], min(vertices[v1, 1], vertices[v2, 1])),
-          min(vertices[v0, 2], min(vertices[v1, 2], vertices[v2, 2])))
-    fh = (max(vertices[v0, 0], max(vertices[v1, 0], vertices[v2, 0])),
-          max(vertices[v0, 1], max(vertices[v1, 1], vertices[v2, 1])),
-          max(vertices[v0, 2], max(vertices[v1, 2], vertices[v2, 2])))
-    size = max(fh[0] - fl[0], max(fh[1] - fl[1], fh[2] - fl[2]))
-    # heights above the plane through vertex v0 (on the plane of every ray origin)
-    base = n[0] * vertices[v0, 0] + n[1] * vertices[v0, 1] + n[2] * vertices[v0, 2]
-    plane = PLANE_MARGIN * size
     slopes = (_slope(sx - spread), _slope(-(sx + spread)), _slope(sy - spread),
               _slope(-(sy + spread)), _slope(sz - spread), _slope(-(sz + spread)))
     span = length * (1.0 + BOX_MARGIN)
@@ -151,10 +140,8 @@ def beam_clear(arrays, vertices, triangles, normals, facet, sign, sx, sy, sz,
                 hi = (np.float64(nodes[ref, 3 * LANES + j]),
                       np.float64(nodes[ref, 4 * LANES + j]),
                       np.float64(nodes[ref, 5 * LANES + j]))
-                # highest corner of the box above the plane
-                top = (max(n[0] * lo[0], n[0] * hi[0]) + max(n[1] * lo[1], n[1] * hi[1])
-                       + max(n[2] * lo[2], n[2] * hi[2]) - base)
-                if top > plane and _sweep_meets(fl, fh, lo, hi, slopes, span, pad):
+                if (_box_top(n, lo, hi, base) > plane
+                        and _sweep_meets(fl, fh, lo, hi, slopes, span, pad)):
                     stack[sp] = c
                     sp += 1
         else:
@@ -176,16 +163,48 @@ def beam_clear(arrays, vertices, triangles, normals, facet, sign, sx, sy, sz,
 
 
 @njit(**JIT, inline="always")
-def _may_shadow(tri, b, lane, n, base, plane, fl, fh, slopes, span, pad):
-    """Lane ``lane`` of leaf block ``b`` rises above the side's plane and its box meets
-    the swept facet box."""
-    above = False
+def _side_plane(vertices, triangles, normals, facet, sign):
+    """Outward normal, box (low, high corners), size of side (``facet``, ``sign``), the
+    height of its plane along the normal (through vertex 0: on the plane of every ray
+    origin) and the margin above it up to which a point counts as on the plane."""
+    n = (sign * normals[facet, 0], sign * normals[facet, 1], sign * normals[facet, 2])
+    v0 = triangles[facet, 0]
+    v1 = triangles[facet, 1]
+    v2 = triangles[facet, 2]
+    fl = (min(vertices[v0, 0], min(vertices[v1, 0], vertices[v2, 0])),
+          min(vertices[v0, 1], min(vertices[v1, 1], vertices[v2, 1])),
+          min(vertices[v0, 2], min(vertices[v1, 2], vertices[v2, 2])))
+    fh = (max(vertices[v0, 0], max(vertices[v1, 0], vertices[v2, 0])),
+          max(vertices[v0, 1], max(vertices[v1, 1], vertices[v2, 1])),
+          max(vertices[v0, 2], max(vertices[v1, 2], vertices[v2, 2])))
+    size = max(fh[0] - fl[0], max(fh[1] - fl[1], fh[2] - fl[2]))
+    base = n[0] * vertices[v0, 0] + n[1] * vertices[v0, 1] + n[2] * vertices[v0, 2]
+    return n, fl, fh, size, base, PLANE_MARGIN * size
+
+
+@njit(**JIT, inline="always")
+def _box_top(n, lo, hi, base):
+    """Height of the box's highest corner above the plane ``n . x = base``."""
+    return (max(n[0] * lo[0], n[0] * hi[0]) + max(n[1] * lo[1], n[1] * hi[1])
+            + max(n[2] * lo[2], n[2] * hi[2]) - base)
+
+
+@njit(**JIT, inline="always")
+def _rises_above(tri, b, lane, n, base, plane):
+    """A vertex of lane ``lane`` of leaf block ``b`` lies above the side's plane."""
     for v in range(3):
         h = (n[0] * tri[b, (3 * v) * TRI_LANES + lane] + n[1] * tri[b, (3 * v + 1) * TRI_LANES
              + lane] + n[2] * tri[b, (3 * v + 2) * TRI_LANES + lane]) - base
         if h > plane:
-            above = True
-    if not above:
+            return True
+    return False
+
+
+@njit(**JIT, inline="always")
+def _may_shadow(tri, b, lane, n, base, plane, fl, fh, slopes, span, pad):
+    """Lane ``lane`` of leaf block ``b`` rises above the side's plane and its box meets
+    the swept facet box."""
+    if not _rises_above(tri, b, lane, n, base, plane):
         return False
     lo = (min(tri[b, lane], min(tri[b, 3 * TRI_LANES + lane], tri[b, 6 * TRI_LANES + lane])),
           min(tri[b, TRI_LANES + lane], min(tri[b, 4 * TRI_LANES + lane],
@@ -198,3 +217,69 @@ def _may_shadow(tri, b, lane, n, base, plane, fl, fh, slopes, span, pad):
           max(tri[b, 2 * TRI_LANES + lane], max(tri[b, 5 * TRI_LANES + lane],
                                                 tri[b, 8 * TRI_LANES + lane])))
     return _sweep_meets(fl, fh, lo, hi, slopes, span, pad)
+
+
+@njit(**JIT)
+def nothing_in_front(arrays, vertices, triangles, normals, facet, sign):
+    """True when no facet of the vehicle rises above the plane of side (``facet``,
+    ``sign``) (to :data:`PLANE_MARGIN` of the side's size): nothing can block any ray that
+    leaves the side (the *behind the plane* part of the module notes, for every direction
+    of the side's hemisphere). False when something may.
+    """
+    nodes = arrays[0]
+    nodes_i = arrays[1]
+    tri = arrays[2]
+    tri_i = arrays[3]
+    n, fl, fh, size, base, plane = _side_plane(vertices, triangles, normals, facet, sign)
+    stack = _stack_alloca(STACK_SIZE, np.int32)
+    sp = 0
+    ref = np.int32(0)
+    while True:
+        if ref >= 0:
+            for j in range(LANES):
+                c = nodes_i[ref, 6 * LANES + j]
+                if c == -1:
+                    continue
+                lo = (np.float64(nodes[ref, j]), np.float64(nodes[ref, LANES + j]),
+                      np.float64(nodes[ref, 2 * LANES + j]))
+                hi = (np.float64(nodes[ref, 3 * LANES + j]),
+                      np.float64(nodes[ref, 4 * LANES + j]),
+                      np.float64(nodes[ref, 5 * LANES + j]))
+                if _box_top(n, lo, hi, base) > plane:
+                    stack[sp] = c
+                    sp += 1
+        else:
+            code = -1 - ref
+            first = code >> 4
+            n_blk = ((code & 15) + TRI_LANES - 1) // TRI_LANES
+            for b in range(first, first + n_blk):
+                for lane in range(TRI_LANES):
+                    fid = tri_i[b, 9 * TRI_LANES + lane]
+                    if fid == facet or fid == PAD_ID:
+                        continue
+                    if _rises_above(tri, b, lane, n, base, plane):
+                        return False
+        if sp == 0:
+            break
+        sp -= 1
+        ref = stack[sp]
+    return True
+
+
+@njit(**JIT_PARALLEL)
+def _open_sides(arrays, vertices, triangles, normals, facets, signs, out):
+    for i in prange(facets.shape[0]):
+        out[i] = nothing_in_front(arrays, vertices, triangles, normals, facets[i], signs[i])
+
+
+def open_sides(arrays, vertices, triangles, normals, facets, signs):
+    """(s,) bool: :func:`nothing_in_front` of every side (``facets`` (s,) int64, ``signs``
+    (s,) +1 / -1)."""
+    facets = np.ascontiguousarray(facets, dtype=np.int64)
+    signs = np.ascontiguousarray(signs, dtype=np.float64)
+    if facets.shape != signs.shape:
+        raise ValueError(f"open_sides: {facets.shape[0]} facets but {signs.shape[0]} signs")
+    out = np.zeros(facets.shape[0], dtype=np.bool_)
+    if facets.size:
+        _open_sides(arrays, vertices, triangles, normals, facets, signs, out)
+    return out
