@@ -114,10 +114,6 @@ def beam_clear(arrays, vertices, triangles, normals, facet, sign, sx, sy, sz,
     cos_half_angle : float — cosine of the Sun's angular radius [1]
     length : float — diagonal of the bounding box of all facets [m]
     """
-    nodes = arrays[0]
-    nodes_i = arrays[1]
-    tri = arrays[2]
-    tri_i = arrays[3]
     n, fl, fh, size, base, plane = _side_plane(vertices, triangles, normals, facet, sign)
     spread = beam_spread(cos_half_angle)
     if n[0] * sx + n[1] * sy + n[2] * sz <= spread + 1e-9:
@@ -126,40 +122,7 @@ def beam_clear(arrays, vertices, triangles, normals, facet, sign, sx, sy, sz,
               _slope(-(sy + spread)), _slope(sz - spread), _slope(-(sz + spread)))
     span = length * (1.0 + BOX_MARGIN)
     pad = BOX_MARGIN * (length + size) + 1e-300
-    stack = _stack_alloca(STACK_SIZE, np.int32)
-    sp = 0
-    ref = np.int32(0)
-    while True:
-        if ref >= 0:
-            for j in range(LANES):
-                c = nodes_i[ref, 6 * LANES + j]
-                if c == -1:
-                    continue
-                lo = (np.float64(nodes[ref, j]), np.float64(nodes[ref, LANES + j]),
-                      np.float64(nodes[ref, 2 * LANES + j]))
-                hi = (np.float64(nodes[ref, 3 * LANES + j]),
-                      np.float64(nodes[ref, 4 * LANES + j]),
-                      np.float64(nodes[ref, 5 * LANES + j]))
-                if (_box_top(n, lo, hi, base) > plane
-                        and _sweep_meets(fl, fh, lo, hi, slopes, span, pad)):
-                    stack[sp] = c
-                    sp += 1
-        else:
-            code = -1 - ref
-            first = code >> 4
-            n_blk = ((code & 15) + TRI_LANES - 1) // TRI_LANES
-            for b in range(first, first + n_blk):
-                for lane in range(TRI_LANES):
-                    fid = tri_i[b, 9 * TRI_LANES + lane]
-                    if fid == facet or fid == PAD_ID:
-                        continue
-                    if _may_shadow(tri, b, lane, n, base, plane, fl, fh, slopes, span, pad):
-                        return False
-        if sp == 0:
-            break
-        sp -= 1
-        ref = stack[sp]
-    return True
+    return _nothing_met(arrays, facet, n, base, plane, fl, fh, slopes, span, pad, True)
 
 
 @njit(**JIT, inline="always")
@@ -183,6 +146,15 @@ def _side_plane(vertices, triangles, normals, facet, sign):
 
 
 @njit(**JIT, inline="always")
+def _child_box(nodes, ref, j):
+    """Low and high corners (float64) of child ``j`` of 4-wide node ``ref``."""
+    return ((np.float64(nodes[ref, j]), np.float64(nodes[ref, LANES + j]),
+             np.float64(nodes[ref, 2 * LANES + j])),
+            (np.float64(nodes[ref, 3 * LANES + j]), np.float64(nodes[ref, 4 * LANES + j]),
+             np.float64(nodes[ref, 5 * LANES + j])))
+
+
+@njit(**JIT, inline="always")
 def _box_top(n, lo, hi, base):
     """Height of the box's highest corner above the plane ``n . x = base``."""
     return (max(n[0] * lo[0], n[0] * hi[0]) + max(n[1] * lo[1], n[1] * hi[1])
@@ -200,12 +172,51 @@ def _rises_above(tri, b, lane, n, base, plane):
     return False
 
 
+@njit(**JIT)
+def _nothing_met(arrays, facet, n, base, plane, fl, fh, slopes, span, pad, swept):
+    """Walk the tree: True when no facet but ``facet`` rises above the plane ``n . x =
+    base`` (by more than ``plane``) and, with ``swept``, also meets the swept facet box
+    (:func:`_sweep_meets`); False at the first that does."""
+    nodes = arrays[0]
+    nodes_i = arrays[1]
+    tri = arrays[2]
+    tri_i = arrays[3]
+    stack = _stack_alloca(STACK_SIZE, np.int32)
+    sp = 0
+    ref = np.int32(0)
+    while True:
+        if ref >= 0:
+            for j in range(LANES):
+                c = nodes_i[ref, 6 * LANES + j]
+                if c == -1:
+                    continue
+                lo, hi = _child_box(nodes, ref, j)
+                if _box_top(n, lo, hi, base) > plane and (
+                        not swept or _sweep_meets(fl, fh, lo, hi, slopes, span, pad)):
+                    stack[sp] = c
+                    sp += 1
+        else:
+            code = -1 - ref
+            first = code >> 4
+            n_blk = ((code & 15) + TRI_LANES - 1) // TRI_LANES
+            for b in range(first, first + n_blk):
+                for lane in range(TRI_LANES):
+                    fid = tri_i[b, 9 * TRI_LANES + lane]
+                    if fid == facet or fid == PAD_ID:
+                        continue
+                    if _rises_above(tri, b, lane, n, base, plane) and (
+                            not swept or _lane_meets(tri, b, lane, fl, fh, slopes, span, pad)):
+                        return False
+        if sp == 0:
+            break
+        sp -= 1
+        ref = stack[sp]
+    return True
+
+
 @njit(**JIT, inline="always")
-def _may_shadow(tri, b, lane, n, base, plane, fl, fh, slopes, span, pad):
-    """Lane ``lane`` of leaf block ``b`` rises above the side's plane and its box meets
-    the swept facet box."""
-    if not _rises_above(tri, b, lane, n, base, plane):
-        return False
+def _lane_meets(tri, b, lane, fl, fh, slopes, span, pad):
+    """The box of lane ``lane`` of leaf block ``b`` meets the swept facet box."""
     lo = (min(tri[b, lane], min(tri[b, 3 * TRI_LANES + lane], tri[b, 6 * TRI_LANES + lane])),
           min(tri[b, TRI_LANES + lane], min(tri[b, 4 * TRI_LANES + lane],
                                             tri[b, 7 * TRI_LANES + lane])),
@@ -226,44 +237,10 @@ def nothing_in_front(arrays, vertices, triangles, normals, facet, sign):
     leaves the side (the *behind the plane* part of the module notes, for every direction
     of the side's hemisphere). False when something may.
     """
-    nodes = arrays[0]
-    nodes_i = arrays[1]
-    tri = arrays[2]
-    tri_i = arrays[3]
     n, fl, fh, size, base, plane = _side_plane(vertices, triangles, normals, facet, sign)
-    stack = _stack_alloca(STACK_SIZE, np.int32)
-    sp = 0
-    ref = np.int32(0)
-    while True:
-        if ref >= 0:
-            for j in range(LANES):
-                c = nodes_i[ref, 6 * LANES + j]
-                if c == -1:
-                    continue
-                lo = (np.float64(nodes[ref, j]), np.float64(nodes[ref, LANES + j]),
-                      np.float64(nodes[ref, 2 * LANES + j]))
-                hi = (np.float64(nodes[ref, 3 * LANES + j]),
-                      np.float64(nodes[ref, 4 * LANES + j]),
-                      np.float64(nodes[ref, 5 * LANES + j]))
-                if _box_top(n, lo, hi, base) > plane:
-                    stack[sp] = c
-                    sp += 1
-        else:
-            code = -1 - ref
-            first = code >> 4
-            n_blk = ((code & 15) + TRI_LANES - 1) // TRI_LANES
-            for b in range(first, first + n_blk):
-                for lane in range(TRI_LANES):
-                    fid = tri_i[b, 9 * TRI_LANES + lane]
-                    if fid == facet or fid == PAD_ID:
-                        continue
-                    if _rises_above(tri, b, lane, n, base, plane):
-                        return False
-        if sp == 0:
-            break
-        sp -= 1
-        ref = stack[sp]
-    return True
+    none = _slope(0.0)
+    return _nothing_met(arrays, facet, n, base, plane, fl, fh,
+                        (none, none, none, none, none, none), 0.0, 0.0, False)
 
 
 @njit(**JIT_PARALLEL)
