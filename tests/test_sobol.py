@@ -16,7 +16,7 @@ from vfactor.tracing import sobol as S
 
 
 def _words(scramble, js, d):
-    return np.array([S.scrambled_word(scramble, d, S.sobol_reversed(S._V_REV, d, j))
+    return np.array([S.scrambled_word(scramble, d, S.sobol_reversed(d, j))
                      for j in js], dtype=np.uint64)
 
 
@@ -32,7 +32,7 @@ def _scramble(seed, replicate=0):
 
 def test_unscrambled_points_are_scipys_sobol_points():
     n = 1 << 12
-    ours = np.array([[_reverse(S.sobol_reversed(S._V_REV, d, j)) for d in range(5)]
+    ours = np.array([[_reverse(S.sobol_reversed(d, j)) for d in range(5)]
                      for j in range(n)], dtype=np.uint64)
     ref = (qmc.Sobol(5, scramble=False, bits=32).random(n) * 2.0 ** 32).astype(np.uint64)
     gray = np.arange(n) ^ (np.arange(n) >> 1)       # scipy lists points in Gray-code order
@@ -41,8 +41,8 @@ def test_unscrambled_points_are_scipys_sobol_points():
     blk = 3 * 256                                   # point(B + k) = point(B) ^ point(k)
     for d in range(5):
         for k in (0, 1, 77, 255):
-            assert S.sobol_reversed(S._V_REV, d, blk + k) == (
-                S.sobol_reversed(S._V_REV, d, blk) ^ table[k, d])
+            assert S.sobol_reversed(d, blk + k) == (
+                S.sobol_reversed(d, blk) ^ table[k, d])
 
 
 def test_scramble_is_nested_and_keeps_every_block_stratified():
@@ -72,7 +72,7 @@ def test_each_point_is_uniform_over_scrambles():
     # coordinates are uncorrelated.
     reps = 3000
     for j in (0, 1, 12345):
-        u = np.array([[S.scrambled_point(_scramble(11, r), d, S.sobol_reversed(S._V_REV, d, j))
+        u = np.array([[S.scrambled_point(_scramble(11, r), d, S.sobol_reversed(d, j))
                        for d in range(5)] for r in range(reps)])
         assert u.min() > 0.0 and u.max() < 1.0
         for d in range(5):
@@ -90,7 +90,7 @@ def test_scrambled_points_beat_independent_ones_on_a_smooth_integral():
     est = []
     for r in range(reps):
         sc = _scramble(21, r)
-        x = np.array([[S.scrambled_point(sc, d, S.sobol_reversed(S._V_REV, d, j))
+        x = np.array([[S.scrambled_point(sc, d, S.sobol_reversed(d, j))
                        for d in range(5)] for j in range(n)])
         est.append(np.prod(3 * x ** 2, axis=1).mean())
     est = np.array(est)

@@ -70,7 +70,7 @@ def test_block_order_is_increasing_first_coordinate():
     draw_scramble(np.uint64(1), np.uint64(5), np.uint64(0), scramble)
     for blk, k_lo, k_hi in ((0, 0, K.CHUNK), (K.CHUNK, 0, 3000), (3 * K.CHUNK, 700, 4000)):
         base = np.empty(5, np.uint64)
-        K._block_words(blk, base)
+        K.block_words(blk, base)
         order = np.empty(K.CHUNK, np.int64)
         K._order_block(K._TABLE, scramble, base, k_lo, k_hi, order)
         ks = [int(k) for k in order if k >= 0]

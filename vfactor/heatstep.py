@@ -141,10 +141,10 @@ class Model:
     albedo_normal: np.ndarray = None     # (q, 3) normal of each group's sides
     albedo_position: np.ndarray = None   # (q, 3) area-weighted centre of its sides [m]
     blk_start: np.ndarray = None         # (s m + 1,) int64, blocked rays of control sides
-    unseen: np.ndarray = None            # (s,) bool: control side no ray of which is blocked,
-    #                                      though something rises in front of it
     blk_origin: np.ndarray = None        # (b, 3)
     blk_dir: np.ndarray = None           # (b, 3)
+    unseen: np.ndarray = None            # (s,) bool: control side no ray of which is blocked,
+    #                                      though something rises in front of it
 
 
 @dataclass(frozen=True)

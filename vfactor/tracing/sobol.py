@@ -55,7 +55,7 @@ from .config import JIT
 from .rng import philox4x32_10
 
 __all__ = ["DIMENSIONS", "BITS", "direction_numbers", "draw_scramble", "sobol_reversed",
-           "scrambled_word", "scrambled_point", "chunk_table"]
+           "block_words", "scrambled_word", "scrambled_point", "chunk_table"]
 
 #: Coordinates of one point (side, two for the position, two for the direction).
 DIMENSIONS = 5
@@ -128,17 +128,24 @@ def draw_scramble(seed, stream, replicate, out):
 
 
 @njit(**JIT, inline="always")
-def sobol_reversed(v_rev, d, j):
+def sobol_reversed(d, j):
     """Point ``j`` of dimension ``d`` of the unscrambled sequence, bits reversed."""
     x = np.uint64(0)
     jj = np.uint64(j)
     k = 0
     while jj != np.uint64(0):
         if jj & _ONE:
-            x ^= v_rev[d, k]
+            x ^= _V_REV[d, k]
         jj >>= _ONE
         k += 1
     return x
+
+
+@njit(**JIT, inline="always")
+def block_words(j, out):
+    """``out`` (DIMENSIONS,) uint64 gets the unscrambled reversed words of point ``j``."""
+    for d in range(DIMENSIONS):
+        out[d] = sobol_reversed(d, j)
 
 
 @njit(**JIT, inline="always")
@@ -173,11 +180,13 @@ def chunk_table(size):
     """Reversed words of points ``0 .. size - 1`` (``size`` a power of two), ``(size,
     DIMENSIONS)`` uint64. For an aligned start ``j0`` (a multiple of ``size``) point ``j0 +
     k`` is ``table[k] ^ point(j0)`` (the sequence is linear over GF(2) in the bits of the
-    index, and those of ``k`` and ``j0`` do not overlap)."""
+    index, and those of ``k`` and ``j0`` do not overlap). Built with numpy (no compile at
+    import)."""
     if size & (size - 1):
         raise ValueError(f"chunk_table: size {size} is not a power of two")
+    j = np.arange(size, dtype=np.uint64)
     t = np.zeros((size, DIMENSIONS), np.uint64)
-    for d in range(DIMENSIONS):
-        for k in range(size):
-            t[k, d] = sobol_reversed(_V_REV, d, k)
+    for k in range(max(int(size).bit_length() - 1, 0)):
+        bit = ((j >> np.uint64(k)) & np.uint64(1)).astype(bool)
+        t[bit] ^= _V_REV[:, k]
     return t

@@ -66,8 +66,8 @@ from numba import njit, prange
 from .config import JIT, JIT_PARALLEL
 from .rng import STREAM_STRIDE, uniform4
 from .sampling import cosine_direction, triangle_point
-from .sobol import (DIMENSIONS, _V_REV, chunk_table, draw_scramble, scrambled_point,
-                    scrambled_word, sobol_reversed)
+from .sobol import (DIMENSIONS, block_words, chunk_table, draw_scramble, scrambled_point,
+                    scrambled_word)
 from .traverse import closest_hit
 
 __all__ = [
@@ -210,13 +210,6 @@ def _first_side_from(side_cum, lo, hi, u):
     return a
 
 
-@njit(**JIT, inline="always")
-def _block_words(blk, base):
-    """``base`` (DIMENSIONS,) gets the unscrambled reversed words of point ``blk``."""
-    for d in range(DIMENSIONS):
-        base[d] = sobol_reversed(_V_REV, d, blk)
-
-
 @njit(**JIT)
 def _order_block(table, scramble, base, k_lo, k_hi, order):
     """``order[q]`` = the point ``k`` of the aligned block (``k_lo <= k < k_hi``) whose
@@ -318,7 +311,7 @@ def _vf_kernel(arrays, emit, geo, pair_node, pair_round, seed, item_pair, item_j
         k_lo = j0 - blk
         k_hi = item_end[item] - blk
         base = np.empty(DIMENSIONS, np.uint64)
-        _block_words(blk, base)
+        block_words(blk, base)
         ordered = k_hi - k_lo >= CHUNK // 8   # few rays: plain order (ordering would not pay)
         order = np.empty(CHUNK if ordered else 0, np.int64)
         if ordered:
@@ -422,7 +415,7 @@ def _gebhart_kernel(arrays, emit, geo, absorb, specular, pair_node, pair_round, 
         j0 = c * CHUNK
         size = min(m, j0 + CHUNK) - j0
         base = np.empty(DIMENSIONS, np.uint64)
-        _block_words(j0, base)
+        block_words(j0, base)
         ordered = size >= CHUNK // 8    # few rays: plain order (ordering would not pay)
         order = np.empty(CHUNK if ordered else 0, np.int64)
         if ordered:
