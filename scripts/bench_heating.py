@@ -8,12 +8,16 @@
    and with the number of steps (18, 36, 72, 144), with the cache.
 3. The statistical error of the demo's per-node planet loads (albedo, planet IR) at equal
    rays (of the estimator: the couplings' error in reflected power, common to all, left
-   out, then printed with it), with the control variates of :mod:`vfactor.heatplanet` and with the plain Monte
-   Carlo estimates from the very same rays (``heatstep.plain_estimates``); then against
-   the previous estimator, the plain estimates from one ray sequence per side instead of
-   one per node (``heatstep.side_sequences``, :mod:`vfactor.tracing.side_rays`), with the
-   same number of rays: the largest and the mean reported one-sigma error over nodes and
-   steps, and their ratios.
+   out, then printed with it), with the control variates of :mod:`vfactor.heatplanet` and
+   with the plain Monte Carlo estimates from the very same rays
+   (``heatstep.plain_estimates``); then against the previous estimator, the plain
+   estimates from one ray sequence per side instead of one per node
+   (``heatstep.side_sequences``, :mod:`vfactor.tracing.side_rays`), with the same number
+   of rays: the largest and the mean over nodes and steps of each one's error, and their
+   ratios. A node's error is the root mean square over several seeds (``--seeds``) of its
+   reported one-sigma error: one seed's is the spread of 8 replicates, itself uncertain by
+   about a quarter (7 degrees of freedom), and the largest over nodes and steps of such
+   figures would pick the luckiest or unluckiest of them.
 4. The demo with its Sun-tracking wings (``[[hinges]]``): one orbit with the turning parts
    (rigid rays cached once, tested against the moving parts per step; the diffuse
    redistribution by the couplings at the demo's 4 hinge positions, computed before the
@@ -91,6 +95,8 @@ def main(argv=None):
     parser.add_argument("--quick", action="store_true", help="fewer sizes (smoke test)")
     parser.add_argument("--rays", type=int, default=256, help="planet rays per facet side")
     parser.add_argument("--sun", type=int, default=16, help="Sun sample points per side")
+    parser.add_argument("--seeds", type=int, default=None,
+                        help="seeds of the error comparison (default 8, 4 with --quick)")
     args = parser.parse_args(argv)
     kw = dict(rays_per_facet=args.rays, sun_samples=args.sun)
 
@@ -127,21 +133,24 @@ def main(argv=None):
     if worst != 0.0:
         print("  WARNING: cache and re-trace differ")
 
-    ours = plain_estimates(geometry, scene, trajectory, environment, plain=False, **kw)
-    print("planet loads at equal rays: node one-sigma errors of the estimator (the "
-          "couplings' error in reflected power left out, the same for all) with the control "
-          "variates / plain estimates (same rays)")
-    plain = plain_estimates(geometry, scene, trajectory, environment, **kw)
-    _error_ratios(ours, plain)
-    print("planet loads at equal rays: node one-sigma errors of this estimator / the plain "
-          "estimates with one ray sequence per side (the previous estimator)")
-    previous = plain_estimates(geometry, scene, trajectory, environment, per_side=True, **kw)
-    _error_ratios(ours, previous)
-    print("with the couplings' error in reflected power (the stage's own 256 rays per side "
-          "here; the radiation stage's couplings in a run):")
+    seeds = range(1, 1 + (args.seeds or (4 if args.quick else 8)))
+    runs = {name: [plain_estimates(geometry, scene, trajectory, environment, seed=seed,
+                                   **options, **kw) for seed in seeds]
+            for name, options in (("ours", dict(plain=False)), ("plain", {}),
+                                  ("previous", dict(per_side=True)))}
+    print(f"planet loads at equal rays, seeds 1..{len(seeds)} (a node's error: the RMS over "
+          f"the seeds of its reported one-sigma error, that of the estimator alone: the "
+          f"couplings' error in reflected power, the same for all, left out)")
+    print("  with the control variates / the plain estimates (same rays):")
+    _error_ratios(runs["ours"], runs["plain"])
+    print("  this estimator / the plain estimates with one ray sequence per side (the "
+          "previous estimator):")
+    _error_ratios(runs["ours"], runs["previous"])
+    print("with the couplings' error in reflected power (seed 1; the stage's own 256 rays per "
+          "side here; the radiation stage's couplings in a run):")
     for src in ("albedo", "planet_ir"):
         total = getattr(with_cache, f"node_{src}_stderr")
-        alone = getattr(ours, f"node_{src}_stderr")
+        alone = getattr(runs["ours"][0], f"node_{src}_stderr")
         print(f"  {src:9s}: largest {total.max():.4f} W (estimator {alone.max():.4f}); "
               f"mean {total.mean():.5f} W (estimator {alone.mean():.5f})")
 
@@ -188,12 +197,15 @@ def main(argv=None):
 
 
 def _error_ratios(ours, other):
-    """Print the largest and mean node one-sigma errors of albedo and planet IR of two
-    heating results and their ratios (other / ours)."""
+    """Print the largest and mean over nodes and steps of the errors of albedo and planet
+    IR of two estimators, and their ratios (other / ours); ``ours``, ``other``: heating
+    results of the same seeds, a node's error the RMS over them of its reported one-sigma
+    error."""
     for src in ("albedo", "planet_ir"):
-        ours_err = getattr(ours, f"node_{src}_stderr")
-        other_err = getattr(other, f"node_{src}_stderr")
-        print(f"  {src:9s}: largest {ours_err.max():.4f} / {other_err.max():.4f} W "
+        ours_err, other_err = (
+            np.sqrt(np.mean([getattr(r, f"node_{src}_stderr") ** 2 for r in runs], axis=0))
+            for runs in (ours, other))
+        print(f"    {src:9s}: largest {ours_err.max():.4f} / {other_err.max():.4f} W "
               f"(ratio {other_err.max() / ours_err.max():.2f}); mean {ours_err.mean():.5f} / "
               f"{other_err.mean():.5f} W (ratio {other_err.mean() / ours_err.mean():.2f})")
 
@@ -204,14 +216,14 @@ class _Quiet:
 
 
 def plain_estimates(geometry, scene, trajectory, environment, per_side=False, plain=True,
-                    **kw):
-    """The heating of :func:`timed` (seed 1) with the plain Monte Carlo estimates of planet
-    IR and albedo on every side: the same rays, no control variates (``plain=False``:
-    with them, as :func:`timed`); ``per_side``: the same number of rays from one sequence
-    per side (``heatstep.side_sequences``). The reported errors are those of the
-    estimator alone: the error of the couplings in the reflected power
+                    seed=1, **kw):
+    """The heating of :func:`timed` (at ``seed``) with the plain Monte Carlo estimates of
+    planet IR and albedo on every side: the same rays, no control variates
+    (``plain=False``: with them, as :func:`timed`); ``per_side``: the same number of rays
+    from one sequence per side (``heatstep.side_sequences``). The reported errors are
+    those of the estimator alone: the error of the couplings in the reflected power
     (:mod:`vfactor.reflecterror`), the same for every estimator, is left out."""
-    task = HeatingSteps.of(geometry, scene, trajectory, environment, seed=1, **kw)
+    task = HeatingSteps.of(geometry, scene, trajectory, environment, seed=seed, **kw)
     model, _ = task.prepare(geometry, scene)
     if per_side:
         model = heatstep.side_sequences(model, _Quiet())
