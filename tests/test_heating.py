@@ -230,6 +230,45 @@ def test_an_obstruction_no_ray_meets_still_carries_an_error():
     assert h.node_planet_ir_stderr[0, alone.nodes.index("bottom")] == 0.0
 
 
+def test_what_no_ray_of_a_node_meets_carries_one_ray_of_the_node_not_a_sum_over_sides():
+    # A 4 m nadir plate of 128 triangles with a 4 cm panel 0.3 m in front of it: the panel
+    # hides about 0.23 W of 2608 W of planet IR, less than one of the node's 8192 rays, so
+    # in many seeds none of them meets it and every side is left at its unblocked value.
+    # The sides draw their rays from one sequence per node, so the node's error is then
+    # one ray's worth of its largest side (0.37 W; Laplace's rule on the pooled rays,
+    # common practice), not the sum in quadrature over 128 sides (4.2 W, 18 times what is
+    # hidden). It must cover what is hidden and be at most 3 times it.
+    from radiation_shapes import rectangle as grid
+
+    coats = {"c": Coating("c", 0.5, 0.8), "k": Coating("k", 0.9, 0.9)}
+    plate = dict(mesh=grid((-2, -2, 0), (4, 0, 0), (0, 4, 0), 8, 8), front=("c", "top"),
+                 back=("c", "bottom"))
+    panel = dict(mesh=rectangle((0.2, 0, -0.3), (1, 0, 0), (0, 1, 0), 0.04, 0.04),
+                 front=("k", "panel"), back=None)
+    geo = make_geometry([plate, panel], coats)
+    tr = make_trajectory([[1, 0, 0]], [0, 0, -1], EARTH_R + 500e3)
+    env = Environment("custom", S0, 0.0, 237.0)
+    i = geo.nodes.index("bottom")
+    truth = run(geo, tr, env, rays_per_facet=16384, seed=999,
+                reflections=False).node_planet_ir[0, i]
+    alone = make_geometry([plate], coats)
+    unblocked = run(alone, tr, env, rays_per_facet=64, seed=1,
+                    reflections=False).node_planet_ir[0, alone.nodes.index("bottom")]
+    hidden = unblocked - truth
+    assert 0.1 < hidden < 0.5
+    one_ray = 0.8 * 237.0 * (4.0 * 4.0 / 128) / 64            # eps E A / N of one side
+    unseen = 0
+    for s in range(1, 41):
+        h = run(geo, tr, env, rays_per_facet=64, seed=s, reflections=False)
+        if h.node_planet_ir[0, i] != unblocked:
+            continue                                          # some ray met the panel
+        unseen += 1
+        sigma = h.node_planet_ir_stderr[0, i]
+        assert sigma == pytest.approx(one_ray, rel=1e-9), s
+        assert hidden < sigma < 3.0 * hidden, (s, sigma, hidden)
+    assert unseen >= 5
+
+
 def test_one_ray_sequence_per_node_lowers_the_error_of_a_many_facet_plate():
     # The planet rays of all the sides of a node are blocks of one randomised QMC sequence
     # (vfactor.tracing.side_rays): where the sides see nearly the same silhouette (a

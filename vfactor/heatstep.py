@@ -331,7 +331,11 @@ def unseen_variance(model: Model, step: Step, views):
     so its error is one ray's worth: ``eps E A / N`` for planet IR and ``alpha a S A mu /
     N`` for albedo, ``mu`` the mean cosine of the solar zenith over the directions that
     meet the planet (the albedo factor over the view factor), on sides that see the planet
-    (or its sunlit part) at all; added in quadrature per node.
+    (or its sunlit part) at all. The sides of a node draw their rays from one sequence
+    (:mod:`vfactor.tracing.side_rays`), so the rule applies to their pooled rays: none of
+    the ``n N`` rays of the node's ``n`` such sides was blocked, and the node's error is
+    one ray's worth of the pool, taken as that of its largest such side (not ``sqrt(n)``
+    times it, as the sum in quadrature of independent sides would give).
     """
     if model.unseen is None or not model.unseen.any():
         return None
@@ -345,7 +349,8 @@ def unseen_variance(model: Model, step: Step, views):
     for src, flux, absorb in (("planet_ir", step.olr * sees, s.emissivity),
                               ("albedo", step.albedo * step.solar * mu, s.absorptivity)):
         ray = absorb[pick] * flux * s.area[pick] / n_rays
-        out[src] = np.bincount(s.node[pick], weights=ray * ray, minlength=model.n_nodes)
+        out[src] = np.zeros(model.n_nodes)
+        np.maximum.at(out[src], s.node[pick], ray * ray)
     return out
 
 
