@@ -198,6 +198,20 @@ def test_partly_hidden_plate_keeps_an_honest_error():
     assert ref.node_planet_ir[0, i] < unhidden      # the panel hides some planet
 
 
+def _plate_behind_a_panel(plate_mesh, panel_size):
+    """A 4 m nadir plate (``plate_mesh``, nodes "top" and "bottom") with a black square
+    panel of ``panel_size`` [m] 0.3 m below it, 500 km up, planet IR 237 W/m2, no albedo:
+    (geometry, the plate alone, trajectory, environment, index of "bottom")."""
+    coats = {"c": Coating("c", 0.5, 0.8), "k": Coating("k", 0.9, 0.9)}
+    plate = dict(mesh=plate_mesh, front=("c", "top"), back=("c", "bottom"))
+    panel = dict(mesh=rectangle((0.2, 0, -0.3), (1, 0, 0), (0, 1, 0), panel_size, panel_size),
+                 front=("k", "panel"), back=None)
+    geo = make_geometry([plate, panel], coats)
+    tr = make_trajectory([[1, 0, 0]], [0, 0, -1], EARTH_R + 500e3)
+    env = Environment("custom", S0, 0.0, 237.0)
+    return geo, make_geometry([plate], coats), tr, env, geo.nodes.index("bottom")
+
+
 def test_an_obstruction_no_ray_meets_still_carries_an_error():
     # A 4 m nadir plate of two triangles with a 0.4 m panel 0.3 m in front of it: the
     # panel hides about 25 W of 2580 W of planet IR, about one ray's worth at 64 rays per
@@ -207,15 +221,8 @@ def test_an_obstruction_no_ray_meets_still_carries_an_error():
     # error, and the errors must cover the scatter about a reference from 256 times the
     # rays: mean z^2 below 3.2 (1.4 expected for errors from 8 replicates, 40 seeds;
     # common practice). A plate with nothing in front keeps its exact value and no error.
-    coats = {"c": Coating("c", 0.5, 0.8), "k": Coating("k", 0.9, 0.9)}
-    plate = dict(mesh=rectangle((0, 0, 0), (1, 0, 0), (0, 1, 0), 4.0, 4.0),
-                 front=("c", "top"), back=("c", "bottom"))
-    panel = dict(mesh=rectangle((0.2, 0, -0.3), (1, 0, 0), (0, 1, 0), 0.4, 0.4),
-                 front=("k", "panel"), back=None)
-    geo = make_geometry([plate, panel], coats)
-    tr = make_trajectory([[1, 0, 0]], [0, 0, -1], EARTH_R + 500e3)
-    env = Environment("custom", S0, 0.0, 237.0)
-    i = geo.nodes.index("bottom")
+    plate_mesh = rectangle((0, 0, 0), (1, 0, 0), (0, 1, 0), 4.0, 4.0)
+    geo, alone, tr, env, i = _plate_behind_a_panel(plate_mesh, 0.4)
     ref = run(geo, tr, env, rays_per_facet=16384, seed=999, reflections=False)
     truth = ref.node_planet_ir[0, i]
     z2 = []
@@ -225,7 +232,6 @@ def test_an_obstruction_no_ray_meets_still_carries_an_error():
         assert sigma > 0.0, s
         z2.append(((h.node_planet_ir[0, i] - truth) / sigma) ** 2)
     assert np.mean(z2) < 3.2
-    alone = make_geometry([plate], coats)
     h = run(alone, tr, env, rays_per_facet=64, seed=1, reflections=False)
     assert h.node_planet_ir_stderr[0, alone.nodes.index("bottom")] == 0.0
 
@@ -240,18 +246,10 @@ def test_what_no_ray_of_a_node_meets_carries_one_ray_of_the_node_not_a_sum_over_
     # hidden). It must cover what is hidden and be at most 3 times it.
     from radiation_shapes import rectangle as grid
 
-    coats = {"c": Coating("c", 0.5, 0.8), "k": Coating("k", 0.9, 0.9)}
-    plate = dict(mesh=grid((-2, -2, 0), (4, 0, 0), (0, 4, 0), 8, 8), front=("c", "top"),
-                 back=("c", "bottom"))
-    panel = dict(mesh=rectangle((0.2, 0, -0.3), (1, 0, 0), (0, 1, 0), 0.04, 0.04),
-                 front=("k", "panel"), back=None)
-    geo = make_geometry([plate, panel], coats)
-    tr = make_trajectory([[1, 0, 0]], [0, 0, -1], EARTH_R + 500e3)
-    env = Environment("custom", S0, 0.0, 237.0)
-    i = geo.nodes.index("bottom")
+    geo, alone, tr, env, i = _plate_behind_a_panel(
+        grid((-2, -2, 0), (4, 0, 0), (0, 4, 0), 8, 8), 0.04)
     truth = run(geo, tr, env, rays_per_facet=16384, seed=999,
                 reflections=False).node_planet_ir[0, i]
-    alone = make_geometry([plate], coats)
     unblocked = run(alone, tr, env, rays_per_facet=64, seed=1,
                     reflections=False).node_planet_ir[0, alone.nodes.index("bottom")]
     hidden = unblocked - truth
