@@ -134,10 +134,9 @@ def main(argv=None):
         print("  WARNING: cache and re-trace differ")
 
     seeds = range(1, 1 + (args.seeds or (4 if args.quick else 8)))
-    runs = {name: [plain_estimates(geometry, scene, trajectory, environment, seed=seed,
-                                   **options, **kw) for seed in seeds]
-            for name, options in (("ours", dict(plain=False)), ("plain", {}),
-                                  ("previous", dict(per_side=True)))}
+    by_seed = [estimators(geometry, scene, trajectory, environment, seed=seed, **kw)
+               for seed in seeds]
+    runs = {name: [one[name] for one in by_seed] for name in ("ours", "plain", "previous")}
     print(f"planet loads at equal rays, seeds 1..{len(seeds)} (a node's error: the RMS over "
           f"the seeds of its reported one-sigma error, that of the estimator alone: the "
           f"couplings' error in reflected power, the same for all, left out)")
@@ -215,24 +214,27 @@ class _Quiet:
         pass
 
 
-def plain_estimates(geometry, scene, trajectory, environment, per_side=False, plain=True,
-                    seed=1, **kw):
-    """The heating of :func:`timed` (at ``seed``) with the plain Monte Carlo estimates of
-    planet IR and albedo on every side: the same rays, no control variates
-    (``plain=False``: with them, as :func:`timed`); ``per_side``: the same number of rays
-    from one sequence per side (``heatstep.side_sequences``). The reported errors are
-    those of the estimator alone: the error of the couplings in the reflected power
-    (:mod:`vfactor.reflecterror`), the same for every estimator, is left out."""
+def estimators(geometry, scene, trajectory, environment, seed=1, **kw):
+    """The heating of :func:`timed` (at ``seed``) by three estimators of planet IR and
+    albedo, from one prepared vehicle: {"ours": the control variates, "plain": the plain
+    Monte Carlo estimates on every side from the very same rays
+    (``heatstep.plain_estimates``), "previous": the plain estimates from the same number of
+    rays drawn from one sequence per side (``heatstep.side_sequences``)}. The reported
+    errors are those of the estimator alone: the error of the couplings in the reflected
+    power (:mod:`vfactor.reflecterror`), the same for every estimator, is left out."""
     task = HeatingSteps.of(geometry, scene, trajectory, environment, seed=seed, **kw)
     model, _ = task.prepare(geometry, scene)
-    if per_side:
-        model = heatstep.side_sequences(model, _Quiet())
-    if plain:
-        model = heatstep.plain_estimates(model)
-    gebhart = {band: None if geb is None else geb._replace(errors=None)
-               for band, geb in heatreflect.band_gebhart(model, geometry, None).items()}
-    bands = heatreflect.bands_of(model, geometry, None, gebhart)
-    return task.assemble(task.run((model, bands), np.arange(task.n_steps)))
+    previous = heatstep.plain_estimates(heatstep.side_sequences(model, _Quiet()))
+    out = {}
+    gebhart = None
+    for name, state in (("ours", model), ("plain", heatstep.plain_estimates(model)),
+                        ("previous", previous)):
+        if gebhart is None or name == "previous":   # "plain" has the first hits of "ours"
+            gebhart = {band: None if geb is None else geb._replace(errors=None)
+                       for band, geb in heatreflect.band_gebhart(state, geometry, None).items()}
+        bands = heatreflect.bands_of(state, geometry, None, gebhart)
+        out[name] = task.assemble(task.run((state, bands), np.arange(task.n_steps)))
+    return out
 
 
 def _first(trajectory, stop, start=0):
