@@ -101,6 +101,14 @@ ERRORS = [
     (dict(environment={"solar_constant": 1e9}), "[environment] solar_constant",
      ["<= 1e+08 W m-2"]),
     (dict(environment={"albedo": 30}), "[environment] albedo", ["fraction"]),
+    (dict(radiation={"planet_ray_factor": {"body.+q": 4}}), "[radiation] planet_ray_factor",
+     ["no node 'body.+q'", "did you mean 'body.+"]),
+    (dict(radiation={"planet_ray_factor": {"body.+x": 17}}),
+     "[radiation] planet_ray_factor body.+x", ["<= 16", "17"]),
+    (dict(radiation={"planet_ray_factor": {"body.+x": 0}}),
+     "[radiation] planet_ray_factor body.+x", [">= 1"]),
+    (dict(radiation={"planet_ray_factor": 4}), "[radiation] planet_ray_factor",
+     ["must be a table"]),
 ]
 
 

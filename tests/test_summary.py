@@ -174,3 +174,30 @@ def test_reflection_warning_names_the_nodes_that_take_reflected_power():
     assert len(lines) == 1 and "1 node(s)" in lines[0] and "'b': 33 %" in lines[0]
     assert "absorbed solar" in lines[0] and "--seed" in lines[0]
     assert _reflection_warnings(heat, nodes, 0.5 * RELATIVE_ERROR_WARNING) == []
+
+
+def test_planet_rays_given_and_suggested_in_the_summary(tmp_path):
+    # A node whose albedo error stands out gets a suggested planet_ray_factor
+    # (vfactor.planetrays.suggested_factors); the rays per side of a node given more are
+    # stored in /heating/planet_rays, read back and named by the summary.
+    import dataclasses
+
+    kw = sample_results()
+    heat = kw["heating"]
+    n = heat.node_solar.shape[1]
+    err = np.full_like(heat.node_solar, 1e-4)
+    err[2, 1] = 0.2                                     # W, made up for the test
+    rays = np.full(n, 256)
+    rays[0] = 1024
+    kw["heating"] = dataclasses.replace(heat, node_solar_stderr=err, node_albedo_stderr=err,
+                                        node_planet_ir_stderr=err / 2, rays_per_facet=256,
+                                        node_planet_rays=rays)
+    r = h5io.read_results(h5io.write_results(tmp_path / "p.h5", **kw))
+    assert r.heating.node_planet_rays.tolist() == rays.tolist()
+    planet = summary.summarize(r)["heat_loads"]["planet_rays"]
+    name = r.geometry.nodes.names[1]
+    assert planet["more"] == [{"node": r.geometry.nodes.names[0], "rays_per_side": 1024}]
+    assert planet["suggested_factor"][name] > 1
+    text = summary.format_summary(r)
+    assert f'planet_ray_factor = {{ "{name}" = {planet["suggested_factor"][name]}' in text
+    assert "more planet rays: 1 node(s) had more than the 256 per facet side" in text

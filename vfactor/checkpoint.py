@@ -37,9 +37,10 @@ CHECKPOINT_SUFFIX = ".partial"
 #: the 16th larger), or the sums of their results (5: the heating stage's own couplings
 #: added per side's first-hit runs; load errors with the couplings' error; 6: coupling
 #: rays from Owen-scrambled Sobol' points, load errors with what the planet rays cannot
-#: resolve; 7: that error one ray of a node's pooled rays, not a sum over its sides), so
-#: that a run never resumes from steps or tallies of other rays, rounding or error model.
-_CHECKPOINT_KIND = "vfactor-checkpoint-7"
+#: resolve; 7: that error one ray of a node's pooled rays, not a sum over its sides; 8:
+#: planet rays by need), so that a run never resumes from steps or tallies of other rays,
+#: rounding or error model.
+_CHECKPOINT_KIND = "vfactor-checkpoint-8"
 #: Shortest time between two saves of the checkpoint [s].
 CHECKPOINT_EVERY_S = 5.0
 #: A save may take at most this share of the time between saves [1].

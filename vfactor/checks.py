@@ -214,6 +214,10 @@ def _check_built(model: Model, geometry: Geometry, report: CheckReport) -> bool:
                         "nothing emits or absorbs radiation, so there is nothing to "
                         "compute; give at least one part a side, e.g. front = { coating "
                         "= \"NAME\" }"))
+    from vfactor.planetrays import unknown_nodes
+
+    for message in unknown_nodes(dict(model.radiation.planet_ray_factor), g.nodes.names):
+        add(Problem("error", file, "[radiation] planet_ray_factor", message))
     for name in g.nodes.names:
         problem = name_problem(name)
         if problem:

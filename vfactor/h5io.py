@@ -332,6 +332,16 @@ def _write_heating(root, heat: Heating, time):
     for key in ("rays_per_facet", "sun_samples"):
         if hasattr(heat, key):
             g.attrs[key] = int(getattr(heat, key))
+    for src in ("albedo", "planet_ir"):
+        value = getattr(heat, f"node_{src}_ray_stderr", None)
+        if value is not None:
+            _put(g, f"{src}_ray_stderr", value, "W",
+                 f"the part of {src}_stderr that the planet rays carry (without the couplings' "
+                 f"error in reflected power): what more planet rays lower")
+    if getattr(heat, "node_planet_rays", None) is not None:
+        _put(g, "planet_rays", np.asarray(heat.node_planet_rays, dtype=np.int64), "1",
+             "planet rays per facet side of each node (more where the planet loads are the "
+             "least certain: planet rays by need)")
     if hasattr(heat, "seed"):
         g.attrs["seed"] = np.uint64(heat.seed)  # seeds span [0, 2**64)
     f = g.create_group("facet")

@@ -187,6 +187,11 @@ def _read_heating(g, time) -> Heating:
     for key in ("rays_per_facet", "sun_samples", "seed"):
         if key in g.attrs and key in known:
             extra[key] = int(g.attrs[key])
+    for src in ("albedo", "planet_ir"):
+        if f"{src}_ray_stderr" in g and f"node_{src}_ray_stderr" in known:
+            extra[f"node_{src}_ray_stderr"] = g[f"{src}_ray_stderr"][()]
+    if "planet_rays" in g and "node_planet_rays" in known:
+        extra["node_planet_rays"] = g["planet_rays"][()]
     if "time" in known and time is not None:
         extra["time"] = time
     return Heating(**extra,

@@ -90,6 +90,7 @@ from vfactor.heatmotion import placed_step, rigid_part
 from vfactor.heatreflect import bands_of
 from vfactor.heatstep import Step, prepare, reuse_trace, trace_once, unit
 from vfactor.heatthreads import run_steps
+from vfactor.planetrays import checked_blocks
 
 __all__ = ["Heating", "HeatingExtremes", "HeatingSteps", "compute_heating", "heating_extremes",
            "step_weights", "SOURCES", "ROWS"]
@@ -123,9 +124,15 @@ class Heating:
     inert_solar, inert_albedo, inert_planet_ir : (t,) float or None — reflected power that
         ended on inert sides [W]
     time : (t,) float or None — time of each step since the trajectory epoch [s]
-    rays_per_facet : int — planet rays per facet side actually used (0 when unknown)
+    rays_per_facet : int — planet rays per facet side actually used (0 when unknown); the
+        nodes given more (``planet_blocks``) have ``node_planet_rays``
     sun_samples : int — Sun sample points per facet side actually used (0 when unknown)
     seed : int — random seed
+    node_albedo_ray_stderr, node_planet_ir_ray_stderr : (t, n) float or None — the part of
+        the planet loads' error that their rays carry (without the couplings' error in
+        reflected power): what more planet rays lower (:mod:`vfactor.planetrays`) [W]
+    node_planet_rays : (n,) int or None — planet rays per facet side of each node
+        (``rays_per_facet`` times its blocks, :mod:`vfactor.planetrays`)
     """
 
     node_solar: np.ndarray
@@ -154,6 +161,9 @@ class Heating:
     rays_per_facet: int = 0
     sun_samples: int = 0
     seed: int = 0
+    node_albedo_ray_stderr: np.ndarray | None = None
+    node_planet_ir_ray_stderr: np.ndarray | None = None
+    node_planet_rays: np.ndarray | None = None
 
     @property
     def n_steps(self) -> int:
@@ -314,7 +324,7 @@ def _check_inputs(geometry, scene, trajectory, environment, rays_per_facet, sun_
 def compute_heating(geometry, scene, trajectory, environment, *, view_factors=None,
                     rays_per_facet=256, sun_samples=16, seed=1, use_cache=True,
                     reflections=True, replicates=8, max_bounces=16, motion=None,
-                    positions=None, reporter=None) -> Heating:
+                    positions=None, planet_blocks=None, reporter=None) -> Heating:
     """Absorbed solar, albedo and planet IR per node and facet at every trajectory step.
 
     Parameters
@@ -359,6 +369,10 @@ def compute_heating(geometry, scene, trajectory, environment, *, view_factors=No
         hinge position nearest to it (``step_position``), whose Gebhart factors are solved
         once per position. Without: the placed vehicle's own rays at each step give its
         couplings (exact for the step, and the slowest part of a step).
+    planet_blocks : (n,) int, optional
+        Per node, how many times ``rays_per_facet`` planet rays each of its facet sides
+        draws (1 to :data:`vfactor.planetrays.MAX_FACTOR`; independent blocks, see
+        :mod:`vfactor.planetrays`); default one block everywhere.
     reporter : vfactor.progress.Reporter, optional
         Receives a ``"heating: escaping directions"`` stage (facet sides traced once) and
         a ``"heating"`` stage advanced once per step.
@@ -387,7 +401,7 @@ def compute_heating(geometry, scene, trajectory, environment, *, view_factors=No
                            rays_per_facet=rays_per_facet, sun_samples=sun_samples, seed=seed,
                            use_cache=use_cache, reflections=reflections,
                            replicates=replicates, max_bounces=max_bounces, motion=motion,
-                           positions=positions)
+                           positions=positions, planet_blocks=planet_blocks)
     state = task.prepare(geometry, scene, reporter)
     steps = np.arange(task.n_steps)
     with reporter.stage("heating", total=task.n_steps, unit="steps") as bar:
@@ -398,6 +412,7 @@ def compute_heating(geometry, scene, trajectory, environment, *, view_factors=No
 #: The per-step outputs of the heating stage: name -> which width ("node", "facet", None).
 ROWS = {**{f"{kind}_{src}": "node" for kind in ("node", "incident") for src in SOURCES},
         **{f"node_{src}_stderr": "node" for src in SOURCES},
+        **{f"node_{src}_ray_stderr": "node" for src in ("albedo", "planet_ir")},
         **{f"facet_{src}": "facet" for src in SOURCES},
         **{f"{kind}_{src}": None for kind in ("escaped", "inert") for src in SOURCES}}
 
@@ -455,15 +470,18 @@ class HeatingSteps:
     motion: object = None         # vfactor.kinematics.Motion when parts turn
     step_position: object = None  # (t,) int: hinge position of each step (with motion)
     position_views: tuple = None  # per hinge position: _View
+    blocks: np.ndarray = None     # (n,) int: planet-ray blocks per side (vfactor.planetrays)
     key: str = field(default_factory=lambda: "heating:" + uuid.uuid4().hex)
 
     @classmethod
     def of(cls, geometry, scene, trajectory, environment, *, view_factors=None,
            rays_per_facet=256, sun_samples=16, seed=1, use_cache=True, reflections=True,
-           replicates=8, max_bounces=16, motion=None, positions=None) -> "HeatingSteps":
+           replicates=8, max_bounces=16, motion=None, positions=None,
+           planet_blocks=None) -> "HeatingSteps":
         """The task of :func:`compute_heating` with these arguments (checked here)."""
         _check_inputs(geometry, scene, trajectory, environment, rays_per_facet, sun_samples,
                       seed, replicates, max_bounces)
+        blocks = checked_blocks(planet_blocks, geometry.n_nodes)
         sun_all = np.asarray(trajectory.sun_body, dtype=np.float64)
         nadir_all = np.asarray(trajectory.nadir_body, dtype=np.float64)
         dist_all = np.asarray(trajectory.planet_distance, dtype=np.float64)
@@ -487,6 +505,7 @@ class HeatingSteps:
         return cls(steps=steps,
                    env=dict(radius=float(trajectory.planet.radius),
                             olr=float(environment.planet_ir), albedo=float(environment.albedo)),
+                   blocks=blocks,
                    view=view, n_nodes=geometry.n_nodes, n_facets=geometry.n_facets,
                    time=np.asarray(trajectory.time, dtype=np.float64).copy(),
                    solar_constant=s_const, case=environment.case,
@@ -507,7 +526,7 @@ class HeatingSteps:
 
         reporter = reporter or NullReporter()
         model = prepare(geometry, scene, self.replicates, self.rays_per_facet,
-                        self.sun_samples, self.seed, self.max_bounces)
+                        self.sun_samples, self.seed, self.max_bounces, self.blocks)
         if self.motion is None and traced is not None and reuse_trace(model, traced):
             bands = bands_of(model, geometry, self.view) if self.reflections else None
             return model, bands
@@ -531,9 +550,7 @@ class HeatingSteps:
         model, held = state    # rigid: (model, bands); turning parts: (None, (geometry, rigid))
         ks = np.asarray(job, dtype=np.int64).reshape(-1).tolist()
         out = self.empty_rows(len(ks))
-        steps = [Step(sun=sun, centre=centre, solar=solar, fraction=fraction,
-                      cos_half=cos_half, **self.env)
-                 for sun, centre, solar, fraction, cos_half in (self.steps[k] for k in ks)]
+        steps = [_step_of(self.steps[k], self.env) for k in ks]
         if model is not None:      # rigid: the steps on threads (vfactor.heatthreads)
             run_steps(model, held, steps, self.use_cache, out, bar)
             return out
@@ -550,4 +567,13 @@ class HeatingSteps:
                        solar_constant=self.solar_constant, albedo=self.env["albedo"],
                        planet_ir=self.env["olr"], case=self.case, time=self.time,
                        rays_per_facet=m * -(-self.rays_per_facet // m),
-                       sun_samples=m * -(-self.sun_samples // m), seed=self.seed)
+                       sun_samples=m * -(-self.sun_samples // m), seed=self.seed,
+                       node_planet_rays=None if self.blocks is None else
+                       m * -(-self.rays_per_facet // m) * self.blocks)
+
+
+def _step_of(values, env) -> Step:
+    """The :class:`Step` of one entry of ``HeatingSteps.steps``."""
+    sun, centre, solar, fraction, cos_half = values
+    return Step(sun=sun, centre=centre, solar=solar, fraction=fraction, cos_half=cos_half,
+                **env)

@@ -151,7 +151,7 @@ def placed_step(task, geometry, rigid: RigidPart, gebhart: dict, k: int, step, p
     triangles = np.ascontiguousarray(geometry.triangles, dtype=np.int64)
     whole = Scene.build(vertices, triangles)
     model = heatstep.prepare(geometry, whole, task.replicates, task.rays_per_facet,
-                             task.sun_samples, task.seed, task.max_bounces)
+                             task.sun_samples, task.seed, task.max_bounces, task.blocks)
     s = model.sides
     n_rays = model.m * model.k_planet
     targets = np.empty((s.count, n_rays), np.int32)

@@ -45,6 +45,10 @@ class _Sides:
     ir_specular: np.ndarray
     ray_stream: np.ndarray   # (s,) uint64: the planet-ray sequence of the side's node
     ray_rank: np.ndarray     # (s,) int64: the side's block in it (side_rays.planet_ray_keys)
+    copies: np.ndarray       # (s,) int64: blocks of planet rays of the entry's facet side
+    #                          (vfactor.planetrays): c blocks are c entries of area A / c
+    first: np.ndarray = None  # (u,) the first entry of each facet side, None: one entry each
+    side_of: np.ndarray = None  # (s,) index into ``first`` of each entry's facet side
 
     @property
     def count(self) -> int:
@@ -74,7 +78,13 @@ def _band_tables(geometry):
     return node, [np.ascontiguousarray(p) for p in props]
 
 
-def _sides(geometry, normals, facet_node, props) -> _Sides:
+def _sides(geometry, normals, facet_node, props, blocks=None) -> _Sides:
+    """The active facet sides, facet-major, front before back. A side of a node with
+    ``blocks[node] = c > 1`` is ``c`` consecutive entries of area ``A / c``, block ``j``
+    drawing the side's planet rays from the node's sequence ``j COPY_STRIDE`` further on
+    (an independent randomisation: :mod:`vfactor.planetrays`), so that every sum over
+    the entries is the mean of ``c`` independent estimates of the side's. ``blocks`` None
+    or all 1: one entry per side."""
     facet_idx = []
     signs = []
     for col, sign in ((0, 1), (1, -1)):
@@ -90,11 +100,29 @@ def _sides(geometry, normals, facet_node, props) -> _Sides:
     col = np.where(sign > 0, 0, 1)
     node = facet_node[facet, col]
     ray_stream, ray_rank = side_rays.planet_ray_keys(node)
+    count = np.ones(facet.size, dtype=np.int64)
+    first = side_of = None
+    if blocks is not None and (np.asarray(blocks)[node] > 1).any():
+        count = np.asarray(blocks, dtype=np.int64)[node]
+        copy = _copy_index(count)
+        side_of = np.repeat(np.arange(facet.size, dtype=np.int64), count)
+        first = np.ascontiguousarray(np.cumsum(count) - count)
+        facet, sign, col, node, ray_stream, ray_rank, count = (
+            np.repeat(a, count) for a in (facet, sign, col, node, ray_stream, ray_rank, count))
+        ray_stream = ray_stream + copy.astype(np.uint64) * np.uint64(side_rays.COPY_STRIDE)
     return _Sides(facet=facet, sign=sign, node=node, ray_stream=ray_stream, ray_rank=ray_rank,
-                  area=np.asarray(geometry.areas, dtype=np.float64)[facet],
+                  copies=count, first=first, side_of=side_of,
+                  area=np.asarray(geometry.areas, dtype=np.float64)[facet] / count,
                   normal=normals[facet] * sign[:, None],
                   absorptivity=props[0][facet, col], emissivity=props[1][facet, col],
                   solar_specular=props[2][facet, col], ir_specular=props[3][facet, col])
+
+
+def _copy_index(count) -> np.ndarray:
+    """Block ``j`` of each entry when side ``i`` has ``count[i]`` consecutive entries:
+    ``[2, 1, 3]`` -> ``[0, 1, 0, 0, 1, 2]``."""
+    return np.arange(int(count.sum()), dtype=np.int64) - np.repeat(np.cumsum(count) - count,
+                                                                     count)
 
 
 def unit(v):
@@ -161,12 +189,15 @@ class Step:
     albedo: float            # [1]
 
 
-def prepare(geometry, scene, m, rays_per_facet, sun_samples, seed, max_bounces) -> Model:
+def prepare(geometry, scene, m, rays_per_facet, sun_samples, seed, max_bounces,
+            blocks=None) -> Model:
+    """The :class:`Model` of the vehicle, not yet traced; ``blocks`` (n,) int: blocks of
+    ``rays_per_facet`` planet rays per side of each node (:func:`_sides`; None: one)."""
     vertices = np.ascontiguousarray(scene.vertices, dtype=np.float64)
     triangles = np.ascontiguousarray(scene.triangles, dtype=np.int64)
     normals = np.ascontiguousarray(scene.normals, dtype=np.float64)
     facet_node, props = _band_tables(geometry)
-    sides = _sides(geometry, normals, facet_node, props)
+    sides = _sides(geometry, normals, facet_node, props, blocks)
     node_area = np.asarray(geometry.nodes.area, dtype=np.float64)
     facet_area = np.asarray(geometry.areas, dtype=np.float64)
     return Model(arrays=scene.arrays, vertices=vertices, triangles=triangles, normals=normals,
@@ -384,8 +415,12 @@ def side_sequences(model: Model, bar) -> Model:
     s = model.sides
     stream = (np.uint64(side_rays.PURPOSE_PLANET) * np.uint64(side_rays.STREAM_STRIDE)
               + (2 * s.facet + (s.sign < 0)).astype(np.uint64))
-    sides = dataclasses.replace(s, ray_stream=np.ascontiguousarray(stream, dtype=np.uint64),
-                                ray_rank=np.zeros(s.count, dtype=np.int64))
+    # block j of a side (vfactor.planetrays) takes the sequence j COPY_STRIDE further on
+    block = s.ray_stream // np.uint64(side_rays.COPY_STRIDE) % np.uint64(
+        side_rays.STREAM_STRIDE // side_rays.COPY_STRIDE)
+    sides = dataclasses.replace(s, ray_stream=np.ascontiguousarray(
+        stream + block * np.uint64(side_rays.COPY_STRIDE), dtype=np.uint64),
+        ray_rank=np.zeros(s.count, dtype=np.int64))
     copy = dataclasses.replace(model, sides=sides)
     trace_once(copy, bar, need_rays=True, all_escaping=True)
     return copy
@@ -403,16 +438,24 @@ def one_step(model: Model, bands, step: Step, use_cache: bool, k: int, out: dict
     n_nodes = model.n_nodes
     g = s.count * m
 
-    # direct solar: unshadowed sample points per (side, sample)
+    # direct solar: unshadowed sample points per (side, sample); the blocks of planet rays
+    # of a side (vfactor.planetrays) share its Sun samples, traced once
     cos_t = np.maximum(s.normal @ step.sun, 0.0)
     sunlit = bool(s.count and step.fraction > 0.0 and step.solar > 0.0)
     blank = np.empty if sunlit else np.zeros        # the kernel writes every entry
-    lit_mask = blank((s.count, m * model.k_sun), dtype=np.bool_)
-    lit = blank((s.count, m))
+    one = s.first if s.first is not None else slice(None)
+    n_sun = s.count if s.first is None else s.first.size
+    lit_mask = blank((n_sun, m * model.k_sun), dtype=np.bool_)
+    lit = blank((n_sun, m))
     if sunlit:
+        order = model.order if s.first is None else _thread_order(n_sun)
         heat_kernels.sun_lit_mask(model.arrays, model.vertices, model.triangles, model.normals,
-                                  s.facet, s.sign, model.order, model.seed, m, model.k_sun,
-                                  step.sun, step.cos_half, model.diagonal, lit_mask, lit)
+                                  np.ascontiguousarray(s.facet[one]),
+                                  np.ascontiguousarray(s.sign[one]), order, model.seed, m,
+                                  model.k_sun, step.sun, step.cos_half, model.diagonal,
+                                  lit_mask, lit)
+    if s.side_of is not None:
+        lit_mask, lit = lit_mask[s.side_of], lit[s.side_of]
 
     # planet: hits and albedo cosines per (side, replicate); per ray for specular sides
     blank = np.empty if s.count else np.zeros       # the kernels write every entry
@@ -492,6 +535,8 @@ def one_step(model: Model, bands, step: Step, use_cache: bool, k: int, out: dict
         spread_error = node_rep.std(axis=0, ddof=1) / math.sqrt(m)
         if src != "solar" and unseen is not None:
             spread_error = np.hypot(spread_error, np.sqrt(unseen[src]))
+        if src != "solar":
+            out[f"node_{src}_ray_stderr"][k] = spread_error
         out[f"node_{src}_stderr"][k] = (spread_error if coupling_var is None else
                                         np.hypot(spread_error, np.sqrt(coupling_var)))
         out[f"node_{src}"][k] = absorbed_node

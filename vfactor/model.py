@@ -30,7 +30,7 @@ files may make their loader read only files inside the model's folder or below i
 
 ``[radiation]``: ``rays_per_node``, ``seed``, ``target_error``, ``max_rays_per_node``,
 ``smoothing``, ``facet_factors``, ``sun_rays_per_facet``, ``planet_rays_per_facet``,
-``gebhart_drop_tolerance``.
+``planet_ray_factor``, ``gebhart_drop_tolerance``.
 """
 
 from __future__ import annotations
@@ -86,6 +86,7 @@ _RADIATION_DEFAULTS = {
     "facet_factors": False,
     "sun_rays_per_facet": 16,
     "planet_rays_per_facet": 256,
+    "planet_ray_factor": (),          # node name -> factor (vfactor.planetrays)
     "gebhart_drop_tolerance": 1e-6,   # vfactor.gebhart.DROP_TOLERANCE
     "hinge_positions": 0,
 }
@@ -157,6 +158,8 @@ class RadiationSettings:
     facet_factors : bool — also keep facet-to-facet view factors (default false)
     sun_rays_per_facet : int — sample points per facet traced toward the Sun (default 16)
     planet_rays_per_facet : int — escaping directions per facet used for the planet (256)
+    planet_ray_factor : tuple of (node name, int) — nodes whose facet sides draw that many
+        times the planet rays (:mod:`vfactor.planetrays`; default none)
     hinge_positions : int — hinge positions at which the couplings are also computed
         (0: none; see :mod:`vfactor.positions`)
     """
@@ -170,6 +173,7 @@ class RadiationSettings:
     facet_factors: bool = False
     sun_rays_per_facet: int = 16
     planet_rays_per_facet: int = 256
+    planet_ray_factor: tuple = ()
     hinge_positions: int = 0
 
 
@@ -433,6 +437,20 @@ def _read_coatings(value, reader: Reader) -> dict:
     return coatings
 
 
+def _planet_ray_factor(reader: Reader, value) -> tuple:
+    """``[radiation] planet_ray_factor``: a table of node name -> integer factor, as sorted
+    (name, factor) pairs (the names are checked against the built nodes later)."""
+    from vfactor.planetrays import MAX_FACTOR
+
+    where = "[radiation] planet_ray_factor"
+    tab = reader.table(value, where)
+    out = []
+    for name in sorted(tab):
+        out.append((str(name), reader.integer(tab[name], f"{where} {label(name)}", 1,
+                                              MAX_FACTOR)))
+    return tuple(out)
+
+
 def _read_radiation(value, reader: Reader) -> RadiationSettings:
     if value is None:
         return RadiationSettings()
@@ -466,6 +484,11 @@ def _read_radiation(value, reader: Reader) -> RadiationSettings:
                 reader.error("[radiation] gebhart_drop_tolerance",
                              f"must be below 0.01 of a node's emission, got {tol!r}")
             out["gebhart_drop_tolerance"] = tol
+        except Invalid:
+            pass
+    if "planet_ray_factor" in tab:
+        try:
+            out["planet_ray_factor"] = _planet_ray_factor(reader, tab["planet_ray_factor"])
         except Invalid:
             pass
     if "target_error" in tab:

@@ -247,6 +247,7 @@ def _case_stage(case, cmodel, model, geometry, scene, view_factors, exchanges, t
     from .exchange import compute_exchange, traced_band
     from .heating import HeatingSteps
     from .kinematics import motion_of
+    from .planetrays import node_blocks
     from .positions import couplings_at_positions
     from .trajectory import trajectory_from_model
 
@@ -315,7 +316,9 @@ def _case_stage(case, cmodel, model, geometry, scene, view_factors, exchanges, t
     task = HeatingSteps.of(cgeom, scene, trajectory, environment, view_factors=view_factors,
                            rays_per_facet=int(settings.planet_rays_per_facet),
                            sun_samples=int(settings.sun_rays_per_facet), seed=seed,
-                           motion=motion, positions=positions)
+                           motion=motion, positions=positions,
+                           planet_blocks=node_blocks(dict(settings.planet_ray_factor),
+                                                     cgeom.nodes.names))
     if runner is not None:
         heating, resumed[f"{tag}heating steps"] = stagework.heating_on(
             runner, cgeom, task, checkpoint=ckpt, reporter=reporter,

@@ -151,6 +151,12 @@ def estimate_resources(model: Model, geometry: Geometry, rays: int | None = None
     replicates = 8
     planet = float(replicates * -(-int(settings.planet_rays_per_facet) // replicates))
     sun = float(replicates * -(-int(settings.sun_rays_per_facet) // replicates))
+    # nodes with more planet rays (vfactor.planetrays): their sides count that many times
+    factor = dict(getattr(settings, "planet_ray_factor", ()))
+    if factor:
+        extra = np.array([factor.get(name, 1) - 1 for name in g.nodes.names] + [0], float)
+        planet *= 1.0 + float(extra[np.asarray(g.front_node)].sum()
+                              + extra[np.asarray(g.back_node)].sum()) / max(sides, 1)
 
     parts = {
         "node couplings": COUPLING_COPIES * 8.0 * n * min(n + 2.0, COUPLED_PER_ROW,

@@ -333,7 +333,7 @@ def summarize(results: Results, top: int = 15) -> dict:
                  "planet_ir_W_m2": float(heat.planet_ir),
                  "solar_constant_W_m2": [float(heat.solar_constant.min()),
                                          float(heat.solar_constant.max())],
-                 "nodes": rows}
+                 "nodes": rows, "planet_rays": _planet_rays(heat, results.geometry, vf)}
 
         loads["largest"] = _largest_loads(heat, results.trajectory.time, nodes.names, top)
         if vf is not None:
@@ -396,6 +396,37 @@ def _part_rows(results: Results) -> list:
                                  for src in _SOURCES + ("total",)}
         rows.append(row)
     return rows
+
+
+def _planet_rays(heat, geometry, vf) -> dict:
+    """Planet rays per facet side, the nodes that had more (``planet_ray_factor``, most
+    first), and the factors :func:`vfactor.planetrays.suggested_factors` would give from
+    this run's errors (nodes with a factor above 1)."""
+    from .planetrays import sides_per_node, suggested_factors
+
+    names = geometry.nodes.names
+    base = int(getattr(heat, "rays_per_facet", 0))
+    per_node = getattr(heat, "node_planet_rays", None)
+    more = []
+    if per_node is not None and base > 0:
+        rays = np.asarray(per_node, dtype=np.int64)
+        order = np.lexsort((np.arange(rays.size), -rays))
+        more = [{"node": names[i], "rays_per_side": int(rays[i])}
+                for i in order.tolist() if rays[i] > base]
+    suggested = {}
+    # the part of the error the planet rays carry, where the file has it
+    albedo, planet_ir = (getattr(heat, f"node_{src}_ray_stderr", None)
+                         if getattr(heat, f"node_{src}_ray_stderr", None) is not None
+                         else getattr(heat, f"node_{src}_stderr") for src in ("albedo", "planet_ir"))
+    if albedo is not None and planet_ir is not None and np.size(albedo):
+        error = np.maximum(albedo, planet_ir).max(axis=0)
+        old = (np.asarray(per_node, dtype=np.int64) // max(base, 1) if per_node is not None
+               else np.ones(len(names), dtype=np.int64))
+        # a node's error with one block of rays: that of its factor times its square root
+        factors = suggested_factors(error * np.sqrt(old), sides_per_node(geometry),
+                                    None if vf is None else vf.matrix)
+        suggested = {names[i]: int(factors[i]) for i in np.flatnonzero(factors > 1).tolist()}
+    return {"per_side": base, "more": more, "suggested_factor": suggested}
 
 
 def _largest_loads(heat, time, names, top) -> list:

@@ -230,6 +230,19 @@ def summary_text(results: Results, top: int = 15, all_nodes: bool = False,
                          f"couplings' error in reflected power to first order): "
                          f"{_g(w['stderr_W'])} W ({w['node']}, {_SOURCE_LABEL[w['source']]}, "
                          f"step {w['step']})")
+        rays = h.get("planet_rays") or {}
+        suggested = rays.get("suggested_factor") or {}
+        if suggested:
+            table = ", ".join(f"\"{name}\" = {k}" for name, k in suggested.items())
+            lines.append(f"  to lower the largest planet-load errors for twice the planet rays "
+                         f"in all: [radiation] planet_ray_factor = {{ {table} }} (error about "
+                         f"1/sqrt(factor); rerun with another --seed)")
+        more = rays.get("more") or []
+        if more:
+            shown = ", ".join(f"{r['node']} {r['rays_per_side']}" for r in more[:6])
+            lines.append(f"  more planet rays: {len(more)} node(s) had more than the "
+                         f"{h['planet_rays']['per_side']} per facet side ({shown}"
+                         f"{', ...' if len(more) > 6 else ''})")
 
     temps = results.temperatures
     if temps is not None and not by_part:

@@ -310,6 +310,7 @@ def compute_sweep(model, geometry, beta_deg, *, scene=None, rays=None, seed=None
     from .environment import environment_from_table
     from .heating import HeatingSteps, heating_extremes, step_weights
     from .kinematics import motion_of
+    from .planetrays import node_blocks
     from .progress import NullReporter
     from .radiation import compute_view_factors
     from .tracing.scene import Scene
@@ -358,7 +359,9 @@ def compute_sweep(model, geometry, beta_deg, *, scene=None, rays=None, seed=None
 
     heat_args = dict(view_factors=view_factors,
                      rays_per_facet=int(settings.planet_rays_per_facet),
-                     sun_samples=int(settings.sun_rays_per_facet), seed=seed)
+                     sun_samples=int(settings.sun_rays_per_facet), seed=seed,
+                     planet_blocks=node_blocks(dict(settings.planet_ray_factor),
+                                               geometry.nodes.names))
     tasks = [HeatingSteps.of(geometry, scene, trajectories[0], environment,
                              motion=motions[0], positions=positions[0], **heat_args)]
     t0 = time.perf_counter()

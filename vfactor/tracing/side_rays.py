@@ -39,7 +39,7 @@ from .config import JIT
 from .rng import STREAM_STRIDE
 from .sampling import cosine_direction, rqmc_uniform4, triangle_point
 
-__all__ = ["PURPOSE_PLANET", "PURPOSE_SUN", "STREAM_STRIDE", "TARGET_ESCAPE", "TARGET_INERT",
+__all__ = ["PURPOSE_PLANET", "PURPOSE_SUN", "COPY_STRIDE", "STREAM_STRIDE", "TARGET_ESCAPE", "TARGET_INERT",
            "side_stream", "planet_ray_keys", "side_ray", "put_ray"]
 
 #: Purpose offsets of the random streams (times STREAM_STRIDE).
@@ -59,6 +59,12 @@ def side_stream(purpose, facet, sign):
     """Random stream of one facet side for one purpose (uint64)."""
     side = 0 if sign > 0 else 1
     return np.uint64(purpose) * _STRIDE + np.uint64(2 * facet + side)
+
+
+#: Stream offset of the further blocks of planet rays of a side (:mod:`vfactor.planetrays`):
+#: block ``j`` of a side takes stream ``stream + j * COPY_STRIDE`` (node and facet-side
+#: indices stay below it; at most STREAM_STRIDE / COPY_STRIDE = 256 blocks).
+COPY_STRIDE = 1 << 32
 
 
 def planet_ray_keys(side_node):
