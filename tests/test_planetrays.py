@@ -128,6 +128,10 @@ def test_suggested_factors_bring_the_largest_error_down_as_far_as_the_budget_goe
         within = every[((every - 1) * sides).sum(axis=1) <= budget]
         best = (error ** 2 / within).max(axis=1).min()
         assert max(error ** 2 / got) == pytest.approx(best, rel=1e-12), share
+    # factors a run already had are kept, and the share is of the rays it had: 40 more
+    # sides' worth of blocks here
+    got = suggested_factors(error, sides, share=0.2, current=np.array([3, 1, 1]))
+    assert got[0] >= 3 and ((got - 1) * sides).sum() <= 1.2 * (3 * 10 + 40 + 25) - 75
     # a node that sees another with a view factor of at least CAVITY_VIEW passes its error
     # on to it: the radiator back of a 1 cm slot gets the rays of the face behind it
     view = np.array([[0.0, 0.9, 0.0], [0.9, 0.0, 0.0], [0.0, 0.0, 0.0]])

@@ -198,6 +198,9 @@ def test_planet_rays_given_and_suggested_in_the_summary(tmp_path):
     name = r.geometry.nodes.names[1]
     assert planet["more"] == [{"node": r.geometry.nodes.names[0], "rays_per_side": 1024}]
     assert planet["suggested_factor"][name] > 1
+    # never fewer rays than the run had on a node
+    assert planet["suggested_factor"][r.geometry.nodes.names[0]] >= 4
     text = summary.format_summary(r)
-    assert f'planet_ray_factor = {{ "{name}" = {planet["suggested_factor"][name]}' in text
+    assert "[radiation] planet_ray_factor = { " in text
+    assert f'"{name}" = {planet["suggested_factor"][name]}' in text
     assert "more planet rays: 1 node(s) had more than the 256 per facet side" in text

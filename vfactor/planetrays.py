@@ -55,22 +55,27 @@ SUGGESTED_SHARE = 1.0
 rays in all)."""
 
 
-def suggested_factors(error, sides, view=None, share=SUGGESTED_SHARE) -> np.ndarray:
+def suggested_factors(error, sides, view=None, share=SUGGESTED_SHARE,
+                      current=None) -> np.ndarray:
     """Per node, the ``planet_ray_factor`` that brings the largest planet-load error down
-    the most for ``share`` more planet rays (water-filling): ``K_j = ceil(error_j^2 / t)``
-    (1 to :data:`MAX_FACTOR`), ``t`` the smallest level whose extra rays, ``sum(sides (K -
-    1))``, stay within ``share * sum(sides)``; a node's variance with ``K`` blocks is its
-    variance over ``K``. A node that sees another with a view factor of at least
+    the most for ``share`` more planet rays than the run had (water-filling): ``K_j =
+    ceil(v_j / t)`` (from the run's factor to :data:`MAX_FACTOR`), ``v_j`` the node's
+    variance with one block and ``t`` the smallest level whose rays, ``sum(sides K)``, stay
+    within ``(1 + share) sum(sides current)``; a node's variance with ``K`` blocks is
+    ``v / K``. A node that sees another with a view factor of at least
     :data:`CAVITY_VIEW` passes its error on to it (the two share a cavity).
 
-    error : (n,) float >= 0 — each node's largest planet-load error of a run [W]
+    error : (n,) float >= 0 — each node's largest planet-load error of the run [W]
     sides : (n,) int — facet sides of each node
     view : (n, n) node view factors (scipy sparse or dense), optional
     share : float >= 0
+    current : (n,) int, optional — the run's factors (default 1)
 
-    Returns (n,) int64 >= 1 (all ones when ``share`` pays for no whole block).
+    Returns (n,) int64 >= ``current`` (``current`` when ``share`` pays for no whole block).
     """
-    need = np.asarray(error, dtype=np.float64) ** 2
+    current = (np.ones(np.shape(error), dtype=np.int64) if current is None
+               else np.asarray(current, dtype=np.int64))
+    need = np.asarray(error, dtype=np.float64) ** 2 * current
     sides = np.asarray(sides, dtype=np.int64)
     if need.shape != sides.shape or not np.all(np.isfinite(need)):
         raise ValueError("suggested_factors: error and sides must be (n,) and finite")
@@ -82,20 +87,20 @@ def suggested_factors(error, sides, view=None, share=SUGGESTED_SHARE) -> np.ndar
         passed = np.zeros_like(need)
         np.maximum.at(passed, coo.col[cavity], need[coo.row[cavity]])
         need = np.maximum(need, passed)
-    budget = float(share) * float(sides.sum())
+    base = float((sides * current).sum())
+    budget = (1.0 + float(share)) * base - float(sides.sum())   # blocks beyond one each
     active = (need > 0.0) & (sides > 0)
-    ones = np.ones(need.shape, dtype=np.int64)
-    if budget < 1.0 or not active.any():
-        return ones
+    if budget - (base - float(sides.sum())) < 1.0 or not active.any():
+        return current.copy()
 
     def factors(level):
-        return np.clip(np.ceil(np.where(active, need, 0.0) / level), 1, MAX_FACTOR).astype(
-            np.int64)
+        k = np.clip(np.ceil(np.where(active, need, 0.0) / level), 1, MAX_FACTOR)
+        return np.maximum(k.astype(np.int64), current)
 
     def cost(level):
         return int(((factors(level) - 1) * sides).sum())
 
-    high = float(need[active].max())       # every node one block: no cost
+    high = float(need[active].max())       # every node keeps its factor: within the budget
     low = high / MAX_FACTOR
     if cost(low) <= budget:                # every node can have all it asks for
         return factors(low)

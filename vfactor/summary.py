@@ -422,9 +422,8 @@ def _planet_rays(heat, geometry, vf) -> dict:
         error = np.maximum(albedo, planet_ir).max(axis=0)
         old = (np.asarray(per_node, dtype=np.int64) // max(base, 1) if per_node is not None
                else np.ones(len(names), dtype=np.int64))
-        # a node's error with one block of rays: that of its factor times its square root
-        factors = suggested_factors(error * np.sqrt(old), sides_per_node(geometry),
-                                    None if vf is None else vf.matrix)
+        factors = suggested_factors(error, sides_per_node(geometry),
+                                    None if vf is None else vf.matrix, current=old)
         suggested = {names[i]: int(factors[i]) for i in np.flatnonzero(factors > 1).tolist()}
     return {"per_side": base, "more": more, "suggested_factor": suggested}
 
