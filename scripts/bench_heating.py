@@ -17,7 +17,10 @@
    ratios. A node's error is the root mean square over several seeds (``--seeds``) of its
    reported one-sigma error: one seed's is the spread of 8 replicates, itself uncertain by
    about a quarter (7 degrees of freedom), and the largest over nodes and steps of such
-   figures would pick the luckiest or unluckiest of them.
+   figures would pick the luckiest or unluckiest of them. Then the same with more planet
+   rays on the nodes of largest error (``[radiation] planet_ray_factor``, as
+   :func:`vfactor.planetrays.suggested_factors` suggests from a run with another seed)
+   against the previous estimator with as many planet rays in all.
 4. The demo with its Sun-tracking wings (``[[hinges]]``): one orbit with the turning parts
    (rigid rays cached once, tested against the moving parts per step; the diffuse
    redistribution by the couplings at the demo's 4 hinge positions, computed before the
@@ -145,6 +148,18 @@ def main(argv=None):
     print("  this estimator / the plain estimates with one ray sequence per side (the "
           "previous estimator):")
     _error_ratios(runs["ours"], runs["previous"])
+    factors = suggested(geometry, scene, trajectory, environment, **kw)
+    more = [estimators(geometry, scene, trajectory, environment, seed=seed,
+                       names=("ours", "previous"), planet_blocks=factors, **kw)
+            for seed in seeds]
+    chosen = ", ".join(f"{geometry.nodes.names[j]} x{factors[j]}"
+                       for j in np.flatnonzero(factors > 1))
+    ours_rays, before_rays = more[0]["rays_per_side"]
+    print(f"  with more planet rays on the nodes of largest error in a run with seed "
+          f"{REFERENCE_SEED} (planetrays.suggested_factors: {chosen}; {ours_rays:.0f} rays "
+          f"per side on average), against the previous estimator with as many in all "
+          f"({before_rays} per side):")
+    _error_ratios([r["ours"] for r in more], [r["previous"] for r in more])
     print("with the couplings' error in reflected power (seed 1; the stage's own 256 rays per "
           "side here; the radiation stage's couplings in a run):")
     for src in ("albedo", "planet_ir"):
@@ -214,27 +229,67 @@ class _Quiet:
         pass
 
 
-def estimators(geometry, scene, trajectory, environment, seed=1, **kw):
-    """The heating of :func:`timed` (at ``seed``) by three estimators of planet IR and
-    albedo, from one prepared vehicle: {"ours": the control variates, "plain": the plain
-    Monte Carlo estimates on every side from the very same rays
-    (``heatstep.plain_estimates``), "previous": the plain estimates from the same number of
-    rays drawn from one sequence per side (``heatstep.side_sequences``)}. The reported
+def estimators(geometry, scene, trajectory, environment, seed=1,
+               names=("ours", "plain", "previous"), **kw):
+    """The heating of :func:`timed` (at ``seed``) by up to three estimators of planet IR and
+    albedo: {"ours": the control variates, "plain": the plain Monte Carlo estimates on
+    every side from the very same rays (``heatstep.plain_estimates``), "previous": the
+    plain estimates from one sequence per side and one block of rays per side
+    (``heatstep.side_sequences``), with as many planet rays in all as "ours" (more per side
+    when ``kw`` gives ``planet_blocks``: :mod:`vfactor.planetrays`)}, and "rays_per_side":
+    the planet rays per facet side of "ours" (on average) and of "previous". The reported
     errors are those of the estimator alone: the error of the couplings in the reflected
     power (:mod:`vfactor.reflecterror`), the same for every estimator, is left out."""
     task = HeatingSteps.of(geometry, scene, trajectory, environment, seed=seed, **kw)
     model, _ = task.prepare(geometry, scene)
-    previous = heatstep.plain_estimates(heatstep.side_sequences(model, _Quiet()))
-    out = {}
+    m = task.replicates
+    per_side = model.sides.count * m * -(-task.rays_per_facet // m) / max(_facet_sides(model), 1)
+    before, traced = task, model
+    if task.blocks is not None:
+        before = HeatingSteps.of(geometry, scene, trajectory, environment, seed=seed, **{
+            **kw, "rays_per_facet": int(m * np.ceil(per_side / m)), "planet_blocks": None})
+        traced = before.prepare(geometry, scene)[0] if "previous" in names else None
+    states = {"ours": model}
+    if "plain" in names:
+        states["plain"] = heatstep.plain_estimates(model)
+    if "previous" in names:
+        states["previous"] = heatstep.plain_estimates(heatstep.side_sequences(traced, _Quiet()))
+    out = {"rays_per_side": (per_side, before.rays_per_facet)}
     gebhart = None
-    for name, state in (("ours", model), ("plain", heatstep.plain_estimates(model)),
-                        ("previous", previous)):
+    for name, state in states.items():
         if gebhart is None or name == "previous":   # "plain" has the first hits of "ours"
             gebhart = {band: None if geb is None else geb._replace(errors=None)
                        for band, geb in heatreflect.band_gebhart(state, geometry, None).items()}
         bands = heatreflect.bands_of(state, geometry, None, gebhart)
         out[name] = task.assemble(task.run((state, bands), np.arange(task.n_steps)))
     return out
+
+
+REFERENCE_SEED = 1000
+"""Seed of the earlier run whose errors choose the nodes given more planet rays."""
+
+
+def suggested(geometry, scene, trajectory, environment, **kw) -> np.ndarray:
+    """The ``planet_ray_factor`` per node that :func:`vfactor.planetrays.suggested_factors`
+    gives from a run at :data:`REFERENCE_SEED` (its estimator errors, its own node view
+    factors): what an engineer would take from the summary of an earlier run."""
+    from vfactor.planetrays import suggested_factors
+
+    task = HeatingSteps.of(geometry, scene, trajectory, environment, seed=REFERENCE_SEED, **kw)
+    model, _ = task.prepare(geometry, scene)
+    run = estimators(geometry, scene, trajectory, environment, seed=REFERENCE_SEED,
+                     names=("ours",), **kw)["ours"]
+    error = np.maximum(run.node_albedo_stderr, run.node_planet_ir_stderr).max(axis=0)
+    view = heatreflect._node_view_factors(model.sides, model.targets, model.n_nodes,
+                                          model.node_area)[0]
+    sides = np.bincount(model.sides.node, minlength=model.n_nodes)
+    return suggested_factors(error, sides, view)
+
+
+def _facet_sides(model) -> int:
+    """Facet sides of a prepared vehicle (each counted once, whatever its blocks)."""
+    s = model.sides
+    return int(np.unique(2 * s.facet + (s.sign < 0)).size)
 
 
 def _first(trajectory, stop, start=0):
