@@ -265,9 +265,11 @@ def test_edge_on_radiator_gets_no_direct_sun():
     assert heat.node_albedo.max() > 0.0       # it still sees the planet
 
 
-def test_a_placed_step_equals_a_rigid_model_built_at_that_position():
+@pytest.mark.parametrize("more_rays", [False, True])
+def test_a_placed_step_equals_a_rigid_model_built_at_that_position(more_rays):
     # same seed: the step of a turning panel has the bits of a rigid model whose panel is
-    # built at that step's angle (both estimate their couplings from their own rays)
+    # built at that step's angle (both estimate their couplings from their own rays), also
+    # with 1 to 3 blocks of planet rays on its nodes (vfactor.planetrays)
     model = _model(PLATE.replace('[[parts]]', '[[parts]]\nmax_edge = 0.2', 1)
                    + PLATE.replace('"panel"', '"box"').replace('shape = "rectangle"',
                                                                'shape = "box"')
@@ -278,8 +280,9 @@ def test_a_placed_step_equals_a_rigid_model_built_at_that_position():
     tr = trajectory_from_model(model)
     env = environment_from_table(None, "h.toml")
     motion = motion_of(g, model.hinges, tr)
+    more = dict(planet_blocks=np.arange(g.n_nodes) % 3 + 1) if more_rays else {}
     moving = compute_heating(g, Scene.build(g.vertices, g.triangles), tr, env, motion=motion,
-                             seed=9, rays_per_facet=64)
+                             seed=9, rays_per_facet=64, **more)
     k = 3
     placed = dataclasses.replace(g, vertices=motion.vertices(g, k),
                                  normals=motion.normals(g, k))
@@ -287,9 +290,11 @@ def test_a_placed_step_equals_a_rigid_model_built_at_that_position():
         "time", "position", "velocity", "sun_inertial", "sun_distance", "sun_fraction",
         "beta", "body_to_inertial", "sun_body", "nadir_body", "planet_distance")})
     rigid = compute_heating(placed, Scene.build(placed.vertices, placed.triangles), one, env,
-                            seed=9, rays_per_facet=64)
+                            seed=9, rays_per_facet=64, **more)
     for name in ("node_solar", "node_albedo", "node_planet_ir", "facet_solar"):
         assert getattr(moving, name)[k].tobytes() == getattr(rigid, name)[0].tobytes(), name
+    if more_rays:
+        return
 
     # with couplings at hinge positions the step redistributes by its position's view
     # factors: the bits of the rigid model at that step given those view factors
