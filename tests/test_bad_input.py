@@ -262,8 +262,11 @@ def _per_facet_demo(tmp_path, max_edge):
                         f'max_edge = {max_edge}\nfront = {{ coating = "hull_white", '
                         f'nodes = "per-facet" }}')
     assert "per-facet" in text
-    # the body's nodes are renamed: drop the [network] section, which names them
+    # the body's nodes are renamed: drop the [network] section and the planet ray factors,
+    # which name them
     text = text[:text.index("[network]")] if "[network]" in text else text
+    text = "\n".join(line for line in text.splitlines()
+                     if not line.startswith("planet_ray_factor")) + "\n"
     (tmp_path / "camera.stl").write_bytes((DEMO_MODEL.parent / "camera.stl").read_bytes())
     path = tmp_path / "demo.toml"
     path.write_text(text)
@@ -281,7 +284,7 @@ def test_resource_estimate_counts_dense_matrices_and_per_step_arrays(tmp_path):
     # our own formulas (resources.estimate_resources Notes), recomputed here by hand
     assert est.parts["node couplings"] == resources.COUPLING_COPIES * 8.0 * n * min(
         n + 2, resources.COUPLED_PER_ROW, model.radiation.rays_per_node)
-    assert est.parts["per-step results"] == 8.0 * 72 * (3 * f + 9 * n + 35)
+    assert est.parts["per-step results"] == 8.0 * 72 * (3 * f + 11 * n + 35)
     assert est.steps == 72 and est.cores == 2
     # the view-factor rays: n nodes x 100000, four times for the traced Gebhart factors
     # (the demo has infrared specular shares)

@@ -126,9 +126,10 @@ def estimate_resources(model: Model, geometry: Geometry, rays: int | None = None
     Memory (bytes; n nodes, f facets, s active facet sides, t steps, P planet and S sun
     rays per facet side, rounded up to the 8 replicates of the heating stage):
     ``COUPLING_COPIES * 8 n min(n + 2, COUPLED_PER_ROW, rays per node)`` for the sparse
-    node couplings; ``8 t (3 f + 9 n + 35)``
+    node couplings; ``8 t (3 f + 11 n + 35)``
     for the per-step results (absorbed flux per facet of three sources, per node absorbed,
-    incident and error of three sources, the trajectory); ``52 s P`` for the heating
+    incident and error of three sources and the planet rays' part of two errors, the
+    trajectory); ``52 s P`` for the heating
     stage's ray cache (first hit, and origin and direction of every escaping ray); ``s S``
     for one step's sun-sample mask; ``24`` per stored facet factor when asked; plus
     :data:`BYTES_PER_FACET` per facet and :data:`BASELINE_BYTES`. An upper estimate: not
@@ -171,7 +172,7 @@ def estimate_resources(model: Model, geometry: Geometry, rays: int | None = None
     heating_s = 0.0
     heat_rays = 0.0
     if steps:
-        parts["per-step results"] = 8.0 * steps * (3.0 * f + 9.0 * n + 35.0)
+        parts["per-step results"] = 8.0 * steps * (3.0 * f + 11.0 * n + 35.0)
         parts["heating ray cache"] = 52.0 * sides * planet
         parts["sun samples of a step"] = sides * sun
         heat_rays = sides * planet
