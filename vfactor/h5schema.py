@@ -104,7 +104,9 @@ _OPTIONAL = {  # datasets read when present
     "view_factors": {"smoothed_stderr_space": ("real", ("n",))},
     "heating": {**{f"{k}_stderr": ("real", ("t", "n")) for k in SOURCES},
                 **{f"escaped_{k}": ("real", ("t",)) for k in SOURCES},
-                **{f"inert_{k}": ("real", ("t",)) for k in SOURCES}},
+                **{f"inert_{k}": ("real", ("t",)) for k in SOURCES},
+                **{f"{k}_ray_stderr": ("real", ("t", "n")) for k in ("albedo", "planet_ir")},
+                "planet_rays": ("int", ("n",))},
 }
 #: (n, n) coupling matrices: CSR groups (data, indices, indptr; attribute shape) from
 #: schema 2 on, dense datasets in schema 1 (still read).
